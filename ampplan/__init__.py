@@ -1,0 +1,14 @@
+"""ampplan: plan the DC bias of multi-stage bipolar-transistor amplifiers.
+
+The core (devices, circuit, solver, stages, analyses, plan files) imports numpy and scipy only;
+notebook widgets and the canvas load when first used.
+"""
+
+from . import errors
+from .circuit import Circuit
+from .devices import PRESETS, Transistor, preset, thermal_voltage
+from .solver import Check, OperatingPoint, TransistorResult
+
+__all__ = ["errors", "Circuit", "Transistor", "thermal_voltage", "preset", "PRESETS", "OperatingPoint",
+           "TransistorResult", "Check"]
+__version__ = "0.1.0"

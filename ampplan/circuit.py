@@ -1,0 +1,521 @@
+"""Circuits: elements and nodes, and assembly of their linear (modified nodal) equations.
+
+A :class:`Circuit` only describes; :meth:`Circuit.solve` hands it to :mod:`ampplan.solver`.
+
+Unknowns, in this order (the *layout*, see :class:`Layout`):
+
+* the voltage of every node but ``gnd``, volts, in order of first use;
+* the current into the plus terminal of every voltage source, amperes;
+* per transistor, its base current I_B and collector current I_C with textbook signs
+  (positive in forward-active for NPN and PNP alike), amperes.
+
+Rows are Kirchhoff's current law at every node, one constraint per voltage source, and two rows
+per transistor that the device model fills in (its region's equations for the constant-drop model,
+its linearised Ebers–Moll equations for Newton's method).
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass
+from typing import Union
+
+import numpy as np
+
+from .devices import PARAMETERS as DEVICE_PARAMETERS
+from .devices import Transistor, check_parameter
+from .errors import (DuplicateNameError, FloatingNodeError, InvalidValueError, UnknownNameError,
+                     VoltageSourceLoopError)
+
+__all__ = ["GROUND", "Circuit", "Resistor", "VoltageSource", "CurrentSource", "Capacitor", "Bjt",
+           "Layout", "Parameters"]
+
+GROUND = "gnd"
+
+
+@dataclass(frozen=True)
+class Resistor:
+    """Resistor between nodes ``a`` and ``b``; ``resistance`` in ohms."""
+    name: str
+    a: str
+    b: str
+    resistance: float
+
+
+@dataclass(frozen=True)
+class VoltageSource:
+    """Ideal DC source holding V(plus) - V(minus) = ``voltage`` volts."""
+    name: str
+    plus: str
+    minus: str
+    voltage: float
+
+
+@dataclass(frozen=True)
+class CurrentSource:
+    """Ideal DC source; ``current`` amperes leave ``from_node``, pass through it, enter ``to_node``."""
+    name: str
+    from_node: str
+    to_node: str
+    current: float
+
+
+@dataclass(frozen=True)
+class Capacitor:
+    """Capacitor: open at DC, a short at midband. ``capacitance`` in farads, or None if not chosen."""
+    name: str
+    a: str
+    b: str
+    capacitance: float | None = None
+
+
+@dataclass(frozen=True)
+class Bjt:
+    """Bipolar transistor with its terminal nodes and device parameters."""
+    name: str
+    collector: str
+    base: str
+    emitter: str
+    device: Transistor
+
+
+Element = Union[Resistor, VoltageSource, CurrentSource, Capacitor, Bjt]
+
+# The one value each element kind carries, by kind: what a batch key "<element>" varies.
+_VALUE_FIELD = {Resistor: "resistance", VoltageSource: "voltage", CurrentSource: "current",
+                Capacitor: "capacitance"}
+
+
+def _check_name(kind: str, name) -> str:
+    if not isinstance(name, str) or not name.strip():
+        raise InvalidValueError(f"{kind} name must be a non-empty string, got {name!r}")
+    if "." in name:
+        raise InvalidValueError(f"{kind} name {name!r} must not contain '.' (it separates parameters)")
+    return name
+
+
+def _check_node(element: str, terminal: str, node) -> str:
+    if not isinstance(node, str) or not node.strip():
+        raise InvalidValueError(f"{element}: {terminal} node must be a non-empty string, got {node!r}")
+    return node
+
+
+def _finite(element: str, quantity: str, value, positive: bool = False) -> float:
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        raise InvalidValueError(f"{element}: {quantity} must be a number, got {value!r}") from None
+    if not math.isfinite(value):
+        raise InvalidValueError(f"{element}: {quantity} must be finite, got {value!r}")
+    if positive and value <= 0:
+        raise InvalidValueError(f"{element}: {quantity} must be > 0, got {value!r}")
+    return value
+
+
+class Circuit:
+    """A DC circuit of resistors, sources, capacitors and bipolar transistors.
+
+    Nodes are created by use; ``"gnd"`` is ground (0 V). Element names are unique across kinds.
+
+    Examples
+    --------
+    >>> c = Circuit()
+    >>> c.voltage_source("VCC", "vcc", "gnd", 12.0)
+    >>> c.resistor("RC", "vcc", "c", 4.7e3)
+    """
+
+    def __init__(self):
+        self._elements: dict[str, Element] = {}
+        self._layout: Layout | None = None
+
+    # -- description --------------------------------------------------------------------------
+    def _add(self, element: Element) -> None:
+        if element.name in self._elements:
+            raise DuplicateNameError(f"an element named {element.name!r} already exists in the circuit")
+        self._elements[element.name] = element
+        self._layout = None
+
+    def resistor(self, name: str, a: str, b: str, resistance: float) -> None:
+        """Add a resistor of ``resistance`` ohms (> 0, finite) between nodes ``a`` and ``b``."""
+        _check_name("resistor", name)
+        self._add(Resistor(name, _check_node(name, "a", a), _check_node(name, "b", b),
+                           _finite(name, "resistance", resistance, positive=True)))
+
+    def voltage_source(self, name: str, plus: str, minus: str, voltage: float) -> None:
+        """Add an ideal source holding V(plus) - V(minus) = ``voltage`` volts."""
+        _check_name("voltage source", name)
+        plus, minus = _check_node(name, "plus", plus), _check_node(name, "minus", minus)
+        if plus == minus:
+            raise InvalidValueError(f"{name}: voltage source has both terminals on node {plus!r}")
+        self._add(VoltageSource(name, plus, minus, _finite(name, "voltage", voltage)))
+
+    def current_source(self, name: str, from_node: str, to_node: str, current: float) -> None:
+        """Add an ideal source: ``current`` amperes leave ``from_node``, flow through it into ``to_node``."""
+        _check_name("current source", name)
+        self._add(CurrentSource(name, _check_node(name, "from", from_node),
+                                _check_node(name, "to", to_node), _finite(name, "current", current)))
+
+    def capacitor(self, name: str, a: str, b: str, capacitance: float | None = None) -> None:
+        """Add a capacitor (open at DC, short at midband); ``capacitance`` in farads or None."""
+        _check_name("capacitor", name)
+        if capacitance is not None:
+            capacitance = _finite(name, "capacitance", capacitance, positive=True)
+        self._add(Capacitor(name, _check_node(name, "a", a), _check_node(name, "b", b), capacitance))
+
+    def bjt(self, name: str, collector: str, base: str, emitter: str, device: Transistor) -> None:
+        """Add a bipolar transistor with the given terminal nodes and :class:`Transistor` parameters."""
+        _check_name("transistor", name)
+        if not isinstance(device, Transistor):
+            raise InvalidValueError(f"{name}: device must be an ampplan.Transistor, got {type(device).__name__}")
+        self._add(Bjt(name, _check_node(name, "collector", collector), _check_node(name, "base", base),
+                      _check_node(name, "emitter", emitter), device))
+
+    def remove(self, name: str) -> Element:
+        """Remove and return the element ``name``."""
+        element = self.element(name)
+        del self._elements[name]
+        self._layout = None
+        return element
+
+    def copy(self) -> "Circuit":
+        """An independent copy (elements are immutable, so a shallow copy suffices)."""
+        new = Circuit()
+        new._elements = dict(self._elements)
+        return new
+
+    # -- inspection ---------------------------------------------------------------------------
+    @property
+    def elements(self) -> tuple:
+        """Every element, in the order added."""
+        return tuple(self._elements.values())
+
+    def element(self, name: str) -> Element:
+        """The element called ``name`` (UnknownNameError, with a suggestion, when there is none)."""
+        try:
+            return self._elements[name]
+        except KeyError:
+            raise UnknownNameError(f"the circuit has no element named {name!r}"
+                                   + _did_you_mean(name, self._elements)) from None
+
+    def of_kind(self, kind: type) -> list:
+        """Elements of one class (``Resistor``, ``Bjt`` ...), in the order added."""
+        return [e for e in self._elements.values() if isinstance(e, kind)]
+
+    @property
+    def nodes(self) -> tuple[str, ...]:
+        """Every node name but ground, in order of first use."""
+        return self.layout().nodes
+
+    def layout(self) -> "Layout":
+        """The compiled layout of unknowns and index arrays (cached until the circuit changes)."""
+        if self._layout is None:
+            self._layout = Layout(self)
+        return self._layout
+
+    def solve(self, model: str = "constant-drop", temperature: float = 25.0, batch: dict | None = None,
+              active_edge: str = "vce-sat"):
+        """Solve the DC operating point.
+
+        Parameters
+        ----------
+        model : {"constant-drop", "ebers-moll"}
+            Device model, see :func:`ampplan.solver.solve`.
+        temperature : float
+            Junction temperature, degrees Celsius (parameters are given at 25 °C).
+        batch : dict of str -> array_like, optional
+            Values to vary, each of shape (S,) (scalars broadcast): element values by element name
+            (``"RC"``, ``"VCC"``) and device parameters as ``"<transistor>.<parameter>"``
+            (``"Q1.beta"``); ``"temperature"`` varies the temperature.
+        active_edge : {"vce-sat", "vcb-zero"}
+            Where forward-active ends: at V_CE = V_CE(sat) (default) or at V_CB = 0.
+
+        Returns
+        -------
+        ampplan.solver.OperatingPoint
+        """
+        from .solver import solve
+        return solve(self, model=model, temperature=temperature, batch=batch, active_edge=active_edge)
+
+    def __repr__(self) -> str:
+        counts = {}
+        for e in self._elements.values():
+            counts[type(e).__name__] = counts.get(type(e).__name__, 0) + 1
+        body = ", ".join(f"{n} {k}" for k, n in counts.items()) or "empty"
+        return f"Circuit({body})"
+
+
+def _did_you_mean(name: str, choices) -> str:
+    close = difflib.get_close_matches(str(name), list(choices), n=3)
+    return f"; did you mean {', '.join(repr(c) for c in close)}?" if close else ""
+
+
+class _UnionFind:
+    def __init__(self):
+        self.parent: dict[str, str] = {}
+
+    def find(self, x: str) -> str:
+        self.parent.setdefault(x, x)
+        while self.parent[x] != x:
+            self.parent[x] = self.parent[self.parent[x]]
+            x = self.parent[x]
+        return x
+
+    def union(self, x: str, y: str) -> bool:
+        rx, ry = self.find(x), self.find(y)
+        if rx == ry:
+            return False
+        self.parent[rx] = ry
+        return True
+
+
+@dataclass(frozen=True)
+class Parameters:
+    """Numeric values of a circuit for S samples (the batch axis leads).
+
+    Attributes
+    ----------
+    conductance : ndarray, shape (S, n_resistors)
+        1/R per resistor, siemens.
+    voltage : ndarray, shape (S, n_voltage_sources)
+    current : ndarray, shape (S, n_current_sources)
+    device : dict of str -> ndarray of shape (S, n_transistors)
+        Every numeric transistor parameter, at 25 °C.
+    temperature : ndarray, shape (S,)
+        Degrees Celsius.
+    """
+    conductance: np.ndarray
+    voltage: np.ndarray
+    current: np.ndarray
+    device: dict
+    temperature: np.ndarray
+
+    @property
+    def size(self) -> int:
+        return self.temperature.shape[0]
+
+
+class Layout:
+    """Index arrays of one circuit's unknowns and rows, and assembly of its linear equations.
+
+    Built by :meth:`Circuit.layout`; checks the topology on construction (every node has a DC path
+    to ground, no loop of voltage sources).
+    """
+
+    def __init__(self, circuit: Circuit):
+        self.resistors = circuit.of_kind(Resistor)
+        self.voltage_sources = circuit.of_kind(VoltageSource)
+        self.current_sources = circuit.of_kind(CurrentSource)
+        self.capacitors = circuit.of_kind(Capacitor)
+        self.bjts = circuit.of_kind(Bjt)
+        nodes: dict[str, None] = {}
+        for e in circuit.elements:
+            for n in _terminals(e):
+                if n != GROUND:
+                    nodes.setdefault(n, None)
+        self.nodes: tuple[str, ...] = tuple(nodes)
+        self.n_nodes = len(self.nodes)
+        self.n_vs = len(self.voltage_sources)
+        self.n_bjt = len(self.bjts)
+        self.size = self.n_nodes + self.n_vs + 2 * self.n_bjt
+        # Ground maps to index `size`, one past the end: stamps land in a spare row and column that
+        # are dropped before solving, which spares a branch per terminal.
+        index = {n: i for i, n in enumerate(self.nodes)}
+        index[GROUND] = self.size
+        self.index = index
+        self._check_topology(circuit)
+
+        ix = lambda names: np.array([index[n] for n in names], dtype=np.intp)  # noqa: E731
+        self.r_a = ix([r.a for r in self.resistors])
+        self.r_b = ix([r.b for r in self.resistors])
+        self.vs_plus = ix([v.plus for v in self.voltage_sources])
+        self.vs_minus = ix([v.minus for v in self.voltage_sources])
+        self.vs_row = self.n_nodes + np.arange(self.n_vs, dtype=np.intp)
+        self.cs_from = ix([s.from_node for s in self.current_sources])
+        self.cs_to = ix([s.to_node for s in self.current_sources])
+        self.q_c = ix([q.collector for q in self.bjts])
+        self.q_b = ix([q.base for q in self.bjts])
+        self.q_e = ix([q.emitter for q in self.bjts])
+        self.q_ib = self.n_nodes + self.n_vs + 2 * np.arange(self.n_bjt, dtype=np.intp)
+        self.q_ic = self.q_ib + 1
+        self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
+        self.structure = self._structure()
+
+    # -- topology -----------------------------------------------------------------------------
+    def _check_topology(self, circuit: Circuit) -> None:
+        loops = _UnionFind()
+        for v in self.voltage_sources:
+            if not loops.union(v.plus, v.minus):
+                others = [w.name for w in self.voltage_sources if w is not v
+                          and loops.find(w.plus) == loops.find(v.plus)]
+                raise VoltageSourceLoopError(
+                    f"voltage source {v.name!r} closes a loop of voltage sources with "
+                    f"{', '.join(repr(o) for o in others)} between nodes {v.plus!r} and {v.minus!r}; "
+                    "their currents would be undetermined")
+        dc = _UnionFind()
+        dc.find(GROUND)
+        for e in circuit.elements:
+            if isinstance(e, (Resistor, VoltageSource)):
+                a, b = _terminals(e)
+                dc.union(a, b)
+            elif isinstance(e, Bjt):
+                dc.union(e.collector, e.base)
+                dc.union(e.base, e.emitter)
+        ground = dc.find(GROUND)
+        floating = [n for n in self.nodes if dc.find(n) != ground]
+        if floating:
+            where = {n: [e.name for e in circuit.elements if n in _terminals(e)] for n in floating}
+            first = floating[0]
+            raise FloatingNodeError(
+                f"node {first!r} has no DC path to ground (it meets only "
+                f"{', '.join(repr(x) for x in where[first])}, and capacitors and current sources "
+                "carry no DC path)" + (f"; also floating: {', '.join(floating[1:])}" if floating[1:] else ""))
+
+    # -- assembly -----------------------------------------------------------------------------
+    def _structure(self) -> np.ndarray:
+        """The parameter-free entries: voltage-source incidence and transistor terminal currents."""
+        n = self.size + 1
+        a = np.zeros((n, n))
+        a[self.vs_plus, self.vs_row] += 1.0   # source current leaves its plus node into the source
+        a[self.vs_minus, self.vs_row] -= 1.0
+        a[self.vs_row, self.vs_plus] += 1.0   # V(plus) - V(minus) = voltage
+        a[self.vs_row, self.vs_minus] -= 1.0
+        # Textbook currents: I_B into the base and I_C into the collector (NPN), I_E = I_B + I_C out
+        # of the emitter; a PNP reverses all three, hence the sign.
+        s = self.sign
+        np.add.at(a, (self.q_b, self.q_ib), s)
+        np.add.at(a, (self.q_c, self.q_ic), s)
+        np.add.at(a, (self.q_e, self.q_ib), -s)
+        np.add.at(a, (self.q_e, self.q_ic), -s)
+        return a
+
+    def assemble(self, params: Parameters, source_scale=1.0, gmin=0.0):
+        """Linear part of the equations for every sample.
+
+        Parameters
+        ----------
+        params : Parameters
+            S samples of element values.
+        source_scale : float or ndarray of shape (S,)
+            Multiplies every independent source (source stepping).
+        gmin : float or ndarray of shape (S,)
+            Conductance from every node to ground, siemens (the conductance ladder).
+
+        Returns
+        -------
+        matrix : ndarray, shape (S, size + 1, size + 1)
+            With the transistor rows left empty for the device model; the last row and column
+            belong to ground and are dropped before solving.
+        rhs : ndarray, shape (S, size + 1)
+        """
+        s_count = params.size
+        n = self.size + 1
+        matrix = np.broadcast_to(self.structure, (s_count, n, n)).copy()
+        g = params.conductance
+        # One fancy-indexed update per stamp position replaces a loop over resistors; add.at
+        # because two resistors may share both nodes.
+        samples = np.arange(s_count)[:, None]
+        np.add.at(matrix, (samples, self.r_a[None, :], self.r_a[None, :]), g)
+        np.add.at(matrix, (samples, self.r_b[None, :], self.r_b[None, :]), g)
+        np.add.at(matrix, (samples, self.r_a[None, :], self.r_b[None, :]), -g)
+        np.add.at(matrix, (samples, self.r_b[None, :], self.r_a[None, :]), -g)
+        if np.any(gmin):
+            diag = np.arange(self.n_nodes)
+            matrix[:, diag, diag] += np.reshape(gmin, (-1, 1))
+        rhs = np.zeros((s_count, n))
+        scale = np.reshape(np.asarray(source_scale, dtype=float), (-1, 1))
+        rhs[:, self.vs_row] = params.voltage * scale
+        i = params.current * scale
+        np.add.at(rhs, (samples, self.cs_from[None, :]), -i)
+        np.add.at(rhs, (samples, self.cs_to[None, :]), i)
+        return matrix, rhs
+
+    # -- parameters ---------------------------------------------------------------------------
+    def parameters(self, temperature=25.0, batch: dict | None = None) -> Parameters:
+        """Element and device values for S samples, with ``batch`` overriding the circuit's own.
+
+        Raises UnknownNameError for a batch key that names no element or parameter and
+        InvalidValueError for a bad value (naming the key and the first bad sample).
+        """
+        batch = dict(batch or {})
+        arrays = {}
+        for key, value in batch.items():
+            arr = np.asarray(value, dtype=float) if not isinstance(value, np.ndarray) else value.astype(float)
+            if arr.ndim > 1:
+                raise InvalidValueError(f"batch[{key!r}] must be a scalar or a 1-D array, got shape {arr.shape}")
+            arrays[key] = arr
+        sizes = {k: a.shape[0] for k, a in arrays.items() if a.ndim == 1}
+        if len(set(sizes.values())) > 1:
+            raise InvalidValueError("batch arrays differ in length: "
+                                    + ", ".join(f"{k}: {n}" for k, n in sizes.items()))
+        s_count = next(iter(sizes.values()), 1)
+        if s_count == 0:
+            raise InvalidValueError("batch arrays are empty")
+        full = lambda v: np.broadcast_to(np.asarray(v, dtype=float), (s_count,)).copy()  # noqa: E731
+        temp = full(arrays.pop("temperature", temperature))
+        if not np.all(np.isfinite(temp)) or np.any(temp <= -273.15):
+            raise InvalidValueError(f"temperature must be finite and above -273.15 °C, got {temperature!r}")
+
+        by_name = {e.name: e for group in (self.resistors, self.voltage_sources, self.current_sources,
+                                           self.capacitors, self.bjts) for e in group}
+        overrides: dict[str, np.ndarray] = {}
+        device_overrides: dict[tuple[int, str], np.ndarray] = {}
+        q_index = {q.name: j for j, q in enumerate(self.bjts)}
+        for key, arr in arrays.items():
+            if "." in key:
+                qname, _, pname = key.partition(".")
+                if qname not in q_index:
+                    raise UnknownNameError(f"batch key {key!r}: the circuit has no transistor named {qname!r}"
+                                           + _did_you_mean(qname, q_index))
+                if pname not in DEVICE_PARAMETERS:
+                    raise UnknownNameError(f"batch key {key!r}: transistors have no parameter {pname!r}"
+                                           + _did_you_mean(pname, DEVICE_PARAMETERS))
+                check_parameter(pname, arr, where=f"batch[{key!r}]:")
+                device_overrides[(q_index[qname], pname)] = full(arr)
+            else:
+                if key not in by_name or isinstance(by_name[key], Bjt):
+                    raise UnknownNameError(f"batch key {key!r} names no resistor, source or capacitor"
+                                           + _did_you_mean(key, [k for k, e in by_name.items()
+                                                                 if not isinstance(e, Bjt)]))
+                values = full(arr)
+                element = by_name[key]
+                bad = ~np.isfinite(values)
+                if isinstance(element, (Resistor, Capacitor)):
+                    bad |= values <= 0
+                if np.any(bad):
+                    first = int(np.argmax(bad))
+                    what = "> 0 and finite" if isinstance(element, (Resistor, Capacitor)) else "finite"
+                    raise InvalidValueError(f"batch[{key!r}]: {_VALUE_FIELD[type(element)]} must be {what}, "
+                                            f"got {values[first]!r} at sample {first}")
+                overrides[key] = values
+
+        def column(elements, field, transform=lambda x: x):
+            out = np.empty((s_count, len(elements)))
+            for k, e in enumerate(elements):
+                out[:, k] = transform(overrides[e.name]) if e.name in overrides else transform(getattr(e, field))
+            return out
+
+        device = {}
+        for pname in DEVICE_PARAMETERS:
+            col = np.empty((s_count, self.n_bjt))
+            for j, q in enumerate(self.bjts):
+                v = getattr(q.device, pname)
+                col[:, j] = device_overrides.get((j, pname), np.nan if v is None else v)
+            device[pname] = col
+        return Parameters(
+            conductance=column(self.resistors, "resistance", lambda r: 1.0 / np.asarray(r, dtype=float)),
+            voltage=column(self.voltage_sources, "voltage"),
+            current=column(self.current_sources, "current"),
+            device=device,
+            temperature=temp,
+        )
+
+
+def _terminals(e: Element) -> tuple[str, ...]:
+    if isinstance(e, Bjt):
+        return (e.collector, e.base, e.emitter)
+    if isinstance(e, VoltageSource):
+        return (e.plus, e.minus)
+    if isinstance(e, CurrentSource):
+        return (e.from_node, e.to_node)
+    return (e.a, e.b)

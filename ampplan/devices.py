@@ -1,0 +1,243 @@
+"""Transistor parameter sets, their temperature scaling, and presets named by role.
+
+Everything here is SI: volts, amperes, watts, kelvin inside (degrees Celsius only as the
+``temperature`` argument a designer types). The module knows nothing of circuits.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from typing import Literal, get_args
+
+import numpy as np
+from scipy import constants
+
+from .errors import InvalidValueError, UnknownModelError, UnknownNameError
+
+__all__ = [
+    "Polarity",
+    "POLARITIES",
+    "Transistor",
+    "thermal_voltage",
+    "REFERENCE_TEMPERATURE",
+    "PRESETS",
+    "preset",
+]
+
+Polarity = Literal["npn", "pnp"]
+POLARITIES: tuple[str, ...] = get_args(Polarity)
+
+#: Temperature (degrees C) at which device parameters are given, and the default solve temperature.
+REFERENCE_TEMPERATURE = 25.0
+
+
+def thermal_voltage(temperature=REFERENCE_TEMPERATURE):
+    """Thermal voltage V_T = k·T/q.
+
+    Parameters
+    ----------
+    temperature : float or ndarray
+        Junction temperature in degrees Celsius, any shape.
+
+    Returns
+    -------
+    float or ndarray
+        V_T in volts, same shape (25.69 mV at 25 °C).
+    """
+    kelvin = np.asarray(temperature, dtype=float) + constants.zero_Celsius
+    v_t = constants.Boltzmann * kelvin / constants.elementary_charge
+    return float(v_t) if v_t.ndim == 0 else v_t
+
+
+@dataclass(frozen=True)
+class Transistor:
+    """One bipolar transistor's parameters, for both device models.
+
+    The constant-drop model uses ``beta``, ``vbe_on``, ``vce_sat``, ``beta_reverse`` and
+    ``vbc_on``; the Ebers–Moll model uses ``beta``, ``beta_reverse``, ``saturation_current``,
+    ``early_voltage`` and ``emission_coefficient``. Voltages are magnitudes: a PNP with
+    ``vbe_on=0.7`` has V_EB = 0.7 V when on. All values are at 25 °C.
+
+    Parameters
+    ----------
+    polarity : {"npn", "pnp"}
+    beta : float
+        Forward current gain β_F = I_C/I_B in forward-active, dimensionless, > 0.
+    vbe_on : float
+        Base-emitter drop when conducting (constant-drop model), volts. Common practice 0.7 V.
+    vce_sat : float
+        Collector-emitter voltage in saturation (constant-drop model), volts. Common practice 0.2 V.
+    beta_reverse : float
+        Reverse current gain β_R, dimensionless, > 0.
+    vbc_on : float or None
+        Base-collector drop when conducting, volts; None means the same as ``vbe_on``.
+    saturation_current : float
+        Transport saturation current I_S, amperes, > 0.
+    early_voltage : float
+        Forward Early voltage V_A, volts, > 0; ``inf`` for none.
+    emission_coefficient : float
+        Junction emission coefficient n, dimensionless, >= 1 in practice.
+    vbe_temperature_coefficient : float
+        Drift of ``vbe_on`` and ``vbc_on`` with temperature in the constant-drop model, V/K.
+        Default -2 mV/K (common practice, no source).
+    bandgap_energy : float
+        Energy gap for the I_S temperature law, electron-volts (silicon 1.11 eV).
+    saturation_current_exponent : float
+        Power of T/T₀ in the I_S temperature law, dimensionless (3 for silicon).
+    max_power, max_collector_current, max_vce : float or None
+        Ratings at 25 °C (watts, amperes, volts) for the dissipation checks; None when unknown.
+    """
+
+    polarity: Polarity = "npn"
+    beta: float = 100.0
+    vbe_on: float = 0.7
+    vce_sat: float = 0.2
+    beta_reverse: float = 1.0
+    vbc_on: float | None = None
+    saturation_current: float = 1e-14
+    early_voltage: float = math.inf
+    emission_coefficient: float = 1.0
+    vbe_temperature_coefficient: float = -2e-3
+    bandgap_energy: float = 1.11
+    saturation_current_exponent: float = 3.0
+    max_power: float | None = None
+    max_collector_current: float | None = None
+    max_vce: float | None = None
+
+    def __post_init__(self):
+        if self.polarity not in POLARITIES:
+            raise UnknownModelError(
+                f"Transistor polarity must be one of {', '.join(POLARITIES)}, got {self.polarity!r}"
+            )
+        if self.vbc_on is None:
+            object.__setattr__(self, "vbc_on", self.vbe_on)
+        for name in PARAMETERS:
+            value = getattr(self, name)
+            if value is None:
+                continue
+            check_parameter(name, value)
+
+    @property
+    def sign(self) -> int:
+        """+1 for NPN, -1 for PNP: multiplies voltages and currents into the NPN frame."""
+        return 1 if self.polarity == "npn" else -1
+
+    def replace(self, **changes) -> "Transistor":
+        """A copy with some parameters changed (unknown names raise UnknownNameError)."""
+        for name in changes:
+            if name not in FIELDS:
+                raise UnknownNameError(f"Transistor has no parameter {name!r}; it has {', '.join(FIELDS)}")
+        return dataclasses.replace(self, **changes)
+
+    def to_dict(self) -> dict:
+        """Plain dict of every parameter (SI units), for JSON."""
+        return dataclasses.asdict(self)
+
+
+FIELDS: tuple[str, ...] = tuple(f.name for f in dataclasses.fields(Transistor))
+#: Numeric parameters (everything but polarity), the ones a batch may vary.
+PARAMETERS: tuple[str, ...] = tuple(f for f in FIELDS if f != "polarity")
+
+# (lower bound, lower inclusive) for each numeric parameter; unlisted ones only need to be finite.
+_BOUNDS = {
+    "beta": (0.0, False),
+    "beta_reverse": (0.0, False),
+    "vbe_on": (0.0, False),
+    "vbc_on": (0.0, False),
+    "vce_sat": (0.0, True),
+    "saturation_current": (0.0, False),
+    "early_voltage": (0.0, False),
+    "emission_coefficient": (0.0, False),
+    "bandgap_energy": (0.0, True),
+    "max_power": (0.0, False),
+    "max_collector_current": (0.0, False),
+    "max_vce": (0.0, False),
+}
+_MAY_BE_INFINITE = {"early_voltage", "max_power", "max_collector_current", "max_vce"}
+
+
+def check_parameter(name: str, value, where: str = "Transistor"):
+    """Raise InvalidValueError unless ``value`` (scalar or array) is allowed for parameter ``name``."""
+    arr = np.asarray(value, dtype=float)
+    bad_nan = np.isnan(arr) | (np.isinf(arr) & (name not in _MAY_BE_INFINITE))
+    if np.any(bad_nan):
+        raise InvalidValueError(f"{where} parameter {name} must be finite, got {value!r}")
+    lower = _BOUNDS.get(name)
+    if lower is not None:
+        low, inclusive = lower
+        bad = arr < low if inclusive else arr <= low
+        if np.any(bad):
+            op = ">=" if inclusive else ">"
+            raise InvalidValueError(f"{where} parameter {name} must be {op} {low:g}, got {value!r}")
+
+
+# Presets are typical values for a role (common practice, no source); they are starting points
+# for a design, not the data sheet of any part.
+PRESETS: dict[str, Transistor] = {
+    "general-purpose small-signal NPN": Transistor(
+        polarity="npn", beta=200.0, saturation_current=1e-14, early_voltage=100.0,
+        max_power=0.5, max_collector_current=0.1, max_vce=40.0),
+    "general-purpose small-signal PNP": Transistor(
+        polarity="pnp", beta=200.0, saturation_current=1e-14, early_voltage=80.0,
+        max_power=0.5, max_collector_current=0.1, max_vce=40.0),
+    "low-noise high-gain NPN": Transistor(
+        polarity="npn", beta=400.0, saturation_current=5e-15, early_voltage=60.0,
+        max_power=0.5, max_collector_current=0.1, max_vce=45.0),
+    "medium-power NPN": Transistor(
+        polarity="npn", beta=80.0, saturation_current=1e-13, early_voltage=150.0,
+        max_power=1.25, max_collector_current=1.0, max_vce=60.0),
+    "medium-power PNP": Transistor(
+        polarity="pnp", beta=80.0, saturation_current=1e-13, early_voltage=150.0,
+        max_power=1.25, max_collector_current=1.0, max_vce=60.0),
+}
+
+
+def preset(role: str) -> Transistor:
+    """The preset transistor for a role, e.g. ``preset("general-purpose small-signal NPN")``."""
+    try:
+        return PRESETS[role]
+    except KeyError:
+        raise UnknownNameError(
+            f"no device preset named {role!r}; presets are: {', '.join(PRESETS)}") from None
+
+
+def scaled_to_temperature(devices: dict, temperature):
+    """Device parameters at a junction temperature, as arrays.
+
+    Parameters
+    ----------
+    devices : dict of str -> ndarray
+        Parameter name -> values at 25 °C, each of shape (S, N) for S samples of N transistors.
+    temperature : float or ndarray
+        Degrees Celsius, scalar or shape (S, 1).
+
+    Returns
+    -------
+    dict of str -> ndarray
+        A copy with ``saturation_current``, ``vbe_on`` and ``vbc_on`` moved to ``temperature``.
+
+    Notes
+    -----
+    Saturation current (Gray & Meyer, *Analysis and Design of Analog Integrated Circuits*, the
+    I_S(T) relation of the bipolar chapter, from memory):
+    ``I_S(T) = I_S(T0) · (T/T0)^(XT/n) · exp(E_g·q/(n·k) · (1/T0 - 1/T))`` with XT the
+    ``saturation_current_exponent``, E_g the ``bandgap_energy`` and T in kelvin.
+    Constant-drop voltages move linearly: ``V(T) = V(T0) + vbe_temperature_coefficient·(T - T0)``.
+    β is held constant. At T = T0 = 25 °C nothing changes.
+    """
+    out = dict(devices)
+    t0 = REFERENCE_TEMPERATURE + constants.zero_Celsius
+    t = np.asarray(temperature, dtype=float) + constants.zero_Celsius
+    if np.all(t == t0):
+        return out
+    n = devices["emission_coefficient"]
+    exponent = devices["saturation_current_exponent"] / n * np.log(t / t0) + (
+        devices["bandgap_energy"] * constants.elementary_charge / (n * constants.Boltzmann)
+        * (1.0 / t0 - 1.0 / t))
+    out["saturation_current"] = devices["saturation_current"] * np.exp(exponent)
+    shift = devices["vbe_temperature_coefficient"] * (t - t0)
+    out["vbe_on"] = devices["vbe_on"] + shift
+    out["vbc_on"] = devices["vbc_on"] + shift
+    return out

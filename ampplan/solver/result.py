@@ -1,0 +1,263 @@
+"""Result types of the region solver: one OperatingPoint per solve, single or batched."""
+
+from __future__ import annotations
+
+import html
+from dataclasses import dataclass, field
+from typing import Literal, get_args
+
+import numpy as np
+
+__all__ = ["Region", "REGIONS", "Check", "TransistorResult", "OperatingPoint"]
+
+Region = Literal["cutoff", "forward-active", "saturation", "reverse-active"]
+#: Region names, indexed by the integer codes the solver uses internally.
+REGIONS: tuple[str, ...] = get_args(Region)
+#: Region given to a batch sample that has no solution.
+UNSOLVED = "unsolved"
+
+
+def _fmt(x, unit: str = "") -> str:
+    """Engineering form of a scalar for reprs (SI prefixes), or a summary of an array."""
+    from ..units import format_quantity
+    if isinstance(x, str):
+        return x
+    if np.ndim(x) == 0:
+        return format_quantity(float(x), unit)
+    arr = np.asarray(x)
+    if arr.dtype.kind in "US":
+        values, counts = np.unique(arr, return_counts=True)
+        return ", ".join(f"{v}×{c}" for v, c in zip(values, counts))
+    return f"[{format_quantity(float(np.nanmin(arr)), unit)} … {format_quantity(float(np.nanmax(arr)), unit)}]"
+
+
+@dataclass(frozen=True)
+class Check:
+    """One condition of a transistor's region, as tested at the solution.
+
+    Attributes
+    ----------
+    name : str
+        The condition, e.g. ``"V_CE >= V_CE(sat)"`` (``"V_EC >= V_EC(sat)"`` for a PNP).
+    value : float
+        The quantity tested, volts or amperes.
+    limit : float
+        The bound it is tested against, same unit.
+    holds : bool
+    margin : float
+        Room left, same unit: positive when the condition holds, negative when it fails.
+    """
+    name: str
+    value: float
+    limit: float
+    holds: bool
+    margin: float
+
+    def __repr__(self) -> str:
+        return (f"Check({self.name}: value={_fmt(self.value)}, limit={_fmt(self.limit)}, "
+                f"margin={_fmt(self.margin)}, holds={self.holds})")
+
+    def to_dict(self) -> dict:
+        return {k: _plain(getattr(self, k)) for k in ("name", "value", "limit", "holds", "margin")}
+
+
+@dataclass(frozen=True)
+class TransistorResult:
+    """One transistor at the operating point.
+
+    Currents carry textbook signs, positive in forward-active for NPN and PNP alike (NPN: into the
+    collector, into the base, out of the emitter; PNP the reverse). Voltages are signed node
+    differences. In a batch every numeric field is an ndarray of shape (S,) and ``region`` an
+    array of str.
+
+    Attributes
+    ----------
+    name, polarity, region : str
+    ic, ib, ie : float
+        Collector, base and emitter current, amperes; ``ie == ic + ib``.
+    vbe, vce : float
+        V(B) - V(E) and V(C) - V(E), volts.
+    beta_forced : float
+        ic / ib, NaN when ib == 0.
+    power : float
+        Power the transistor dissipates, V_CE·I_C + V_BE·I_B, watts.
+    checks : tuple of Check
+        The conditions of its region with their margins.
+    """
+    name: str
+    polarity: str
+    region: str
+    ic: float
+    ib: float
+    ie: float
+    vbe: float
+    vce: float
+    beta_forced: float
+    power: float
+    checks: tuple = ()
+
+    @property
+    def vcb(self):
+        """V(C) - V(B), volts."""
+        return self.vce - self.vbe
+
+    def __repr__(self) -> str:
+        return (f"TransistorResult({self.name} {self.polarity}: {_fmt(self.region)}, "
+                f"I_C={_fmt(self.ic, 'A')}, V_CE={_fmt(self.vce, 'V')}, I_B={_fmt(self.ib, 'A')}, "
+                f"V_BE={_fmt(self.vbe, 'V')}, forced beta={_fmt(self.beta_forced)})")
+
+    def to_dict(self) -> dict:
+        out = {k: _plain(getattr(self, k)) for k in
+               ("name", "polarity", "region", "ic", "ib", "ie", "vbe", "vce", "beta_forced", "power")}
+        out["checks"] = [c.to_dict() for c in self.checks]
+        return out
+
+
+@dataclass(frozen=True)
+class OperatingPoint:
+    """The DC operating point of a circuit (or of S samples of it, in a batch).
+
+    Attributes
+    ----------
+    model : str
+        ``"constant-drop"`` or ``"ebers-moll"``.
+    v : dict of str -> float
+        Node voltages, volts, ``v["gnd"] == 0``; ndarray (S,) per node in a batch.
+    i : dict of str -> float
+        Element currents, amperes: through a resistor from its node ``a`` to ``b``; the current a
+        voltage source delivers out of its plus terminal; a current source's own value.
+    transistors : dict of str -> TransistorResult
+    status : str
+        ``"ok"``; in a batch an array of str with ``"no-consistent-region"`` or ``"no-convergence"``
+        for samples that failed (their numeric fields are NaN).
+    temperature : float
+        Degrees Celsius (ndarray (S,) in a batch).
+    alternatives : tuple of OperatingPoint
+        Other consistent operating points the constant-drop search found (a latch, say).
+    method : str
+        How the answer was reached (``"enumeration"``, ``"search from Ebers–Moll guess"``,
+        ``"newton"``, ``"conductance ladder"``, ``"source stepping"``).
+    iterations : int
+        Newton iterations (Ebers–Moll, including the guess for constant-drop) or linear solves.
+    batch_size : int or None
+        S for a batch, None for a single solve.
+    """
+    model: str
+    v: dict
+    i: dict
+    transistors: dict
+    status: object = "ok"
+    temperature: object = 25.0
+    alternatives: tuple = ()
+    method: str = ""
+    iterations: int = 0
+    batch_size: int | None = None
+    circuit: object = field(default=None, repr=False, compare=False)
+    unknowns: object = field(default=None, repr=False, compare=False)
+
+    @property
+    def ok(self):
+        """True where the solve succeeded (bool, or ndarray (S,) in a batch)."""
+        return np.asarray(self.status) == "ok" if self.batch_size is not None else self.status == "ok"
+
+    def kcl_residual(self):
+        """Largest current imbalance over all nodes, amperes (ndarray (S,) in a batch).
+
+        Recomputed from the reported element and transistor currents, independent of the solver.
+        """
+        from ..circuit import Bjt, CurrentSource, Resistor, VoltageSource
+        net = {n: 0.0 for n in self.v}
+        for e in self.circuit.elements:
+            if isinstance(e, Resistor):
+                net[e.a] = net[e.a] + self.i[e.name]
+                net[e.b] = net[e.b] - self.i[e.name]
+            elif isinstance(e, VoltageSource):
+                net[e.plus] = net[e.plus] - self.i[e.name]
+                net[e.minus] = net[e.minus] + self.i[e.name]
+            elif isinstance(e, CurrentSource):
+                net[e.from_node] = net[e.from_node] + self.i[e.name]
+                net[e.to_node] = net[e.to_node] - self.i[e.name]
+            elif isinstance(e, Bjt):
+                t = self.transistors[e.name]
+                s = e.device.sign
+                net[e.base] = net[e.base] + s * t.ib
+                net[e.collector] = net[e.collector] + s * t.ic
+                net[e.emitter] = net[e.emitter] - s * t.ie
+        net.pop("gnd", None)
+        if not net:
+            return 0.0
+        return np.max(np.abs(np.array([np.broadcast_to(v, np.shape(self.v["gnd"])) for v in net.values()])),
+                      axis=0)
+
+    def sample(self, k: int) -> "OperatingPoint":
+        """Sample ``k`` of a batch as a single OperatingPoint."""
+        if self.batch_size is None:
+            raise ValueError("sample() needs a batched OperatingPoint")
+        pick = lambda a: a[k].item() if hasattr(a[k], "item") else a[k]  # noqa: E731
+        transistors = {
+            name: TransistorResult(
+                name=t.name, polarity=t.polarity, region=str(t.region[k]),
+                **{f: pick(getattr(t, f)) for f in ("ic", "ib", "ie", "vbe", "vce", "beta_forced", "power")},
+                checks=tuple(Check(str(c.name[k]), pick(c.value), pick(c.limit), bool(c.holds[k]), pick(c.margin))
+                             for c in t.checks))
+            for name, t in self.transistors.items()}
+        return OperatingPoint(
+            model=self.model, v={n: pick(a) for n, a in self.v.items()}, i={n: pick(a) for n, a in self.i.items()},
+            transistors=transistors, status=str(self.status[k]), temperature=pick(self.temperature),
+            method=self.method, iterations=self.iterations, circuit=self.circuit,
+            unknowns=None if self.unknowns is None else self.unknowns[k])
+
+    def __repr__(self) -> str:
+        head = f"OperatingPoint({self.model}"
+        if self.batch_size is not None:
+            head += f", batch of {self.batch_size}, status {_fmt(self.status)}"
+        elif self.status != "ok":
+            head += f", {self.status}"
+        lines = [head + ")"]
+        for t in self.transistors.values():
+            lines.append(f"  {t.name}: {_fmt(t.region)}, I_C={_fmt(t.ic, 'A')}, V_CE={_fmt(t.vce, 'V')}, "
+                         f"I_B={_fmt(t.ib, 'A')}")
+        nodes = ", ".join(f"{n}={_fmt(v, 'V')}" for n, v in self.v.items() if n != "gnd")
+        lines.append(f"  nodes: {nodes}")
+        if self.alternatives:
+            lines.append(f"  {len(self.alternatives)} other consistent operating point(s) on .alternatives")
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        e = html.escape
+        rows = "".join(
+            f"<tr><td>{e(t.name)}</td><td>{e(t.polarity.upper())}</td><td>{e(_fmt(t.region))}</td>"
+            f"<td>{e(_fmt(t.ic, 'A'))}</td><td>{e(_fmt(t.vce, 'V'))}</td><td>{e(_fmt(t.ib, 'A'))}</td>"
+            f"<td>{e(_fmt(t.beta_forced))}</td></tr>" for t in self.transistors.values())
+        nodes = "".join(f"<tr><td>{e(n)}</td><td>{e(_fmt(v, 'V'))}</td></tr>" for n, v in self.v.items()
+                        if n != "gnd")
+        title = f"Operating point ({e(self.model)})"
+        if self.batch_size is not None:
+            title += f", batch of {self.batch_size}"
+        return (f"<div><strong>{title}</strong>"
+                "<table><thead><tr><th>transistor</th><th>type</th><th>region</th><th>I_C</th><th>V_CE</th>"
+                f"<th>I_B</th><th>forced beta</th></tr></thead><tbody>{rows}</tbody></table>"
+                f"<table><thead><tr><th>node</th><th>voltage</th></tr></thead><tbody>{nodes}</tbody></table></div>")
+
+    def to_dict(self) -> dict:
+        """Plain, JSON-ready dict (arrays become lists)."""
+        return {
+            "model": self.model,
+            "status": _plain(self.status),
+            "temperature": _plain(self.temperature),
+            "method": self.method,
+            "iterations": int(self.iterations),
+            "batch_size": self.batch_size,
+            "v": {n: _plain(v) for n, v in self.v.items()},
+            "i": {n: _plain(v) for n, v in self.i.items()},
+            "transistors": {n: t.to_dict() for n, t in self.transistors.items()},
+            "alternatives": [a.to_dict() for a in self.alternatives],
+        }
+
+
+def _plain(x):
+    if isinstance(x, np.ndarray):
+        return x.tolist()
+    if isinstance(x, np.generic):
+        return x.item()
+    return x

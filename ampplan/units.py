@@ -1,0 +1,41 @@
+"""Engineering notation at the edges (CLI, reprs, widgets), through the quantiphy library.
+
+Inside ampplan every quantity is a float in SI base units; these two functions are the only
+place text turns into numbers and back.
+"""
+
+from __future__ import annotations
+
+import math
+
+from quantiphy import InvalidNumber, Quantity
+
+from .errors import InvalidValueError
+
+__all__ = ["parse_quantity", "format_quantity"]
+
+
+def parse_quantity(text, unit: str = "") -> float:
+    """Read ``"4.7k"``, ``"100u"``, ``"2.2 MΩ"`` or a plain number as a float in SI base units.
+
+    Raises InvalidValueError naming the text when it is not a number.
+    """
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        return float(text)
+    try:
+        return float(Quantity(str(text).strip(), units=unit or None))
+    except (InvalidNumber, ValueError) as exc:
+        raise InvalidValueError(f"cannot read {text!r} as a quantity{' in ' + unit if unit else ''}") from exc
+
+
+def format_quantity(value: float, unit: str = "", digits: int = 4) -> str:
+    """Format a float with an SI prefix: ``format_quantity(4700, "Ω") == "4.7 kΩ"``."""
+    if value is None:
+        return "—"
+    if isinstance(value, str):
+        return value
+    if not math.isfinite(value):
+        return f"{value} {unit}".strip()
+    if value == 0:
+        return f"0 {unit}".strip()
+    return Quantity(value, unit or None).render(prec=digits - 1, strip_zeros=True)
