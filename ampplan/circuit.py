@@ -340,6 +340,7 @@ class Layout:
         self.q_ic = self.q_ib + 1
         self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
         self.structure = self._structure()
+        self._parameter_cache: dict = {}
 
     # -- topology -----------------------------------------------------------------------------
     def _check_topology(self, circuit: Circuit) -> None:
@@ -437,7 +438,15 @@ class Layout:
         Raises UnknownNameError for a batch key that names no element or parameter and
         InvalidValueError for a bad value (naming the key and the first bad sample).
         """
-        batch = dict(batch or {})
+        if not batch:
+            # A single solve of an unchanged circuit reuses its parameters (they are never mutated).
+            cached = self._parameter_cache.get(temperature)
+            if cached is None:
+                cached = self._parameter_cache[temperature] = self._parameters(temperature, {})
+            return cached
+        return self._parameters(temperature, batch)
+
+    def _parameters(self, temperature, batch: dict) -> Parameters:
         arrays = {}
         for key, value in batch.items():
             arr = np.asarray(value, dtype=float) if not isinstance(value, np.ndarray) else value.astype(float)

@@ -67,8 +67,16 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
 
 
 # -- Ebers–Moll -----------------------------------------------------------------------------------
+def _newton_start(layout, params):
+    """Starting unknowns for Newton: the constant-drop answer with every transistor forward-active."""
+    problem = cd.RegionProblem(layout, params)
+    rows = np.arange(params.size)
+    x0, _ = problem.solve(rows, np.full((params.size, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
+    return x0
+
+
 def _solve_ebers_moll(circuit, layout, params, single):
-    x, converged, iterations, method = em.solve_newton(layout, params)
+    x, converged, iterations, method = em.solve_newton(layout, params, _newton_start(layout, params))
     if single and not converged[0]:
         raise ConvergenceError(
             f"Ebers–Moll Newton did not converge for the circuit with transistors "
@@ -90,7 +98,7 @@ def _em_guess(layout, params, rows):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
     from .ebers_moll import _take
     sub = _take(params, rows)
-    x, converged, iterations, _ = em.solve_newton(layout, sub)
+    x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub))
     regions, _ = em.classify(layout, sub, x)
     regions[~converged] = cd.ACTIVE
     return regions.astype(np.int8), int(iterations.max(initial=0))
@@ -104,6 +112,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
     near_misses: dict[int, list] = {}
     alternatives = []
     iterations = 0
+    final = None
 
     if single and n_q <= cd.ENUMERATION_LIMIT:
         method = "enumeration"
@@ -128,6 +137,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
             alternatives = _distinct_others(x, candidates, pick, layout)
             alt_regions = every
             alt_x = x
+            final = x[pick:pick + 1], ok[pick:pick + 1]
     else:
         method = "search from Ebers–Moll guess"
         rows = np.arange(s_count)
@@ -135,14 +145,33 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
         x, ok = problem.solve(rows, guess)
         good, _ = problem.consistent(rows, guess, x, ok)
         chosen[good], found[good] = guess[good], True
-        for u in np.flatnonzero(~good):
-            # The rare path: samples whose guess failed are searched one by one.
-            pick, misses, solves = _search_near(problem, u, guess[u])
-            iterations += solves
-            if pick is not None:
-                chosen[u], found[u] = pick, True
-            else:
-                near_misses[u] = misses
+        left = np.flatnonzero(~good)
+        if left.size and n_q <= cd.ENUMERATION_LIMIT:
+            # Every assignment of every sample whose guess failed, in one batched solve.
+            every = cd.all_assignments(n_q)
+            samples = np.repeat(left, len(every))
+            cands = np.tile(every, (left.size, 1))
+            x, ok = problem.solve(samples, cands)
+            good_all, score = problem.consistent(samples, cands, x, ok)
+            iterations += len(samples)
+            good_all = good_all.reshape(left.size, len(every))
+            distance = np.where(good_all, cd.hamming(every[None, :, :], guess[left][:, None, :]), n_q + 1)
+            best = np.argmin(distance, axis=1)   # first of the nearest, in enumeration order
+            hit = good_all[np.arange(left.size), best]
+            chosen[left[hit]], found[left[hit]] = every[best[hit]], True
+            for k in np.flatnonzero(~hit):
+                rows_k = slice(k * len(every), (k + 1) * len(every))
+                near_misses[left[k]] = _closest(problem, every, x[rows_k], ok[rows_k], score[rows_k],
+                                                sample=left[k])
+        else:
+            for u in left:
+                # Beyond the enumeration limit each failed guess is searched on its own (rare).
+                pick, misses, solves = _search_near(problem, u, guess[u])
+                iterations += solves
+                if pick is not None:
+                    chosen[u], found[u] = pick, True
+                else:
+                    near_misses[u] = misses
         if single and found[0]:
             # Alternatives within two region changes (one beyond a dozen transistors).
             around = cd.neighbours(chosen[0], 2 if n_q <= 12 else 1)
@@ -155,8 +184,8 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
         raise NoConsistentRegionError(_no_region_message(layout, near_misses[0]), closest=near_misses[0])
 
     rows = np.arange(s_count)
-    x, ok = problem.solve(rows, chosen)
-    checks = problem.checks(rows, chosen, x)
+    x, ok = final if final is not None else problem.solve(rows, chosen)
+    checks = (problem.check_names(chosen),) + problem.checks(rows, chosen, x)
     found &= ok
     status = np.where(found, "ok", "no-consistent-region")
     result = _build(circuit, layout, params, x, chosen, checks, status, "constant-drop", method, iterations,
@@ -166,30 +195,30 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
         for k in alternatives:
             reg = alt_regions[k:k + 1]
             xk = alt_x[k:k + 1]
-            alts.append(_build(circuit, layout, params, xk, reg, problem.checks(np.array([0]), reg, xk),
+            checks = (problem.check_names(reg),) + problem.checks(np.array([0]), reg, xk)
+            alts.append(_build(circuit, layout, params, xk, reg, checks,
                                np.array(["ok"]), "constant-drop", method, iterations, True))
         result = _replace(result, alternatives=tuple(alts))
     return result
 
 
 def _search_near(problem, u, guess):
-    """Search one sample's assignments near ``guess``. Returns (assignment or None, misses, solves)."""
-    n_q = guess.shape[0]
-    if n_q <= cd.ENUMERATION_LIMIT:
-        cands = cd.all_assignments(n_q)
-    else:
-        current = guess[None, :].copy()
-        seen = {current.tobytes()}
-        for _ in range(cd.REPAIR_ROUNDS):
-            x, ok = problem.solve(np.array([u]), current)
-            good, _ = problem.consistent(np.array([u]), current, x, ok)
-            if good[0]:
-                return current[0], [], len(seen)
-            current = problem.repair(np.array([u]), current, x)
-            if current.tobytes() in seen:
-                break
-            seen.add(current.tobytes())
-        cands = cd.neighbours(guess, 2)
+    """Search near ``guess`` for one sample of more than ENUMERATION_LIMIT transistors: repair by
+    failed checks, then every assignment within two region changes.
+
+    Returns (assignment or None, near misses, linear solves spent)."""
+    current = guess[None, :].copy()
+    seen = {current.tobytes()}
+    for _ in range(cd.REPAIR_ROUNDS):
+        x, ok = problem.solve(np.array([u]), current)
+        good, _ = problem.consistent(np.array([u]), current, x, ok)
+        if good[0]:
+            return current[0], [], len(seen)
+        current = problem.repair(np.array([u]), current, x)
+        if current.tobytes() in seen:
+            break
+        seen.add(current.tobytes())
+    cands = cd.neighbours(guess, 2)
     samples = np.full(len(cands), u, dtype=np.intp)
     x, ok = problem.solve(samples, cands)
     good, score = problem.consistent(samples, cands, x, ok)
@@ -205,7 +234,8 @@ def _closest(problem, cands, x, ok, score, sample=0, count=3):
     order = np.argsort(score, kind="stable")[:count]
     out = []
     samples = np.full(len(order), sample, dtype=np.intp)
-    chk_names, values, limits, margins, holds = problem.checks(samples, cands[order], x[order])
+    values, limits, margins, holds = problem.checks(samples, cands[order], x[order])
+    chk_names = problem.check_names(cands[order])
     for k, idx in enumerate(order):
         if not ok[idx]:
             continue
@@ -254,42 +284,45 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
     x[failed] = np.nan
     n = layout.size
     x[:, n] = 0.0
-    take = (lambda a: float(a[0])) if single else (lambda a: a)
-    v = {"gnd": take(np.zeros(x.shape[0]))}
-    for k, node in enumerate(layout.nodes):
-        v[node] = take(x[:, k])
-    currents = {}
-    for k, r in enumerate(layout.resistors):
-        currents[r.name] = take((x[:, layout.r_a[k]] - x[:, layout.r_b[k]]) * params.conductance[:, k])
-    for k, src in enumerate(layout.voltage_sources):
-        currents[src.name] = take(-x[:, layout.vs_row[k]])
-    for k, src in enumerate(layout.current_sources):
-        currents[src.name] = take(params.current[:, k])
+    # Every quantity is computed for all elements at once, shape (S, count); a single solve then
+    # turns columns into floats.
+    node_v = x[:, :layout.n_nodes]
+    r_i = (x[:, layout.r_a] - x[:, layout.r_b]) * params.conductance
+    vs_i = -x[:, layout.vs_row]
+    ib, ic = x[:, layout.q_ib], x[:, layout.q_ic]
+    vbe = x[:, layout.q_b] - x[:, layout.q_e]
+    vce = x[:, layout.q_c] - x[:, layout.q_e]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        forced = np.where(ib != 0, ic / np.where(ib != 0, ib, 1.0), np.nan)
+    power = layout.sign * (vce * ic + vbe * ib)
     names, values, limits, margins, holds = checks
+    names = np.where(failed[:, None, None], "", names)
+    values, limits, margins = (np.where(failed[:, None, None], np.nan, a) for a in (values, limits, margins))
+    holds = holds & ~failed[:, None, None]
+    region = np.where(failed[:, None], UNSOLVED, np.array(REGIONS)[np.clip(regions, 0, 3)])
+    if single:
+        cols = lambda a: a[0].tolist()  # noqa: E731
+    else:
+        cols = lambda a: list(np.moveaxis(a, 1, 0))  # noqa: E731  (S, N, ...) -> N of (S, ...)
+    v = {"gnd": 0.0 if single else np.zeros(x.shape[0])}
+    v.update(zip(layout.nodes, cols(node_v)))
+    currents = dict(zip((r.name for r in layout.resistors), cols(r_i)))
+    currents.update(zip((src.name for src in layout.voltage_sources), cols(vs_i)))
+    currents.update(zip((src.name for src in layout.current_sources), cols(params.current)))
+    per_q = zip(layout.bjts, cols(region), cols(ic), cols(ib), cols(ib + ic), cols(vbe), cols(vce), cols(forced),
+                cols(power), cols(names), cols(values), cols(limits), cols(holds), cols(margins))
     transistors = {}
-    for j, q in enumerate(layout.bjts):
-        ib, ic = x[:, layout.q_ib[j]], x[:, layout.q_ic[j]]
-        vbe = x[:, layout.q_b[j]] - x[:, layout.q_e[j]]
-        vce = x[:, layout.q_c[j]] - x[:, layout.q_e[j]]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            forced = np.where(ib != 0, ic / np.where(ib != 0, ib, 1.0), np.nan)
-        region = np.where(failed, UNSOLVED, np.array(REGIONS)[np.clip(regions[:, j], 0, 3)])
-        chk = []
-        for c in range(2):
-            nm = np.where(failed, "", names[:, j, c]).astype(str)
-            chk.append(Check(
-                name=str(nm[0]) if single else nm,
-                value=take(np.where(failed, np.nan, values[:, j, c])),
-                limit=take(np.where(failed, np.nan, limits[:, j, c])),
-                holds=bool(holds[0, j, c] and not failed[0]) if single else (holds[:, j, c] & ~failed),
-                margin=take(np.where(failed, np.nan, margins[:, j, c]))))
+    for q, reg, c_, b_, e_, be_, ce_, f_, p_, nm, va, li, ho, ma in per_q:
+        if single:
+            chk = tuple(Check(str(nm[c]), va[c], li[c], bool(ho[c]), ma[c]) for c in range(2))
+        else:
+            chk = tuple(Check(nm[:, c].astype(str), va[:, c], li[:, c], ho[:, c], ma[:, c]) for c in range(2))
         transistors[q.name] = TransistorResult(
-            name=q.name, polarity=q.device.polarity, region=str(region[0]) if single else region,
-            ic=take(ic), ib=take(ib), ie=take(ib + ic), vbe=take(vbe), vce=take(vce),
-            beta_forced=take(forced), power=take(q.device.sign * (vce * ic + vbe * ib)), checks=tuple(chk))
+            name=q.name, polarity=q.device.polarity, region=str(reg) if single else reg.astype(str),
+            ic=c_, ib=b_, ie=e_, vbe=be_, vce=ce_, beta_forced=f_, power=p_, checks=chk)
     return OperatingPoint(
         model=model, v=v, i=currents, transistors=transistors,
         status=str(status[0]) if single else status.astype(str),
-        temperature=take(params.temperature), method=method, iterations=int(iterations),
-        batch_size=None if single else params.size, circuit=circuit,
-        unknowns=x[0, :n].copy() if single else x[:, :n].copy())
+        temperature=float(params.temperature[0]) if single else params.temperature,
+        method=method, iterations=int(iterations), batch_size=None if single else params.size,
+        circuit=circuit, unknowns=x[0, :n].copy() if single else x[:, :n].copy())

@@ -120,7 +120,6 @@ class RegionProblem:
 
         Returns
         -------
-        names : ndarray of object (K, N, 2)
         values, limits, margins : ndarray (K, N, 2)
             Margins are positive where the check holds with room.
         holds : ndarray of bool (K, N, 2)
@@ -130,53 +129,43 @@ class RegionProblem:
         s = lay.sign
         v_be = s * (x[:, lay.q_b] - x[:, lay.q_e])
         v_bc = s * (x[:, lay.q_b] - x[:, lay.q_c])
-        v_ce = v_be - v_bc
         i_b = x[:, lay.q_ib]
         i_c = x[:, lay.q_ic]
         beta = self.dev["beta"][samples]
-        edge = self.edge[samples]
-        vcb = self.active_edge == "vcb-zero"
-        npn = s > 0
         zero = np.zeros_like(i_b)
-        # (NPN name, PNP name, value, limit, +1 for "value above limit" / -1 for "below", is current)
-        table = {
-            CUTOFF: (("V_BE < V_BE(on)", "V_EB < V_EB(on)", v_be, self.vbe_on[samples], -1, False),
-                     ("V_BC < V_BC(on)", "V_CB < V_CB(on)", v_bc, self.vbc_on[samples], -1, False)),
-            ACTIVE: (("I_B > 0", "I_B > 0", i_b, zero, 1, True),
-                     (("V_CB >= 0", "V_BC >= 0", -v_bc, zero, 1, False) if vcb else
-                      ("V_CE >= V_CE(sat)", "V_EC >= V_EC(sat)", v_ce, edge, 1, False))),
-            SATURATION: (("I_B > 0", "I_B > 0", i_b, zero, 1, True),
-                         ("I_C < beta*I_B", "I_C < beta*I_B", i_c, beta * i_b, -1, True)),
-            REVERSE: (("I_B > 0", "I_B > 0", i_b, zero, 1, True),
-                      ("V_CE <= -V_CE(sat)", "V_EC <= -V_EC(sat)", v_ce, -self.dev["vce_sat"][samples], -1,
-                       False)),
-        }
-        shape = regions.shape + (2,)
-        names = np.empty(shape, dtype=object)
-        values, limits, direction = np.zeros(shape), np.zeros(shape), np.zeros(shape)
-        current = np.zeros(shape, dtype=bool)
-        for code, pair in table.items():
-            here = regions == code
-            for k, (n_npn, n_pnp, value, limit, sense, is_current) in enumerate(pair):
-                names[..., k] = np.where(here, np.where(npn, n_npn, n_pnp), names[..., k])
-                values[..., k] = np.where(here, value, values[..., k])
-                limits[..., k] = np.where(here, limit, limits[..., k])
-                direction[..., k] = np.where(here, sense, direction[..., k])
-                current[..., k] |= here & is_current
+        # Quantities and limits the table below picks from, stacked on a last axis.
+        quantities = np.stack([v_be, v_bc, v_be - v_bc, -v_bc, i_b, i_c], axis=-1)
+        bounds = np.stack([self.vbe_on[samples], self.vbc_on[samples], self.edge[samples], zero, beta * i_b,
+                           -self.dev["vce_sat"][samples]], axis=-1)
+        reg = regions.astype(np.intp)
+        edge_slot = 1 if self.active_edge == "vcb-zero" else 0
+        q_idx = _QUANTITY[edge_slot][reg]
+        values = np.take_along_axis(quantities, q_idx, axis=2)
+        l_idx = _LIMIT[edge_slot][reg]
+        limits = np.take_along_axis(bounds, l_idx, axis=2)
+        direction = _DIRECTION[reg]
         margins = np.where(direction > 0, values - limits, limits - values)
         # Rounding tolerance: relative to the largest voltage and the largest current in the answer.
         n_nodes = lay.n_nodes
         with np.errstate(invalid="ignore"):
-            v_scale = np.nanmax(np.abs(x[:, :n_nodes]), axis=1, initial=1.0)
-            i_scale = np.nanmax(np.abs(x[:, n_nodes:lay.size]), axis=1, initial=0.0)
-        tol = np.where(current, (1e-9 * i_scale + 1e-18)[:, None, None], (1e-9 * v_scale)[:, None, None])
+            v_scale = np.max(np.abs(x[:, :n_nodes]), axis=1, initial=1.0)
+            i_scale = np.max(np.abs(x[:, n_nodes:lay.size]), axis=1, initial=0.0)
+        tol = np.where(_IS_CURRENT[reg], (1e-9 * i_scale + 1e-18)[:, None, None], (1e-9 * v_scale)[:, None, None])
         holds = margins >= -tol
-        return names, values, limits, margins, holds
+        return values, limits, margins, holds
+
+    def check_names(self, regions):
+        """Names of the checks of ``regions`` (K, N), as an object array (K, N, 2)."""
+        npn = self.layout.sign > 0
+        edge_slot = 1 if self.active_edge == "vcb-zero" else 0
+        table = np.where(npn[None, :, None], _NAMES_NPN[edge_slot][regions.astype(np.intp)],
+                         _NAMES_PNP[edge_slot][regions.astype(np.intp)])
+        return table
 
     def consistent(self, samples, regions, x, ok):
         """True where the solve succeeded and every check of every transistor holds; plus a
         violation score (number of failed checks, then their size) for ranking near misses."""
-        names, values, limits, margins, holds = self.checks(samples, regions, x)
+        values, limits, margins, holds = self.checks(samples, regions, x)
         good = ok & np.all(holds, axis=(1, 2))
         failed = np.sum(~holds, axis=(1, 2))
         with np.errstate(invalid="ignore"):
@@ -186,7 +175,7 @@ class RegionProblem:
 
     def repair(self, samples, regions, x):
         """Next guess: move each transistor whose check failed toward the region it points to."""
-        names, values, limits, margins, holds = self.checks(samples, regions, x)
+        values, limits, margins, holds = self.checks(samples, regions, x)
         first_fail, second_fail = ~holds[..., 0], ~holds[..., 1]
         new = regions.copy()
         new = np.where((regions == CUTOFF) & first_fail, ACTIVE, new)
@@ -198,6 +187,26 @@ class RegionProblem:
         new = np.where((regions == REVERSE) & first_fail, CUTOFF, new)
         new = np.where((regions == REVERSE) & ~first_fail & second_fail, SATURATION, new)
         return new
+
+
+# The check table: for each region (row) its two checks (columns). Quantity indices into
+# (v_be, v_bc, v_ce, v_cb, i_b, i_c), limit indices into (V_BE(on), V_BC(on), edge, 0, β·I_B,
+# -V_CE(sat)); direction +1 wants value above limit, -1 below. The first table of each pair is for
+# active_edge="vce-sat", the second for "vcb-zero".
+_QUANTITY = (np.array([[0, 1], [4, 2], [4, 5], [4, 2]]), np.array([[0, 1], [4, 3], [4, 5], [4, 2]]))
+_LIMIT = (np.array([[0, 1], [3, 2], [3, 4], [3, 5]]), np.array([[0, 1], [3, 3], [3, 4], [3, 5]]))
+_DIRECTION = np.array([[-1, -1], [1, 1], [1, -1], [1, -1]])
+_IS_CURRENT = np.array([[False, False], [True, False], [True, True], [True, False]])
+_NAMES_NPN = tuple(np.array(t, dtype=object) for t in (
+    [["V_BE < V_BE(on)", "V_BC < V_BC(on)"], ["I_B > 0", "V_CE >= V_CE(sat)"],
+     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_CE <= -V_CE(sat)"]],
+    [["V_BE < V_BE(on)", "V_BC < V_BC(on)"], ["I_B > 0", "V_CB >= 0"],
+     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_CE <= -V_CE(sat)"]]))
+_NAMES_PNP = tuple(np.array(t, dtype=object) for t in (
+    [["V_EB < V_EB(on)", "V_CB < V_CB(on)"], ["I_B > 0", "V_EC >= V_EC(sat)"],
+     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_EC <= -V_EC(sat)"]],
+    [["V_EB < V_EB(on)", "V_CB < V_CB(on)"], ["I_B > 0", "V_BC >= 0"],
+     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_EC <= -V_EC(sat)"]]))
 
 
 def all_assignments(n: int) -> np.ndarray:

@@ -35,9 +35,9 @@ MAX_ITERATIONS = 150
 LADDER_ITERATIONS = 60
 LADDER = (1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 1e-11, 1e-12, 0.0)
 SOURCE_STEPS = 20
-RELATIVE_TOLERANCE = 1e-10
-VOLTAGE_TOLERANCE = 1e-12   # volts
-CURRENT_TOLERANCE = 1e-16   # amperes
+RELATIVE_TOLERANCE = 1e-9
+VOLTAGE_TOLERANCE = 1e-9    # volts
+CURRENT_TOLERANCE = 1e-15   # amperes
 
 
 def _exp(arg):
@@ -140,25 +140,34 @@ class NewtonProblem:
         abs_tol = self.abs_tol
         n = lay.size
         s = lay.sign
+        device_rows = np.concatenate([lay.q_ib, lay.q_ic])
         converged = np.zeros(len(rows), dtype=bool)
         iterations = np.zeros(len(rows), dtype=int)
         active = np.arange(len(rows))
         vbe_old, vbc_old = v_old
         x = x.copy()
+        gathered = None
         for _ in range(max_iterations):
             if active.size == 0:
                 break
+            if gathered is None or gathered.size != active.size:
+                # Gather the still-active samples once per change of the active set; between
+                # changes only the device rows of the work arrays are rewritten.
+                gathered = active
+                work_matrix, work_rhs = base[active], rhs0[active]
+                d_act = {k: v[active] for k, v in dev.items()}
+                vt_act, nvt_act, crit_act = v_t[active], nvt[active], v_crit[active]
+            else:
+                work_matrix[:, device_rows, :] = 0.0
+                work_rhs[:, device_rows] = rhs0[active][:, device_rows]
             xa = x[active]
             vbe_raw, vbc_raw = self.junctions(xa)
-            vbe = _limit_junction(vbe_raw, vbe_old[active], nvt[active], v_crit[active])
-            vbc = _limit_junction(vbc_raw, vbc_old[active], nvt[active], v_crit[active])
+            vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_act, crit_act)
+            vbc = _limit_junction(vbc_raw, vbc_old[active], nvt_act, crit_act)
             was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
-            d_act = {k: v[active] for k, v in dev.items()}
-            i_b, i_c, d = device_currents(vbe, vbc, d_act, v_t[active])
-            matrix = base[active]
-            rhs = rhs0[active]
-            _stamp_device(matrix, rhs, lay, s, vbe, vbc, i_b, i_c, d)
-            x_new, ok = solve_batch(matrix[:, :n, :n], rhs[:, :n])
+            i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_act)
+            _stamp_device(work_matrix, work_rhs, lay, s, vbe, vbc, i_b, i_c, d)
+            x_new, ok = solve_batch(work_matrix[:, :n, :n], work_rhs[:, :n])
             step = np.abs(x_new - xa[:, :n])
             small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(x_new), np.abs(xa[:, :n])) + abs_tol,
                            axis=1)
@@ -168,7 +177,10 @@ class NewtonProblem:
             vbe_old[active], vbc_old[active] = vbe, vbc
             converged[active[done]] = True
             # A singular or non-finite iterate ends that sample's attempt; a fallback takes over.
-            active = active[~done & ok]
+            keep = ~done & ok
+            if not np.all(keep):
+                active = active[keep]
+                gathered = None
         return x, (vbe_old, vbc_old), converged, iterations
 
 
@@ -192,8 +204,17 @@ def _take(params, rows):
                       temperature=params.temperature[rows])
 
 
-def solve_newton(layout, params):
+def solve_newton(layout, params, x0=None):
     """Solve the Ebers–Moll equations for every sample.
+
+    Parameters
+    ----------
+    layout : ampplan.circuit.Layout
+    params : ampplan.circuit.Parameters
+        S samples.
+    x0 : ndarray, shape (S, size + 1), optional
+        Starting unknowns (the constant-drop all-forward-active answer is a good one); rows with
+        NaN start from zero.
 
     Returns
     -------
@@ -207,8 +228,14 @@ def solve_newton(layout, params):
     problem = NewtonProblem(layout, params)
     s_count = params.size
     n_q = layout.n_bjt
-    x0 = np.zeros((s_count, layout.size + 1))
-    v0 = (np.zeros((s_count, n_q)), np.zeros((s_count, n_q)))
+    if x0 is None:
+        x0 = np.zeros((s_count, layout.size + 1))
+    else:
+        x0 = np.where(np.all(np.isfinite(x0), axis=1, keepdims=True), x0, 0.0)
+    # Junction voltages "used last" start no higher than the constant-drop on-voltages, so a
+    # starting point with a junction driven hard forward is approached in limited steps.
+    vbe0, vbc0 = problem.junctions(x0)
+    v0 = (np.minimum(vbe0, problem.dev["vbe_on"]), np.minimum(vbc0, problem.dev["vbc_on"]))
     every = np.arange(s_count)
     x, v_old, converged, iterations = problem.newton(every, x0, v0)
     method = np.where(converged, "newton", "").astype(object)
