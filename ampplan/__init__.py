@@ -1,14 +1,16 @@
 """ampplan: plan the DC bias of multi-stage bipolar-transistor amplifiers.
 
-The core (devices, circuit, solver, stages, analyses, plan files) imports numpy and scipy only;
-notebook widgets and the canvas load when first used.
+The core (devices, circuit, solver, stages, plan, analyses, plan files) imports numpy and scipy
+only; notebook widgets and the canvas load when first used.
 """
 
 from . import errors
 from .circuit import Circuit
 from .devices import PRESETS, Transistor, preset, thermal_voltage
+from .plan import Plan
 from .solver import Check, OperatingPoint, TransistorResult
+from .stages import CommonBase, CommonCollector, CommonEmitter, CustomStage
 
 __all__ = ["errors", "Circuit", "Transistor", "thermal_voltage", "preset", "PRESETS", "OperatingPoint",
-           "TransistorResult", "Check"]
+           "TransistorResult", "Check", "Plan", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage"]
 __version__ = "0.1.0"

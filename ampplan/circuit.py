@@ -171,6 +171,12 @@ class Circuit:
         self._add(Bjt(name, _check_node(name, "collector", collector), _check_node(name, "base", base),
                       _check_node(name, "emitter", emitter), device))
 
+    def add(self, element: Element) -> None:
+        """Add an element object (as made by the methods above, or taken from another circuit)."""
+        if not isinstance(element, (Resistor, VoltageSource, CurrentSource, Capacitor, Bjt)):
+            raise InvalidValueError(f"cannot add a {type(element).__name__} to a circuit")
+        self._add(element)
+
     def remove(self, name: str) -> Element:
         """Remove and return the element ``name``."""
         element = self.element(name)

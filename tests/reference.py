@@ -704,6 +704,37 @@ def build(topology: str, draw) -> list:
     raise ValueError(topology)  # pragma: no cover
 
 
+def build_chain(draw, stages: int = 3) -> list:
+    """``stages`` complementary stages in cascade (2 transistors each: NPN then PNP), direct coupling
+    from each stage's output through a series resistor into the next stage's divider.
+
+    Too many transistors for :func:`constant_drop_enumerate`; used where ampplan's region search
+    (not its full enumeration) is exercised.
+    """
+    vcc = draw("VCC", 6.0, 30.0, True)
+    out = [V("VCC", "vcc", GROUND, vcc)]
+    previous = None
+    for k in range(1, stages + 1):
+        def r(name, lo=220.0, hi=1e6):
+            return draw(f"{name}_{k}", lo, hi, True)
+
+        def dev(name, polarity):
+            return dict(polarity=polarity, beta=draw(f"{name}.beta", 30.0, 400.0, True),
+                        saturation_current=draw(f"{name}.saturation_current", 1e-16, 1e-13, True),
+                        early_voltage=draw(f"{name}.early_voltage", 30.0, 300.0, True))
+
+        b, c1, e1, c2, e2 = (f"{x}{k}" for x in ("b", "c", "e", "cp", "ep"))
+        out += [R(f"R1_{k}", "vcc", b, r("R1")), R(f"R2_{k}", b, GROUND, r("R2")),
+                R("RC" if k == 1 else f"RC_{k}", "vcc", c1, r("RC")), R(f"RE_{k}", e1, GROUND, r("RE", 47.0, 1e5)),
+                Q(f"Q{2 * k - 1}", c1, b, e1, **dev(f"Q{2 * k - 1}", "npn")),
+                Q(f"Q{2 * k}", c2, c1, e2, **dev(f"Q{2 * k}", "pnp")),
+                R(f"RE2_{k}", "vcc", e2, r("RE2", 47.0, 1e5)), R(f"RC2_{k}", c2, GROUND, r("RC2"))]
+        if previous is not None:
+            out.append(R(f"RS_{k}", previous, b, r("RS")))
+        previous = c2
+    return out
+
+
 def numpy_draw(rng):
     """A ``draw`` for :func:`build` from a seeded numpy Generator."""
     def draw(_name, lo, hi, log):

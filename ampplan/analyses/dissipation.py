@@ -1,0 +1,72 @@
+"""Power in every part against its rating, and the cautions a designer should read.
+
+Ratings and thresholds (each a plain parameter, common practice, no source):
+
+* transistor power rating ``max_power`` is given at 25 °C and derated linearly to zero at a
+  150 °C junction limit above 25 °C;
+* every resistor is compared with the plan's ``resistor_power_rating`` (0.25 W by default);
+* a supply span above 60 V DC leaves the safety extra-low-voltage range (the limit IEC 61140
+  usage gives for DC); the caution defers to local codes and licensed practice.
+"""
+
+from __future__ import annotations
+
+from ..units import format_quantity as fq
+
+__all__ = ["derated_power", "transistor_cautions", "resistor_cautions", "supply_cautions",
+           "JUNCTION_LIMIT", "SAFETY_EXTRA_LOW_VOLTAGE_DC"]
+
+#: Junction temperature (°C) at which the derated power reaches zero.
+JUNCTION_LIMIT = 150.0
+#: Volts DC: above this a supply leaves the safety extra-low-voltage range.
+SAFETY_EXTRA_LOW_VOLTAGE_DC = 60.0
+
+
+def derated_power(max_power: float, temperature: float) -> float:
+    """Transistor power rating at ``temperature`` (°C), linear derating above 25 °C, watts."""
+    if temperature <= 25.0:
+        return max_power
+    return max(0.0, max_power * (JUNCTION_LIMIT - temperature) / (JUNCTION_LIMIT - 25.0))
+
+
+def transistor_cautions(sid: str, t, device, edge: float, headroom: float, temperature: float) -> list[str]:
+    """Plain-sentence cautions for one stage transistor (region, headroom, ratings)."""
+    out = []
+    frame_vce = device.sign * t.vce
+    if t.region != "forward-active":
+        detail = ""
+        if t.region == "saturation":
+            detail = f" (forced beta {t.beta_forced:.3g} is below beta {device.beta:.3g})"
+        elif t.region == "cutoff":
+            detail = " (no collector current)"
+        out.append(f"{sid}: the transistor is in {t.region}, not forward-active{detail}.")
+    elif frame_vce - edge < headroom:
+        out.append(f"{sid}: V_CE is only {fq(frame_vce - edge, 'V')} above the forward-active edge, "
+                   f"less than the {fq(headroom, 'V')} headroom asked for.")
+    if device.max_power is not None:
+        rating = derated_power(device.max_power, temperature)
+        if t.power > rating:
+            derate = f" (derated to {fq(rating, 'W')} at {temperature:g} °C)" if rating != device.max_power else ""
+            out.append(f"{sid}: the transistor dissipates {fq(t.power, 'W')}, above its "
+                       f"{fq(device.max_power, 'W')} rating{derate}; it may overheat.")
+    if device.max_collector_current is not None and abs(t.ic) > device.max_collector_current:
+        out.append(f"{sid}: I_C {fq(abs(t.ic), 'A')} exceeds the {fq(device.max_collector_current, 'A')} rating.")
+    if device.max_vce is not None and abs(t.vce) > device.max_vce:
+        out.append(f"{sid}: |V_CE| {fq(abs(t.vce), 'V')} exceeds the {fq(device.max_vce, 'V')} rating.")
+    return out
+
+
+def resistor_cautions(powers: dict, rating: float) -> list[str]:
+    """Cautions for resistors (by element name) dissipating more than ``rating`` watts."""
+    return [f"{name}: dissipates {fq(p, 'W')}, above the {fq(rating, 'W')} resistor rating."
+            for name, p in powers.items() if p > rating]
+
+
+def supply_cautions(supply: float, negative_supply: float) -> list[str]:
+    """The safety caution for supplies beyond the safety extra-low-voltage range."""
+    span = supply - negative_supply
+    if span > SAFETY_EXTRA_LOW_VOLTAGE_DC or max(abs(supply), abs(negative_supply)) > SAFETY_EXTRA_LOW_VOLTAGE_DC:
+        return [f"The supply spans {fq(span, 'V')} DC, beyond the 60 V DC safety extra-low-voltage range "
+                "(IEC 61140 usage): touchable parts can be hazardous. Follow local electrical codes and "
+                "have the build checked under licensed practice."]
+    return []

@@ -1,0 +1,128 @@
+"""Quasi-static large-signal sweep of a source: where does the first transistor leave forward-active?
+
+The coupling and bypass capacitors are held at their Q-point voltages (each becomes a voltage
+source of that value), the source EMF is stepped away from its Q-point value in both directions,
+and every step is one sample of one batched solve. A coarse logarithmic grid brackets the first
+step at which any transistor is out of forward-active; a few rounds of finer grids narrow the
+bracket to a part in 10^9. For the constant-drop model the chain is piecewise linear, so the
+answer is exact to that resolution.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..circuit import Capacitor, Circuit, VoltageSource, _UnionFind
+from .results import Clipping
+
+__all__ = ["held_capacitor_circuit", "clipping_sweep"]
+
+#: Coarse grid: this many steps per direction, logarithmic from 1 µV·span to 10·span.
+COARSE_STEPS = 60
+#: Refinement: rounds of this many steps each.
+REFINE_STEPS = 16
+REFINE_ROUNDS = 8
+
+
+def held_capacitor_circuit(op) -> Circuit:
+    """A copy of ``op.circuit`` with every capacitor replaced by a source holding its Q-point voltage.
+
+    A capacitor whose nodes voltage sources already tie together is left out (it would close a
+    loop of sources and holds nothing new).
+    """
+    circuit = op.circuit
+    held = Circuit()
+    ties = _UnionFind()
+    for e in circuit.elements:
+        if isinstance(e, VoltageSource):
+            ties.union(e.plus, e.minus)
+    for e in circuit.elements:
+        if isinstance(e, Capacitor):
+            if ties.union(e.a, e.b):
+                held.voltage_source(e.name, e.a, e.b, op.v[e.a] - op.v[e.b])
+        else:
+            held.add(e)
+    return held
+
+
+def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_edge: str = "vce-sat",
+                   span: float | None = None) -> Clipping:
+    """Smallest source excursions, each sign, at which a transistor leaves forward-active.
+
+    Parameters
+    ----------
+    op : OperatingPoint
+        The Q-point (single solve).
+    source : str
+        The voltage source to step (its Q-point value is the sweep's zero).
+    transistor_stage : dict of str -> str
+        Stage id of each transistor, for reporting.
+    model, active_edge : str
+        As for :func:`ampplan.solver.solve`.
+    span : float, optional
+        Volts setting the sweep range (default: the largest supply magnitude); the sweep reaches
+        ten times it.
+
+    Returns
+    -------
+    Clipping
+    """
+    circuit = held_capacitor_circuit(op)
+    base = circuit.element(source).voltage
+    names = list(op.transistors)
+    stage_of = [transistor_stage.get(n) for n in names]
+    out_now = [k for k, n in enumerate(names) if op.transistors[n].region != "forward-active"]
+    if out_now:
+        k = out_now[0]
+        region = op.transistors[names[k]].region
+        return Clipping(0.0, 0.0, stage_of[k], stage_of[k], region, region)
+    if span is None:
+        span = max((abs(e.voltage) for e in circuit.of_kind(VoltageSource) if e.name != source), default=1.0)
+        span = max(span, 1.0)
+
+    def leaving(steps):
+        """For each step (signed volts): index of the first transistor out of forward-active, or -1."""
+        res = circuit.solve(model=model, temperature=op.temperature, active_edge=active_edge,
+                            batch={source: base + steps})
+        regions = np.stack([res.transistors[n].region for n in names], axis=1)
+        out = (regions != "forward-active") | (res.status != "ok")[:, None]
+        first = np.where(out.any(axis=1), np.argmax(out, axis=1), -1)
+        return first, regions
+
+    coarse = np.geomspace(1e-6 * span, 10.0 * span, COARSE_STEPS)
+    # Both directions in one batch: positive steps first, then negative.
+    first, regions = leaving(np.concatenate([coarse, -coarse]))
+    results = []
+    for sign, part in ((1.0, slice(0, COARSE_STEPS)), (-1.0, slice(COARSE_STEPS, 2 * COARSE_STEPS))):
+        hit = np.flatnonzero(first[part] >= 0)
+        if hit.size == 0:
+            results.append((np.inf, None, None))
+            continue
+        h = hit[0]
+        results.append([0.0 if h == 0 else coarse[h - 1], coarse[h]])
+    # Refine both brackets together.
+    open_ = [k for k, r in enumerate(results) if isinstance(r, list)]
+    for _ in range(REFINE_ROUNDS):
+        if not open_:
+            break
+        grids = [np.linspace(results[k][0], results[k][1], REFINE_STEPS + 1)[1:] for k in open_]
+        signs = [1.0 if k == 0 else -1.0 for k in open_]
+        steps = np.concatenate([s * g for s, g in zip(signs, grids)])
+        first, _ = leaving(steps)
+        for j, k in enumerate(open_):
+            part = first[j * REFINE_STEPS:(j + 1) * REFINE_STEPS]
+            h = int(np.flatnonzero(part >= 0)[0]) if np.any(part >= 0) else REFINE_STEPS - 1
+            low = results[k][0] if h == 0 else grids[j][h - 1]
+            results[k] = [low, grids[j][h]]
+    # Report the first point found outside, and who left there.
+    final = []
+    for k, r in enumerate(results):
+        if not isinstance(r, list):
+            final.append(r)
+            continue
+        step = (1.0 if k == 0 else -1.0) * r[1]
+        first, regions = leaving(np.array([step]))
+        idx = int(first[0]) if first[0] >= 0 else 0
+        final.append((0.5 * (r[0] + r[1]), stage_of[idx], str(regions[0, idx])))
+    (pos, pos_stage, pos_region), (neg, neg_stage, neg_region) = final
+    return Clipping(float(pos), float(neg), pos_stage, neg_stage, pos_region, neg_region)

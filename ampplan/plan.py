@@ -1,0 +1,335 @@
+"""A plan: a signal source, a chain of stages, and a load, compiled to one circuit.
+
+The plan describes; :meth:`Plan.solve` compiles it, hands the circuit to the solver once, and runs
+the analyses of :mod:`ampplan.analyses` on that one operating point.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+from dataclasses import dataclass, field
+from typing import Literal, get_args
+
+from .circuit import GROUND, Circuit
+from .devices import FIELDS as DEVICE_FIELDS
+from .errors import InvalidValueError, UnknownModelError, UnknownNameError
+from .stages import CustomStage, Rails, Stage, StageNodes
+
+__all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PLAN_PARAMETERS"]
+
+Coupling = Literal["capacitor", "direct"]
+COUPLINGS: tuple[str, ...] = get_args(Coupling)
+
+#: Names of the circuit elements a plan adds around its stages.
+SUPPLY, NEGATIVE_SUPPLY, SOURCE, SOURCE_RESISTOR, LOAD_RESISTOR, LOAD_CAPACITOR = (
+    "supply", "negative_supply", "source", "source_resistance", "load_resistance", "load_coupling")
+#: Nodes of the plan's own: source EMF, source output, load.
+EMF_NODE, SOURCE_NODE, LOAD_NODE = "emf", "source_out", "load"
+
+# Plan-level numbers: (name, unit, lower bound exclusive or None, may be None, help).
+PLAN_PARAMETERS = {
+    "supply": ("V", None, False, "positive supply rail, volts"),
+    "negative_supply": ("V", None, False, "lower rail (0 for ground, negative for a split supply), volts"),
+    "source_resistance": ("Ω", None, False, "signal source resistance, ohms (0 for an ideal source)"),
+    "load_resistance": ("Ω", 0.0, True, "load resistance, ohms (None: no load)"),
+    "temperature": ("°C", -273.15, False, "ambient and junction temperature, degrees Celsius"),
+    "resistor_power_rating": ("W", 0.0, False, "power rating of every resistor, watts"),
+    "min_headroom": ("V", None, False, "caution when V_CE is closer than this to V_CE(sat), volts"),
+    "coupling_capacitance": ("F", 0.0, True, "value of every coupling capacitor, farads (None: not chosen)"),
+    "bypass_capacitance": ("F", 0.0, True, "default bypass capacitor value, farads (None: not chosen)"),
+}
+
+
+@dataclass
+class StageEntry:
+    """One stage in a plan with how it couples to what comes before it."""
+    stage: Stage
+    coupling: str = "capacitor"
+
+
+@dataclass(frozen=True)
+class CompiledPlan:
+    """The circuit a plan compiles to and where each stage landed in it.
+
+    Attributes
+    ----------
+    circuit : Circuit
+    stages : tuple of StageNodes
+        Input node, output node, transistor and element names per stage, in order.
+    source : str
+        Name of the signal source's voltage source (0 V DC; its EMF is what gains refer to).
+    load_node : str
+        Node across the load (the last stage's output when there is no load).
+    owner : dict of str -> float
+        Position of each element along the chain: 0 for the source side, k for stage k, k - 0.5
+        for the coupling capacitor into stage k, n + 0.5 and n + 1 for the load coupling and load.
+        Rails have no owner.
+    """
+    circuit: Circuit
+    stages: tuple
+    source: str
+    load_node: str
+    owner: dict
+
+
+class Plan:
+    """A chain of amplifier stages between a signal source and a load.
+
+    Parameters
+    ----------
+    supply : float
+        Positive rail, volts.
+    negative_supply : float
+        Lower rail, volts: 0 for ground, negative for a split supply.
+    source_resistance : float
+        Signal-source resistance, ohms (0: ideal).
+    load_resistance : float or None
+        Load, ohms, returned to ground; None for no load.
+    temperature : float
+        Degrees Celsius.
+    resistor_power_rating : float
+        Rating every resistor's dissipation is compared with, watts (0.25 W: common practice).
+    min_headroom : float
+        A caution fires when a transistor's V_CE is closer than this to V_CE(sat), volts
+        (1 V: common practice, no source).
+    """
+
+    def __init__(self, supply: float = 12.0, negative_supply: float = 0.0, source_resistance: float = 0.0,
+                 load_resistance: float | None = None, temperature: float = 25.0, *,
+                 load_coupling: str = "capacitor", resistor_power_rating: float = 0.25,
+                 min_headroom: float = 1.0, coupling_capacitance: float | None = None,
+                 bypass_capacitance: float | None = None):
+        self._entries: list[StageEntry] = []
+        for name, value in (("supply", supply), ("negative_supply", negative_supply),
+                            ("source_resistance", source_resistance), ("load_resistance", load_resistance),
+                            ("temperature", temperature), ("resistor_power_rating", resistor_power_rating),
+                            ("min_headroom", min_headroom), ("coupling_capacitance", coupling_capacitance),
+                            ("bypass_capacitance", bypass_capacitance)):
+            self._set_plan_value(name, value)
+        self.load_coupling = load_coupling
+
+    # -- plan-level values --------------------------------------------------------------------
+    def _set_plan_value(self, name, value):
+        unit, lower, optional, help_ = PLAN_PARAMETERS[name]
+        if value is None:
+            if not optional:
+                raise InvalidValueError(f"Plan.{name}: is required ({help_})")
+            object.__setattr__(self, "_" + name, None)
+            return
+        if isinstance(value, bool):
+            raise InvalidValueError(f"Plan.{name}: must be a number, got {value!r}")
+        try:
+            number = float(value)
+        except (TypeError, ValueError):
+            raise InvalidValueError(f"Plan.{name}: must be a number, got {value!r}") from None
+        if not math.isfinite(number):
+            raise InvalidValueError(f"Plan.{name}: must be finite, got {value!r}")
+        if name == "source_resistance" and number < 0:
+            raise InvalidValueError(f"Plan.source_resistance: must be >= 0 Ω, got {value!r}")
+        if name == "min_headroom" and number < 0:
+            raise InvalidValueError(f"Plan.min_headroom: must be >= 0 V, got {value!r}")
+        if name == "negative_supply" and number > 0:
+            raise InvalidValueError(f"Plan.negative_supply: must be <= 0 V (the lower rail), got {value!r}")
+        if name == "supply" and number <= 0:
+            raise InvalidValueError(f"Plan.supply: must be > 0 V, got {value!r}")
+        if lower is not None and number <= lower:
+            raise InvalidValueError(f"Plan.{name}: must be > {lower:g} {unit}, got {value!r}")
+        object.__setattr__(self, "_" + name, number)
+
+    supply = property(lambda self: self._supply, lambda self, v: self._set_plan_value("supply", v))
+    negative_supply = property(lambda self: self._negative_supply,
+                               lambda self, v: self._set_plan_value("negative_supply", v))
+    source_resistance = property(lambda self: self._source_resistance,
+                                 lambda self, v: self._set_plan_value("source_resistance", v))
+    load_resistance = property(lambda self: self._load_resistance,
+                               lambda self, v: self._set_plan_value("load_resistance", v))
+    temperature = property(lambda self: self._temperature, lambda self, v: self._set_plan_value("temperature", v))
+    resistor_power_rating = property(lambda self: self._resistor_power_rating,
+                                     lambda self, v: self._set_plan_value("resistor_power_rating", v))
+    min_headroom = property(lambda self: self._min_headroom, lambda self, v: self._set_plan_value("min_headroom", v))
+    coupling_capacitance = property(lambda self: self._coupling_capacitance,
+                                    lambda self, v: self._set_plan_value("coupling_capacitance", v))
+    bypass_capacitance = property(lambda self: self._bypass_capacitance,
+                                  lambda self, v: self._set_plan_value("bypass_capacitance", v))
+
+    @property
+    def load_coupling(self) -> str:
+        """How the load meets the last stage: ``"capacitor"`` or ``"direct"``."""
+        return self._load_coupling
+
+    @load_coupling.setter
+    def load_coupling(self, value: str):
+        if value not in COUPLINGS:
+            raise UnknownModelError(f"Plan.load_coupling must be one of {', '.join(COUPLINGS)}, got {value!r}")
+        self._load_coupling = value
+
+    # -- stages -------------------------------------------------------------------------------
+    def add(self, stage: Stage, coupling: str = "capacitor") -> str:
+        """Append a stage; returns its id (``"s1"``, ``"s2"`` ...).
+
+        ``coupling="direct"`` takes the stage's input straight from the previous stage's output
+        (or the source), so the stage may omit its own base bias.
+        """
+        if coupling not in COUPLINGS:
+            raise UnknownModelError(f"coupling must be one of {', '.join(COUPLINGS)}, got {coupling!r}")
+        if not isinstance(stage, Stage):
+            raise InvalidValueError(f"plan.add expects a stage template, got {type(stage).__name__}")
+        sid = f"s{len(self._entries) + 1}"
+        if coupling == "capacitor" and not stage.has_base_bias():
+            raise InvalidValueError(f"{sid}: a capacitor-coupled {type(stage).__name__} needs its own base bias "
+                                    "(rb1 and/or rb2, or rf); give one or use coupling='direct'")
+        self._entries.append(StageEntry(stage, coupling))
+        return sid
+
+    def remove(self, sid: str) -> Stage:
+        """Remove stage ``sid``; later stages are renumbered."""
+        k = self._index(sid)
+        return self._entries.pop(k).stage
+
+    @property
+    def stages(self) -> tuple:
+        """The stages in order."""
+        return tuple(e.stage for e in self._entries)
+
+    @property
+    def couplings(self) -> tuple:
+        """Each stage's coupling (``"capacitor"`` or ``"direct"``), in order."""
+        return tuple(e.coupling for e in self._entries)
+
+    @property
+    def stage_ids(self) -> tuple:
+        return tuple(f"s{k + 1}" for k in range(len(self._entries)))
+
+    def stage(self, sid: str) -> Stage:
+        return self._entries[self._index(sid)].stage
+
+    def _index(self, sid: str) -> int:
+        ids = self.stage_ids
+        if sid not in ids:
+            raise UnknownNameError(f"the plan has no stage {sid!r}; its stages are {', '.join(ids) or 'none'}")
+        return ids.index(sid)
+
+    # -- dotted addresses ---------------------------------------------------------------------
+    def get(self, address: str):
+        """Value at a dotted address: ``"supply"``, ``"s1.rc"``, ``"s2.device.beta"``, ``"s1.coupling"``."""
+        head, _, rest = address.partition(".")
+        if not rest:
+            if head in PLAN_PARAMETERS or head == "load_coupling":
+                return getattr(self, head)
+            raise UnknownNameError(f"no plan parameter {address!r}")
+        entry = self._entries[self._index(head)]
+        if rest == "coupling":
+            return entry.coupling
+        if rest.startswith("device."):
+            pname = rest[len("device."):]
+            if pname not in DEVICE_FIELDS:
+                raise UnknownNameError(f"{address}: transistors have no parameter {pname!r}")
+            return getattr(entry.stage.device, pname)
+        values = entry.stage.parameters()
+        if rest not in values:
+            raise UnknownNameError(f"{address}: {type(entry.stage).__name__} has no parameter {rest!r}; "
+                                   f"it has {', '.join(values)}")
+        return values[rest]
+
+    def set(self, address: str, value) -> None:
+        """Change the value at a dotted address (see :meth:`get`); validated like the constructor."""
+        head, _, rest = address.partition(".")
+        if not rest:
+            if head in PLAN_PARAMETERS or head == "load_coupling":
+                setattr(self, head, value)
+                return
+            raise UnknownNameError(f"no plan parameter {address!r}")
+        k = self._index(head)
+        entry = self._entries[k]
+        if rest == "coupling":
+            if value not in COUPLINGS:
+                raise UnknownModelError(f"{address} must be one of {', '.join(COUPLINGS)}, got {value!r}")
+            entry.coupling = value
+            return
+        if rest.startswith("device."):
+            pname = rest[len("device."):]
+            device = entry.stage.device.replace(**{pname: value})
+            entry.stage = entry.stage.replace(device=device)
+            return
+        entry.stage = entry.stage.replace(**{rest: value})
+
+    def copy(self) -> "Plan":
+        """An independent copy (stages are immutable)."""
+        return copy.deepcopy(self)
+
+    # -- compile and solve --------------------------------------------------------------------
+    def compile(self) -> CompiledPlan:
+        """Build the one circuit of source, stages and load."""
+        if not self._entries:
+            raise InvalidValueError("the plan has no stages; add one with plan.add(...)")
+        c = Circuit()
+        owner: dict[str, float] = {}
+        c.voltage_source(SUPPLY, "vcc", GROUND, self.supply)
+        lower = GROUND
+        if self.negative_supply != 0:
+            lower = "vee"
+            c.voltage_source(NEGATIVE_SUPPLY, lower, GROUND, self.negative_supply)
+        rails = Rails(supply="vcc", lower=lower)
+        c.voltage_source(SOURCE, EMF_NODE, GROUND, 0.0)
+        owner[SOURCE] = 0.0
+        previous = EMF_NODE
+        if self.source_resistance > 0:
+            c.resistor(SOURCE_RESISTOR, EMF_NODE, SOURCE_NODE, self.source_resistance)
+            owner[SOURCE_RESISTOR] = 0.0
+            previous = SOURCE_NODE
+        nodes = []
+        for k, entry in enumerate(self._entries, start=1):
+            sid = f"s{k}"
+            if entry.coupling == "capacitor":
+                input_node = f"{sid}_in"
+                c.capacitor(f"{sid}_coupling", previous, input_node, self.coupling_capacitance)
+                owner[f"{sid}_coupling"] = k - 0.5
+            else:
+                input_node = previous
+            stage = entry.stage
+            if getattr(stage, "c_bypass", "absent") is None and self.bypass_capacitance is not None:
+                stage = stage.replace(c_bypass=self.bypass_capacitance)
+            built: StageNodes = stage.build(c, sid, input_node, rails)
+            for name in built.elements:
+                owner[name] = float(k)
+            nodes.append(built)
+            previous = built.output
+        n = len(self._entries)
+        load_node = previous
+        if self.load_resistance is not None:
+            if self.load_coupling == "capacitor":
+                c.capacitor(LOAD_CAPACITOR, previous, LOAD_NODE, self.coupling_capacitance)
+                owner[LOAD_CAPACITOR] = n + 0.5
+                load_node = LOAD_NODE
+            c.resistor(LOAD_RESISTOR, load_node, GROUND, self.load_resistance)
+            owner[LOAD_RESISTOR] = n + 1.0
+        return CompiledPlan(circuit=c, stages=tuple(nodes), source=SOURCE, load_node=load_node, owner=owner)
+
+    def solve(self, model: str = "constant-drop", active_edge: str = "vce-sat"):
+        """Solve the plan: bias, midband small-signal, load lines, swing, dissipation, cautions.
+
+        Returns
+        -------
+        ampplan.analyses.PlanResult
+        """
+        from .analyses.chain import analyse_plan
+        return analyse_plan(self, model=model, active_edge=active_edge)
+
+    # -- files --------------------------------------------------------------------------------
+    def save(self, path) -> None:
+        """Write the plan as a JSON plan file, atomically (see :mod:`ampplan.record`)."""
+        from .record import save_plan
+        save_plan(self, path)
+
+    @classmethod
+    def load(cls, path) -> "Plan":
+        """Read a JSON plan file (see :mod:`ampplan.record`)."""
+        from .record import load_plan
+        return load_plan(path)
+
+    def __repr__(self) -> str:
+        body = ", ".join(f"{sid}: {type(e.stage).__name__} ({e.coupling})"
+                         for sid, e in zip(self.stage_ids, self._entries))
+        return (f"Plan(supply={self.supply:g} V, negative_supply={self.negative_supply:g} V, "
+                f"{len(self._entries)} stage(s): {body})")

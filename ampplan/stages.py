@@ -1,0 +1,392 @@
+"""Stage templates: small, declared parameter sets that compile to circuit elements.
+
+Each template declares its parameters once, as :class:`Parameter` rows (name, unit, default, bounds,
+scale, help). The dataclass fields, validation, docstring, the plan-file schema and (later) the
+widget controls all come from that one declaration.
+
+Rails seen by a stage: the *supply* (node ``vcc``), the *lower rail* (``vee`` when the plan has a
+negative supply, else ``gnd``) and ground. An NPN stage hangs from the supply with its emitter
+toward the lower rail; a PNP stage is mirrored: its emitter resistor goes to the supply and its
+collector resistor to the lower rail. The base network is the same for both: ``rb1`` from the
+supply to the base, ``rb2`` from the base to the lower rail (either may be None).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+from typing import ClassVar, Literal, get_args
+
+from .circuit import GROUND, Bjt, Capacitor, Circuit, CurrentSource, Resistor, VoltageSource
+from .devices import Transistor
+from .errors import InvalidValueError, UnknownNameError
+
+__all__ = ["Parameter", "Stage", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage",
+           "StageNodes", "Rails", "TEMPLATES", "SUPPLY_NODE", "LOWER_NODE"]
+
+Scale = Literal["log", "linear"]
+SCALES = get_args(Scale)
+
+#: Node names a CustomStage uses for the rails; the plan maps them to its own rails.
+SUPPLY_NODE = "supply"
+LOWER_NODE = "lower"
+
+
+@dataclass(frozen=True)
+class Parameter:
+    """One declared parameter of a stage template.
+
+    Attributes
+    ----------
+    name : str
+        Field name, e.g. ``"rc"``.
+    unit : str
+        SI unit symbol (``"Ω"``, ``"F"``).
+    default : float or None
+    minimum : float
+        Exclusive lower bound (values must be greater).
+    maximum : float
+        Inclusive upper bound.
+    scale : {"log", "linear"}
+        How a control should move it.
+    optional : bool
+        None is allowed and means "not fitted".
+    help : str
+        One line for a tooltip and the docstring.
+    """
+    name: str
+    unit: str
+    default: float | None
+    help: str
+    minimum: float = 0.0
+    maximum: float = math.inf
+    scale: Scale = "log"
+    optional: bool = True
+
+    def check(self, value, where: str):
+        """Return ``value`` as float (or None), raising InvalidValueError naming ``where``."""
+        if value is None:
+            if self.optional:
+                return None
+            raise InvalidValueError(f"{where}: is required ({self.help})")
+        if isinstance(value, bool):
+            raise InvalidValueError(f"{where}: must be a number, got {value!r}")
+        try:
+            number = float(value)
+        except (TypeError, ValueError):
+            raise InvalidValueError(f"{where}: must be a number, got {value!r}") from None
+        if not math.isfinite(number) or number <= self.minimum or number > self.maximum:
+            bound = f"> {self.minimum:g}" + (f" and <= {self.maximum:g}" if math.isfinite(self.maximum) else "")
+            raise InvalidValueError(f"{where}: must be {bound} {self.unit}, got {value!r}".replace("  ", " "))
+        return number
+
+
+@dataclass(frozen=True)
+class Rails:
+    """Node names of the plan's rails."""
+    supply: str = "vcc"
+    lower: str = GROUND
+
+
+@dataclass(frozen=True)
+class StageNodes:
+    """What a compiled stage exposes: its input and output nodes and its transistor's name."""
+    input: str
+    output: str
+    transistor: str
+    elements: tuple[str, ...]
+
+
+def _r(p, help_, default=None, optional=True):
+    return Parameter(p, "Ω", default, help_, optional=optional)
+
+
+def _c(p, help_):
+    return Parameter(p, "F", None, help_)
+
+
+class Stage:
+    """Base of the stage templates: declared parameters plus a transistor ``device``.
+
+    Subclasses are frozen dataclasses built by :func:`_template`; they implement :meth:`build`.
+    """
+
+    kind: ClassVar[str] = ""
+    PARAMETERS: ClassVar[tuple[Parameter, ...]] = ()
+
+    def __post_init__(self):
+        for p in self.PARAMETERS:
+            object.__setattr__(self, p.name, p.check(getattr(self, p.name), f"{type(self).__name__}.{p.name}"))
+        if not isinstance(self.device, Transistor):
+            raise InvalidValueError(f"{type(self).__name__}.device must be an ampplan.Transistor, "
+                                    f"got {type(self.device).__name__}")
+        self._check()
+
+    def _check(self):
+        """Template-specific consistency checks (override)."""
+
+    def parameters(self) -> dict:
+        """Declared parameter values by name (SI units; None where not fitted)."""
+        return {p.name: getattr(self, p.name) for p in self.PARAMETERS}
+
+    def replace(self, **changes) -> "Stage":
+        """A copy with some parameters (or ``device``) changed."""
+        allowed = {p.name for p in self.PARAMETERS} | {"device"}
+        for name in changes:
+            if name not in allowed:
+                raise UnknownNameError(f"{type(self).__name__} has no parameter {name!r}; "
+                                       f"it has {', '.join(sorted(allowed))}")
+        return dataclasses.replace(self, **changes)
+
+    def has_base_bias(self) -> bool:
+        """True when the stage biases its own input (a divider or base resistor)."""
+        return True
+
+    def build(self, circuit: Circuit, sid: str, input_node: str, rails: Rails) -> StageNodes:
+        """Add this stage's elements to ``circuit`` with names prefixed ``sid`` (e.g. ``s1_rc``)."""
+        raise NotImplementedError
+
+    # Helpers shared by the templates.
+    def _low_high(self, rails: Rails):
+        """(rail for the emitter side, rail for the collector side)."""
+        return (rails.lower, rails.supply) if self.device.polarity == "npn" else (rails.supply, rails.lower)
+
+    def _base_network(self, circuit, sid, base, rails, added):
+        if self.rb1 is not None:
+            circuit.resistor(f"{sid}_rb1", rails.supply, base, self.rb1)
+            added.append(f"{sid}_rb1")
+        if self.rb2 is not None:
+            circuit.resistor(f"{sid}_rb2", base, rails.lower, self.rb2)
+            added.append(f"{sid}_rb2")
+
+    def _emitter_network(self, circuit, sid, emitter, rail, added, re, re_bypassed, c_bypass):
+        """Unbypassed ``re`` then bypassed ``re_bypassed`` from the emitter to ``rail``."""
+        node = emitter
+        if re is not None:
+            nxt = f"{sid}_ex" if re_bypassed is not None else rail
+            circuit.resistor(f"{sid}_re", node, nxt, re)
+            added.append(f"{sid}_re")
+            node = nxt
+        if re_bypassed is not None:
+            circuit.resistor(f"{sid}_re_bypassed", node, rail, re_bypassed)
+            circuit.capacitor(f"{sid}_c_bypass", node, GROUND, c_bypass)
+            added += [f"{sid}_re_bypassed", f"{sid}_c_bypass"]
+        elif re is None and emitter != rail:
+            raise InvalidValueError(f"{sid}: the emitter needs re or re_bypassed (or both)")
+
+
+def _template(name: str, kind: str, parameters: tuple[Parameter, ...], summary: str, base=Stage):
+    """Make a frozen dataclass stage template from its parameter declarations."""
+    fields = [(p.name, float | None, field(default=p.default)) for p in parameters]
+    fields.append(("device", Transistor, field(default_factory=Transistor)))
+    cls = dataclasses.make_dataclass(name, fields, bases=(base,), frozen=True,
+                                     namespace={"kind": kind, "PARAMETERS": parameters})
+    lines = [summary, "", "Parameters", "----------"]
+    for p in parameters:
+        default = "None" if p.default is None else f"{p.default:g}"
+        lines += [f"{p.name} : float{' or None' if p.optional else ''}",
+                  f"    {p.help} ({p.unit}, > {p.minimum:g}; default {default})."]
+    lines += ["device : Transistor", "    The stage's transistor (its polarity decides the orientation)."]
+    cls.__doc__ = "\n".join(lines)
+    cls.__module__ = __name__
+    return cls
+
+
+class _CommonEmitter(Stage):
+    def has_base_bias(self):
+        return self.rb1 is not None or self.rb2 is not None or self.rf is not None
+
+    def build(self, circuit, sid, input_node, rails):
+        added = []
+        emitter_rail, collector_rail = self._low_high(rails)
+        c, e = f"{sid}_c", f"{sid}_e"
+        self._base_network(circuit, sid, input_node, rails, added)
+        if self.rf is not None:
+            circuit.resistor(f"{sid}_rf", c, input_node, self.rf)
+            added.append(f"{sid}_rf")
+        circuit.resistor(f"{sid}_rc", collector_rail, c, self.rc)
+        added.append(f"{sid}_rc")
+        if self.re is None and self.re_bypassed is None:
+            e = emitter_rail
+        else:
+            self._emitter_network(circuit, sid, e, emitter_rail, added, self.re, self.re_bypassed, self.c_bypass)
+        circuit.bjt(f"{sid}_q", collector=c, base=input_node, emitter=e, device=self.device)
+        return StageNodes(input_node, c, f"{sid}_q", tuple(added) + (f"{sid}_q",))
+
+
+CommonEmitter = _template(
+    "CommonEmitter", "common-emitter",
+    (_r("rb1", "bias resistor from the supply to the base"),
+     _r("rb2", "bias resistor from the base to the lower rail"),
+     _r("rc", "collector resistor", 4.7e3, optional=False),
+     _r("re", "unbypassed emitter resistor (degeneration)"),
+     _r("re_bypassed", "emitter resistor bypassed to ground at midband"),
+     _r("rf", "collector-to-base feedback resistor"),
+     _c("c_bypass", "emitter bypass capacitor")),
+    "Common-emitter stage: input at the base, output at the collector.", base=_CommonEmitter)
+
+
+class _CommonCollector(Stage):
+    def has_base_bias(self):
+        return self.rb1 is not None or self.rb2 is not None
+
+    def build(self, circuit, sid, input_node, rails):
+        added = []
+        emitter_rail, collector_rail = self._low_high(rails)
+        c, e = f"{sid}_c", f"{sid}_e"
+        self._base_network(circuit, sid, input_node, rails, added)
+        if self.rc is not None:
+            circuit.resistor(f"{sid}_rc", collector_rail, c, self.rc)
+            added.append(f"{sid}_rc")
+        else:
+            c = collector_rail
+        circuit.resistor(f"{sid}_re", e, emitter_rail, self.re)
+        added.append(f"{sid}_re")
+        circuit.bjt(f"{sid}_q", collector=c, base=input_node, emitter=e, device=self.device)
+        return StageNodes(input_node, e, f"{sid}_q", tuple(added) + (f"{sid}_q",))
+
+
+CommonCollector = _template(
+    "CommonCollector", "common-collector",
+    (_r("rb1", "bias resistor from the supply to the base"),
+     _r("rb2", "bias resistor from the base to the lower rail"),
+     _r("re", "emitter resistor", 1e3, optional=False),
+     _r("rc", "collector resistor (None: collector on the rail)")),
+    "Common-collector stage (emitter follower): input at the base, output at the emitter.",
+    base=_CommonCollector)
+
+
+class _CommonBase(Stage):
+    def has_base_bias(self):
+        return True
+
+    def _check(self):
+        if self.rb1 is None or self.rb2 is None:
+            raise InvalidValueError("CommonBase needs both rb1 and rb2 (its base divider)")
+
+    def build(self, circuit, sid, input_node, rails):
+        added = []
+        emitter_rail, collector_rail = self._low_high(rails)
+        b, c = f"{sid}_b", f"{sid}_c"
+        self._base_network(circuit, sid, b, rails, added)
+        circuit.capacitor(f"{sid}_c_base", b, GROUND, self.c_base)
+        circuit.resistor(f"{sid}_rc", collector_rail, c, self.rc)
+        circuit.resistor(f"{sid}_re", input_node, emitter_rail, self.re)
+        added += [f"{sid}_c_base", f"{sid}_rc", f"{sid}_re"]
+        circuit.bjt(f"{sid}_q", collector=c, base=b, emitter=input_node, device=self.device)
+        return StageNodes(input_node, c, f"{sid}_q", tuple(added) + (f"{sid}_q",))
+
+
+CommonBase = _template(
+    "CommonBase", "common-base",
+    (_r("rb1", "base divider resistor from the supply", 47e3),
+     _r("rb2", "base divider resistor to the lower rail", 10e3),
+     _r("rc", "collector resistor", 4.7e3, optional=False),
+     _r("re", "emitter resistor (the stage's input)", 1e3, optional=False),
+     _c("c_base", "base bypass capacitor")),
+    "Common-base stage: base bypassed, input at the emitter, output at the collector.", base=_CommonBase)
+
+
+@dataclass(frozen=True)
+class CustomStage(Stage):
+    """A stage built from raw circuit elements, usable wherever a template is.
+
+    Parameters
+    ----------
+    circuit : Circuit
+        The stage's elements. Rails are the nodes ``"supply"`` and ``"lower"`` (the lower rail)
+        and ``"gnd"``; the node named by ``input`` is joined to the previous stage (or coupling
+        capacitor); every other node is private to the stage.
+    input, output : str
+        The stage's input and output nodes.
+    transistor : str
+        Name of the transistor whose Q-point, swing and load lines the stage reports.
+    """
+
+    kind: ClassVar[str] = "custom"
+    PARAMETERS: ClassVar[tuple[Parameter, ...]] = ()
+    circuit: Circuit = field(default_factory=Circuit)
+    input: str = "in"
+    output: str = "out"
+    transistor: str = "q"
+
+    def __post_init__(self):
+        if not isinstance(self.circuit, Circuit):
+            raise InvalidValueError("CustomStage.circuit must be an ampplan.Circuit")
+        nodes = set(self.circuit.nodes) | {GROUND}
+        for what in ("input", "output"):
+            node = getattr(self, what)
+            if node not in nodes:
+                raise UnknownNameError(f"CustomStage.{what}: the stage circuit has no node {node!r}")
+        names = {b.name for b in self.circuit.of_kind(Bjt)}
+        if self.transistor not in names:
+            raise UnknownNameError(f"CustomStage.transistor: the stage circuit has no transistor {self.transistor!r}"
+                                   f" (it has {', '.join(sorted(names)) or 'none'})")
+
+    @property
+    def device(self) -> Transistor:
+        """The reported transistor's parameters."""
+        return self.circuit.element(self.transistor).device
+
+    def parameters(self) -> dict:
+        """Element values by element name."""
+        out = {}
+        for e in self.circuit.elements:
+            for attr in ("resistance", "voltage", "current", "capacitance"):
+                if hasattr(e, attr):
+                    out[e.name] = getattr(e, attr)
+        return out
+
+    def replace(self, **changes) -> "CustomStage":
+        """A copy with element values (by element name) or ``device`` changed."""
+        circuit = self.circuit.copy()
+        for name, value in changes.items():
+            if name == "device":
+                old = circuit.remove(self.transistor)
+                circuit.bjt(old.name, old.collector, old.base, old.emitter, value)
+                continue
+            old = circuit.element(name)
+            if isinstance(old, Bjt):
+                raise InvalidValueError(f"CustomStage element {name!r} is a transistor; set its device instead")
+            attr = next(a for a in ("resistance", "voltage", "current", "capacitance") if hasattr(old, a))
+            circuit.remove(name)
+            _readd(circuit, dataclasses.replace(old, **{attr: value}))
+        return CustomStage(circuit=circuit, input=self.input, output=self.output, transistor=self.transistor)
+
+    def has_base_bias(self):
+        return True
+
+    def build(self, circuit, sid, input_node, rails):
+        mapping = {SUPPLY_NODE: rails.supply, LOWER_NODE: rails.lower, GROUND: GROUND, self.input: input_node}
+        rename = lambda n: mapping.get(n, f"{sid}_{n}")  # noqa: E731
+        added = []
+        for e in self.circuit.elements:
+            new_name = f"{sid}_{e.name}"
+            if isinstance(e, Resistor):
+                circuit.resistor(new_name, rename(e.a), rename(e.b), e.resistance)
+            elif isinstance(e, Capacitor):
+                circuit.capacitor(new_name, rename(e.a), rename(e.b), e.capacitance)
+            elif isinstance(e, VoltageSource):
+                circuit.voltage_source(new_name, rename(e.plus), rename(e.minus), e.voltage)
+            elif isinstance(e, CurrentSource):
+                circuit.current_source(new_name, rename(e.from_node), rename(e.to_node), e.current)
+            elif isinstance(e, Bjt):
+                circuit.bjt(new_name, rename(e.collector), rename(e.base), rename(e.emitter), e.device)
+            added.append(new_name)
+        return StageNodes(input_node, rename(self.output), f"{sid}_{self.transistor}", tuple(added))
+
+
+def _readd(circuit: Circuit, element) -> None:
+    if isinstance(element, Resistor):
+        circuit.resistor(element.name, element.a, element.b, element.resistance)
+    elif isinstance(element, Capacitor):
+        circuit.capacitor(element.name, element.a, element.b, element.capacitance)
+    elif isinstance(element, VoltageSource):
+        circuit.voltage_source(element.name, element.plus, element.minus, element.voltage)
+    elif isinstance(element, CurrentSource):
+        circuit.current_source(element.name, element.from_node, element.to_node, element.current)
+
+
+#: Templates by their plan-file ``kind``.
+TEMPLATES: dict[str, type] = {cls.kind: cls for cls in (CommonEmitter, CommonCollector, CommonBase, CustomStage)}

@@ -1,0 +1,47 @@
+"""The core stays light: importing ampplan and solving loads no notebook library.
+
+Source: issue 2 §7 and STYLE.md (one-way layers; core never imports ipywidgets, bokeh,
+jupyter_bokeh or IPython); checked in a fresh interpreter so that nothing else the test session has
+imported can hide an import.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+NOTEBOOK_MODULES = ["ipywidgets", "bokeh", "jupyter_bokeh", "IPython"]
+
+SCRIPT = r"""
+import json, sys
+import ampplan
+
+c = ampplan.Circuit()
+c.voltage_source("VCC", "vcc", "gnd", 12.0)
+c.resistor("R1", "vcc", "b", 100e3)
+c.resistor("R2", "b", "gnd", 22e3)
+c.resistor("RC", "vcc", "c", 4.7e3)
+c.resistor("RE", "e", "gnd", 1e3)
+c.capacitor("CE", "e", "gnd")
+c.bjt("Q1", collector="c", base="b", emitter="e", device=ampplan.Transistor())
+regions = {}
+for model in ("constant-drop", "ebers-moll"):
+    regions[model] = c.solve(model=model).transistors["Q1"].region
+    c.solve(model=model, batch={"RC": [3.3e3, 4.7e3]})
+loaded = {name: name in sys.modules for name in %(modules)r}
+print(json.dumps({"regions": regions, "loaded": loaded}))
+"""
+
+
+def test_core_imports_no_notebook_library():
+    root = Path(__file__).resolve().parents[1]
+    done = subprocess.run([sys.executable, "-W", "error", "-c", SCRIPT % {"modules": NOTEBOOK_MODULES}], cwd=root,
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout.strip().splitlines()[-1])
+    # The circuit really was solved by both models (a forward-active divider-biased stage).
+    assert report["regions"] == {"constant-drop": "forward-active", "ebers-moll": "forward-active"}
+    loaded = [name for name, present in report["loaded"].items() if present]
+    assert not loaded, f"the core imported {loaded}"
