@@ -346,6 +346,7 @@ class Layout:
         self.q_ic = self.q_ib + 1
         self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
         self.structure = self._structure()
+        self._pattern_cache: dict = {}
         self._parameter_cache: dict = {}
 
     # -- topology -----------------------------------------------------------------------------
@@ -370,6 +371,23 @@ class Layout:
                 dc.union(e.base, e.emitter)
         ground = dc.find(GROUND)
         floating = [n for n in self.nodes if dc.find(n) != ground]
+        # A node that meets a single transistor terminal and nothing else but capacitors has no
+        # voltage of its own: the transistor's current there would have nowhere to go (a bias
+        # resistor forgotten, say). Two terminals (a Darlington pair) or any source or resistor
+        # do give it one.
+        meets: dict[str, list] = {}
+        for e in circuit.elements:
+            if isinstance(e, Capacitor):
+                continue
+            for role, n in zip(_roles(e), _terminals(e)):
+                meets.setdefault(n, []).append(f"{e.name}'s {role}" if isinstance(e, Bjt) else e.name)
+        for n in self.nodes:
+            touching = meets.get(n, [])
+            if len(touching) == 1 and touching[0].endswith(("'s base", "'s collector", "'s emitter")):
+                caps = [e.name for e in self.capacitors if n in (e.a, e.b)]
+                raise FloatingNodeError(
+                    f"node {n!r} meets only {touching[0]}" + (f" and capacitor(s) {', '.join(caps)}" if caps else "")
+                    + ": nothing sets its DC voltage (a bias resistor missing?)")
         if floating:
             where = {n: [e.name for e in circuit.elements if n in _terminals(e)] for n in floating}
             first = floating[0]
@@ -396,7 +414,7 @@ class Layout:
         np.add.at(a, (self.q_e, self.q_ic), -s)
         return a
 
-    def assemble(self, params: Parameters, source_scale=1.0, gmin=0.0):
+    def assemble(self, params: Parameters, source_scale=1.0, gmin=0.0, reduced: bool = False):
         """Linear part of the equations for every sample.
 
         Parameters
@@ -407,35 +425,55 @@ class Layout:
             Multiplies every independent source (source stepping).
         gmin : float or ndarray of shape (S,)
             Conductance from every node to ground, siemens (the conductance ladder).
+        reduced : bool
+            Leave out the transistor-current unknowns and their rows (for a device model that
+            stamps its currents straight into the node rows).
 
         Returns
         -------
-        matrix : ndarray, shape (S, size + 1, size + 1)
-            With the transistor rows left empty for the device model; the last row and column
-            belong to ground and are dropped before solving.
-        rhs : ndarray, shape (S, size + 1)
+        matrix : ndarray, shape (S, m + 1, m + 1)
+            m = ``size`` (or ``n_nodes + n_vs`` reduced). The transistor rows are left empty for the
+            device model; the last row and column belong to ground and are dropped before solving.
+        rhs : ndarray, shape (S, m + 1)
         """
+        structure, resistors, volts, amps = self._patterns(reduced)
         s_count = params.size
-        n = self.size + 1
-        matrix = np.broadcast_to(self.structure, (s_count, n, n)).copy()
-        g = params.conductance
-        # One fancy-indexed update per stamp position replaces a loop over resistors; add.at
-        # because two resistors may share both nodes.
-        samples = np.arange(s_count)[:, None]
-        np.add.at(matrix, (samples, self.r_a[None, :], self.r_a[None, :]), g)
-        np.add.at(matrix, (samples, self.r_b[None, :], self.r_b[None, :]), g)
-        np.add.at(matrix, (samples, self.r_a[None, :], self.r_b[None, :]), -g)
-        np.add.at(matrix, (samples, self.r_b[None, :], self.r_a[None, :]), -g)
+        n = structure.shape[0]
+        # Every stamp for every sample at once: values (S, elements) times stamp patterns
+        # (elements, n·n) replace loops over elements and samples.
+        matrix = (params.conductance @ resistors).reshape(s_count, n, n)
+        matrix += structure
         if np.any(gmin):
             diag = np.arange(self.n_nodes)
             matrix[:, diag, diag] += np.reshape(gmin, (-1, 1))
-        rhs = np.zeros((s_count, n))
         scale = np.reshape(np.asarray(source_scale, dtype=float), (-1, 1))
-        rhs[:, self.vs_row] = params.voltage * scale
-        i = params.current * scale
-        np.add.at(rhs, (samples, self.cs_from[None, :]), -i)
-        np.add.at(rhs, (samples, self.cs_to[None, :]), i)
+        rhs = (params.voltage * scale) @ volts + (params.current * scale) @ amps
         return matrix, rhs
+
+    def _patterns(self, reduced: bool):
+        """Stamp patterns over the kept unknowns (cached): structure, resistors, V and I sources."""
+        if reduced not in self._pattern_cache:
+            n_full = self.size + 1
+            keep = (np.concatenate([np.arange(self.n_nodes + self.n_vs), [self.size]]) if reduced
+                    else np.arange(n_full))
+            n = keep.size
+            resistors = np.zeros((len(self.resistors), n_full, n_full))
+            for k, (a, b) in enumerate(zip(self.r_a, self.r_b)):
+                resistors[k, a, a] += 1.0
+                resistors[k, b, b] += 1.0
+                resistors[k, a, b] -= 1.0
+                resistors[k, b, a] -= 1.0
+            volts = np.zeros((self.n_vs, n_full))
+            volts[np.arange(self.n_vs), self.vs_row] = 1.0
+            amps = np.zeros((len(self.current_sources), n_full))
+            for k, (f, t) in enumerate(zip(self.cs_from, self.cs_to)):
+                amps[k, f] -= 1.0
+                amps[k, t] += 1.0
+            self._pattern_cache[reduced] = (
+                self.structure[np.ix_(keep, keep)],
+                resistors[:, keep][:, :, keep].reshape(len(self.resistors), n * n),
+                volts[:, keep], amps[:, keep])
+        return self._pattern_cache[reduced]
 
     # -- parameters ---------------------------------------------------------------------------
     def parameters(self, temperature=25.0, batch: dict | None = None) -> Parameters:
@@ -524,6 +562,10 @@ class Layout:
             device=device,
             temperature=temp,
         )
+
+
+def _roles(e: Element) -> tuple[str, ...]:
+    return ("collector", "base", "emitter") if isinstance(e, Bjt) else ("", "")
 
 
 def _terminals(e: Element) -> tuple[str, ...]:

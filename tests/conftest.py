@@ -49,12 +49,12 @@ def circuits(draw, topologies=ref.TOPOLOGIES):
     return topology, ref.build(topology, _hypothesis_draw(draw))
 
 
-def seeded_circuits(per_topology: int, seed: int = 20240601, topologies=ref.TOPOLOGIES):
-    """pytest params with stable ids (``divider-ce-0`` ...) from a seeded numpy generator."""
+def reproducible_circuits(per_topology: int, entropy: int = 20240601, topologies=ref.TOPOLOGIES):
+    """pytest params with stable ids (``divider-ce-0`` ...) from a numpy generator with fixed entropy."""
     params = []
     for t_index, topology in enumerate(topologies):
         for k in range(per_topology):
-            rng = np.random.default_rng([seed, t_index, k])
+            rng = np.random.default_rng([entropy, t_index, k])
             params.append(pytest.param(topology, ref.build(topology, ref.numpy_draw(rng)),
                                        id=f"{topology}-{k}"))
     return params

@@ -646,7 +646,7 @@ def build(topology: str, draw) -> list:
     """A circuit of one family with values from ``draw(name, low, high, log)``.
 
     Every family has a supply ``VCC``, a transistor ``Q1`` and a resistor ``RC`` (the batch tests
-    vary exactly these). ``draw`` is a hypothesis draw or a seeded numpy generator.
+    vary exactly these). ``draw`` is a hypothesis draw or a numpy generator with fixed entropy.
     """
     def r(name, lo=220.0, hi=1e6):
         return draw(name, lo, hi, True)
@@ -736,7 +736,7 @@ def build_chain(draw, stages: int = 3) -> list:
 
 
 def numpy_draw(rng):
-    """A ``draw`` for :func:`build` from a seeded numpy Generator."""
+    """A ``draw`` for :func:`build` from a numpy Generator with fixed entropy."""
     def draw(_name, lo, hi, log):
         if log:
             return float(np.exp(rng.uniform(np.log(lo), np.log(hi))))

@@ -1,12 +1,12 @@
 """ampplan against independent solutions of the same equations (issue 2 §7).
 
-- Constant-drop: for seeded random circuits, sympy solves the linear equations of the region
+- Constant-drop: for reproducible random circuits, sympy solves the linear equations of the region
   assignment ampplan reports, in exact rationals (tests/reference.py builds them from the element
   list); every value must agree to 1e-9 and every region check must hold exactly.
 - Ebers–Moll: scipy.optimize.root solves our own KCL residual with the same device equations
   (API notes), started from our own constant-drop solution; agreement to 1e-6 relative.
 
-The circuits come from seeded numpy generators, so every case has a stable id (``diff-pair-3``).
+The circuits come from numpy generators with fixed entropy, so every case has a stable id (``diff-pair-3``).
 """
 
 from __future__ import annotations
@@ -19,9 +19,9 @@ from scipy import constants
 
 import reference as ref
 from ampplan import errors
-from conftest import as_solution, compare, regions_of, seeded_circuits
+from conftest import as_solution, compare, regions_of, reproducible_circuits
 
-CASES = seeded_circuits(per_topology=10)
+CASES = reproducible_circuits(per_topology=10)
 
 
 @pytest.mark.parametrize("topology, elements", CASES)

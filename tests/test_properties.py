@@ -64,6 +64,45 @@ def test_kcl_holds_at_every_node(circuit, model):
         assert t.vbe == pytest.approx(op.v[base] - op.v[emit], rel=1e-12, abs=1e-12)
         assert t.vce == pytest.approx(op.v[coll] - op.v[emit], rel=1e-12, abs=1e-12)
     assert op.v["gnd"] == 0.0
+    # Source: API notes, OperatingPoint fields of a single solve.
+    assert op.model == model and op.status == "ok" and op.batch_size is None
+    # Source: API notes, op.i: a resistor's current flows from its node a to b, (V_a - V_b) / R; a
+    # current source reports its own value.
+    for e in elements:
+        if e.kind == "R":
+            a, b = e.nodes
+            operand = (abs(op.v[a]) + abs(op.v[b])) / e.value
+            assert abs(op.i[e.name] - (op.v[a] - op.v[b]) / e.value) <= 1e-12 * operand, e.name
+        elif e.kind == "I":
+            assert op.i[e.name] == e.value
+
+
+@given(circuit=circuits(), model=model_st)
+def test_power_balance(circuit, model):
+    # Source: Tellegen's theorem (conservation of power in a network obeying KCL and KVL): the power the
+    # sources deliver equals the power the resistors and transistors take. A transistor takes
+    # P = sum over terminals of V x (current into the terminal) = s (V_CE I_C + V_BE I_B) with
+    # textbook-signed currents (s = +1 NPN, -1 PNP).
+    topology, elements = circuit
+    op = _solve_or_reject(elements, model)
+    delivered, taken, scale = 0.0, 0.0, 0.0
+    for e in elements:
+        if e.kind == "V":
+            delivered += e.value * op.i[e.name]
+            scale += abs(e.value * op.i[e.name])
+        elif e.kind == "I":
+            p = e.value * (op.v[e.nodes[1]] - op.v[e.nodes[0]])
+            delivered += p
+            scale += abs(p)
+        elif e.kind == "R":
+            a, b = e.nodes
+            taken += (op.v[a] - op.v[b]) ** 2 / e.value
+        elif e.kind == "Q":
+            t = op.transistors[e.name]
+            power = ref.sign(e) * (t.vce * t.ic + t.vbe * t.ib)
+            assert t.power == pytest.approx(power, rel=1e-9, abs=1e-15 * max(scale, 1e-3)), e.name
+            taken += power
+    assert delivered == pytest.approx(taken, rel=1e-9, abs=1e-12 * max(scale, 1e-12))
 
 
 def _assert_checks_hold(op, what):

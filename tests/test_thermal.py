@@ -121,3 +121,17 @@ def test_vbe_falls_about_2_mV_per_kelvin_at_constant_current():
     v45 = circuit.solve(model="ebers-moll", temperature=45.0).v["d"]
     slope = (v45 - v25) / 20.0
     assert -2.5e-3 < slope < -1.5e-3
+
+
+def test_constant_drop_vbe_on_moves_with_temperature():
+    # Source: fixed-bias closed form I_B = (V_CC - V_BE) / R_B (Boylestad & Nashelsky, from memory) with
+    # V_BE(on) moved by -2 mV/K from 25 °C (common practice, no source; the documented default of
+    # Transistor.vbe_temperature_coefficient). At 25 °C nothing moves (issue 2 §4).
+    elements = [ref.V("VCC", "vcc", ref.GROUND, 12.0), ref.R("RB", "vcc", "b", 240e3),
+                ref.R("RC", "vcc", "c", 2.2e3), ref.Q("Q1", "c", "b", ref.GROUND, beta=50.0)]
+    circuit = ref.to_circuit(elements)
+    for celsius in (25.0, 75.0, -15.0):
+        vbe = 0.7 - 2e-3 * (celsius - 25.0)
+        t = circuit.solve(model="constant-drop", temperature=celsius).transistors["Q1"]
+        assert t.vbe == pytest.approx(vbe, rel=1e-12)
+        assert t.ib == pytest.approx((12.0 - vbe) / 240e3, rel=1e-12)

@@ -68,11 +68,12 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
 
 # -- Ebers–Moll -----------------------------------------------------------------------------------
 def _newton_start(layout, params):
-    """Starting unknowns for Newton: the constant-drop answer with every transistor forward-active."""
-    problem = cd.RegionProblem(layout, params)
-    rows = np.arange(params.size)
-    x0, _ = problem.solve(rows, np.full((params.size, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
-    return x0
+    """Newton's start for given samples: the constant-drop answer with every transistor forward-active."""
+    def start(rows):
+        problem = cd.RegionProblem(layout, em._take(params, rows))
+        x0, _ = problem.solve(np.arange(rows.size), np.full((rows.size, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
+        return x0
+    return start
 
 
 def _solve_ebers_moll(circuit, layout, params, single):
@@ -96,8 +97,7 @@ def _solve_ebers_moll(circuit, layout, params, single):
 # -- constant-drop --------------------------------------------------------------------------------
 def _em_guess(layout, params, rows):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
-    from .ebers_moll import _take
-    sub = _take(params, rows)
+    sub = em._take(params, rows)
     x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub))
     regions, _ = em.classify(layout, sub, x)
     regions[~converged] = cd.ACTIVE

@@ -33,6 +33,8 @@ from .linear import solve_batch
 EXP_LIMIT = 80.0
 MAX_ITERATIONS = 150
 LADDER_ITERATIONS = 60
+#: Iterations allowed from a solved neighbour before the sample restarts from its own guess.
+WARM_ITERATIONS = 40
 LADDER = (1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 1e-11, 1e-12, 0.0)
 SOURCE_STEPS = 20
 RELATIVE_TOLERANCE = 1e-9
@@ -110,6 +112,11 @@ class NewtonProblem:
         n = layout.size
         self.abs_tol = np.concatenate([np.full(layout.n_nodes, VOLTAGE_TOLERANCE),
                                        np.full(n - layout.n_nodes, CURRENT_TOLERANCE)])
+        # The reduced system: node voltages and source currents, then ground as the spare index.
+        nu = layout.n_nodes + layout.n_vs
+        reduced = lambda i: nu if i == n else int(i)  # noqa: E731
+        self.terminals = [(reduced(b), reduced(c), reduced(e), float(sg)) for b, c, e, sg in
+                          zip(layout.q_b, layout.q_c, layout.q_e, layout.sign)]
 
     def junctions(self, x, rows=slice(None)):
         """NPN-frame v_be and v_bc, shape (S', N), from unknowns x of shape (S', size + 1)."""
@@ -119,6 +126,11 @@ class NewtonProblem:
 
     def newton(self, rows, x, v_old, gmin=0.0, scale=1.0, max_iterations=MAX_ITERATIONS):
         """Newton iterations on the samples ``rows`` (index array), from iterate ``x``.
+
+        The iterations run on the reduced system of node voltages and source currents: each
+        transistor's linearised currents are stamped straight into the node rows (its companion
+        model), which halves the system a batched LU factorises. I_B and I_C are recovered from the
+        same linearisation, so Kirchhoff's law holds at every iterate.
 
         Parameters
         ----------
@@ -134,67 +146,76 @@ class NewtonProblem:
         """
         lay = self.layout
         params = _take(self.params, rows)
-        base, rhs0 = lay.assemble(params, source_scale=scale, gmin=gmin)
+        base, rhs0 = lay.assemble(params, source_scale=scale, gmin=gmin, reduced=True)
+        nu = base.shape[1] - 1
         dev = {k: v[rows] for k, v in self.dev.items()}
         v_t, nvt, v_crit = self.v_t[rows], self.nvt[rows], self.v_crit[rows]
-        abs_tol = self.abs_tol
-        n = lay.size
-        s = lay.sign
-        device_rows = np.concatenate([lay.q_ib, lay.q_ic])
+        abs_tol = self.abs_tol[:nu]
         converged = np.zeros(len(rows), dtype=bool)
         iterations = np.zeros(len(rows), dtype=int)
         active = np.arange(len(rows))
         vbe_old, vbc_old = v_old
         x = x.copy()
-        gathered = None
+        gathered = False
         for _ in range(max_iterations):
             if active.size == 0:
                 break
-            if gathered is None or gathered.size != active.size:
-                # Gather the still-active samples once per change of the active set; between
-                # changes only the device rows of the work arrays are rewritten.
-                gathered = active
-                work_matrix, work_rhs = base[active], rhs0[active]
+            if not gathered:
+                # Gather the still-active samples once per change of the active set.
+                gathered = True
+                base_act, rhs_act = base[active], rhs0[active]
                 d_act = {k: v[active] for k, v in dev.items()}
                 vt_act, nvt_act, crit_act = v_t[active], nvt[active], v_crit[active]
-            else:
-                work_matrix[:, device_rows, :] = 0.0
-                work_rhs[:, device_rows] = rhs0[active][:, device_rows]
             xa = x[active]
             vbe_raw, vbc_raw = self.junctions(xa)
             vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_act, crit_act)
             vbc = _limit_junction(vbc_raw, vbc_old[active], nvt_act, crit_act)
             was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
             i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_act)
-            _stamp_device(work_matrix, work_rhs, lay, s, vbe, vbc, i_b, i_c, d)
-            x_new, ok = solve_batch(work_matrix[:, :n, :n], work_rhs[:, :n])
-            step = np.abs(x_new - xa[:, :n])
-            small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(x_new), np.abs(xa[:, :n])) + abs_tol,
+            # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
+            j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
+            j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
+            matrix, rhs = base_act.copy(), rhs_act.copy()
+            self._stamp_companion(matrix, rhs, d, j_b, j_c)
+            u, ok = solve_batch(matrix[:, :nu, :nu], rhs[:, :nu], check_residual=False)
+            step = np.abs(u - xa[:, :nu])
+            small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:, :nu])) + abs_tol,
                            axis=1)
             done = ok & small & ~was_limited
             iterations[active] += 1
-            x[active, :n] = np.where(ok[:, None], x_new, xa[:, :n])
+            # I_B and I_C from the companion model at the new voltages.
+            new = xa.copy()
+            new[:, :nu] = u
+            vbe_new, vbc_new = self.junctions(new)
+            new[:, lay.q_ib] = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
+            new[:, lay.q_ic] = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+            x[active] = np.where(ok[:, None], new, xa)
             vbe_old[active], vbc_old[active] = vbe, vbc
             converged[active[done]] = True
             # A singular or non-finite iterate ends that sample's attempt; a fallback takes over.
-            keep = ~done & ok
-            if not np.all(keep):
-                active = active[keep]
-                gathered = None
+            still = ~done & ok
+            if not np.all(still):
+                active = active[still]
+                gathered = False
         return x, (vbe_old, vbc_old), converged, iterations
 
+    def _stamp_companion(self, matrix, rhs, d, j_b, j_c):
+        """Add each transistor's companion model to the node rows of the reduced system.
 
-def _stamp_device(matrix, rhs, lay, s, vbe, vbc, i_b, i_c, d):
-    """Write the linearised device rows  i - (∂i/∂v_be)·v_be - (∂i/∂v_bc)·v_bc = i0 - ... ."""
-    for row, col_i, g_be, g_bc, i0 in ((lay.q_ib, lay.q_ib, d["b_be"], d["b_bc"], i_b),
-                                       (lay.q_ic, lay.q_ic, d["c_be"], d["c_bc"], i_c)):
-        matrix[:, row, col_i] += 1.0
-        # v_be = s·(V_B - V_E) and v_bc = s·(V_B - V_C); each terminal is its own statement so
-        # that shorted terminals (a diode-connected transistor) add up.
-        matrix[:, row, lay.q_b] -= s * (g_be + g_bc)
-        matrix[:, row, lay.q_e] += s * g_be
-        matrix[:, row, lay.q_c] += s * g_bc
-        rhs[:, row] += i0 - g_be * vbe - g_bc * vbc
+        Currents leaving a node into the transistor: s·I_B at the base, s·I_C at the collector,
+        -s·(I_B + I_C) at the emitter, with v_be = s·(V_B - V_E) and v_bc = s·(V_B - V_C); the
+        two factors of s cancel in the conductances. One transistor at a time (a loop over the
+        N transistors, never over samples), so that transistors sharing a node add up.
+        """
+        for k, (b, c, e, s) in enumerate(self.terminals):
+            gb_be, gb_bc = d["b_be"][:, k], d["b_bc"][:, k]
+            gc_be, gc_bc = d["c_be"][:, k], d["c_bc"][:, k]
+            for node, sign, g_be, g_bc, j in ((b, 1.0, gb_be, gb_bc, j_b[:, k]), (c, 1.0, gc_be, gc_bc, j_c[:, k]),
+                                              (e, -1.0, gb_be + gc_be, gb_bc + gc_bc, j_b[:, k] + j_c[:, k])):
+                matrix[:, node, b] += sign * (g_be + g_bc)
+                matrix[:, node, e] -= sign * g_be
+                matrix[:, node, c] -= sign * g_bc
+                rhs[:, node] -= sign * s * j
 
 
 def _take(params, rows):
@@ -204,17 +225,27 @@ def _take(params, rows):
                       temperature=params.temperature[rows])
 
 
-def solve_newton(layout, params, x0=None):
+def solve_newton(layout, params, start=None, warm_start: bool = True):
     """Solve the Ebers–Moll equations for every sample.
+
+    Attempts, each on the samples the previous ones left unsolved:
+
+    1. in a batch, one sample from its own start, then every other sample from that sample's
+       answer (a solved neighbour is a far better start than any guess: a few iterations each);
+    2. plain Newton from the sample's own start ``x0``;
+    3. the conductance ladder; 4. source stepping.
 
     Parameters
     ----------
     layout : ampplan.circuit.Layout
     params : ampplan.circuit.Parameters
         S samples.
-    x0 : ndarray, shape (S, size + 1), optional
-        Starting unknowns (the constant-drop all-forward-active answer is a good one); rows with
-        NaN start from zero.
+    start : callable, optional
+        ``start(rows) -> ndarray (len(rows), size + 1)``: starting unknowns of those samples (the
+        constant-drop all-forward-active answer is a good one); rows with NaN start from zero.
+        Called only for the samples that need it. None: start from zero.
+    warm_start : bool
+        Allow attempt 1.
 
     Returns
     -------
@@ -227,50 +258,61 @@ def solve_newton(layout, params, x0=None):
     """
     problem = NewtonProblem(layout, params)
     s_count = params.size
-    n_q = layout.n_bjt
-    if x0 is None:
-        x0 = np.zeros((s_count, layout.size + 1))
-    else:
-        x0 = np.where(np.all(np.isfinite(x0), axis=1, keepdims=True), x0, 0.0)
-    # Junction voltages "used last" start no higher than the constant-drop on-voltages, so a
-    # starting point with a junction driven hard forward is approached in limited steps.
-    vbe0, vbc0 = problem.junctions(x0)
-    v0 = (np.minimum(vbe0, problem.dev["vbe_on"]), np.minimum(vbc0, problem.dev["vbc_on"]))
-    every = np.arange(s_count)
-    x, v_old, converged, iterations = problem.newton(every, x0, v0)
-    method = np.where(converged, "newton", "").astype(object)
+    size = layout.size + 1
 
-    left = every[~converged]
+    def own_start(rows):
+        """Each sample's own start and the junction voltages its limiting begins from."""
+        x0 = np.zeros((rows.size, size)) if start is None else start(rows)
+        x0 = np.where(np.all(np.isfinite(x0), axis=1, keepdims=True), x0, 0.0)
+        # Junction voltages "used last" start no higher than the constant-drop on-voltages, so a
+        # start with a junction driven hard forward is approached in limited steps.
+        vbe0, vbc0 = problem.junctions(x0)
+        return x0, (np.minimum(vbe0, problem.dev["vbe_on"][rows]), np.minimum(vbc0, problem.dev["vbc_on"][rows]))
+
+    x = np.full((s_count, size), np.nan)
+    converged = np.zeros(s_count, dtype=bool)
+    iterations = np.zeros(s_count, dtype=int)
+    method = np.full(s_count, "", dtype=object)
+
+    def attempt(rows, start, v_start, label, **options):
+        """Run Newton on ``rows``; record the ones that converge; return those that did not."""
+        xs, _, ok, its = problem.newton(rows, start, v_start, **options)
+        iterations[rows] += its
+        x[rows[ok]] = xs[ok]
+        converged[rows[ok]] = True
+        method[rows[ok]] = label
+        return rows[~ok]
+
+    left = np.arange(s_count)
+    if warm_start and s_count > 1:
+        first = left[:1]
+        if attempt(first, *own_start(first), "newton").size == 0:
+            rest = left[1:]
+            start = np.repeat(x[first], rest.size, axis=0)
+            left = np.concatenate([left[:0], attempt(rest, start, problem.junctions(start), "newton",
+                                                     max_iterations=WARM_ITERATIONS)])
+    left = left[~converged[left]]
     if left.size:
-        # Conductance ladder: each rung starts from the previous rung's answer.
-        xl = np.zeros((left.size, layout.size + 1))
-        vl = (np.zeros((left.size, n_q)), np.zeros((left.size, n_q)))
+        left = attempt(left, *own_start(left), "newton")
+    for label, rungs in (("conductance ladder", [{"gmin": g} for g in LADDER]),
+                         ("source stepping", [{"scale": a} for a in np.linspace(0.0, 1.0, SOURCE_STEPS + 1)])):
+        if not left.size:
+            break
+        # Each rung starts from the previous rung's answer; a sample that fails a rung is out.
+        xl = np.zeros((left.size, size))
+        vl = (np.zeros((left.size, layout.n_bjt)), np.zeros((left.size, layout.n_bjt)))
         alive = np.ones(left.size, dtype=bool)
-        for g in LADDER:
+        for rung in rungs:
             idx = np.flatnonzero(alive)
-            xs, vs, ok, its = problem.newton(left[idx], xl[idx], (vl[0][idx], vl[1][idx]), gmin=g,
-                                             max_iterations=LADDER_ITERATIONS)
+            xs, vs, ok, its = problem.newton(left[idx], xl[idx], (vl[0][idx], vl[1][idx]),
+                                             max_iterations=LADDER_ITERATIONS, **rung)
             xl[idx], vl[0][idx], vl[1][idx] = xs, vs[0], vs[1]
             iterations[left[idx]] += its
             alive[idx[~ok]] = False
         x[left[alive]] = xl[alive]
         converged[left[alive]] = True
-        method[left[alive]] = "conductance ladder"
+        method[left[alive]] = label
         left = left[~alive]
-    if left.size:
-        xl = np.zeros((left.size, layout.size + 1))
-        vl = (np.zeros((left.size, n_q)), np.zeros((left.size, n_q)))
-        alive = np.ones(left.size, dtype=bool)
-        for scale in np.linspace(0.0, 1.0, SOURCE_STEPS + 1):
-            idx = np.flatnonzero(alive)
-            xs, vs, ok, its = problem.newton(left[idx], xl[idx], (vl[0][idx], vl[1][idx]), scale=scale,
-                                             max_iterations=LADDER_ITERATIONS)
-            xl[idx], vl[0][idx], vl[1][idx] = xs, vs[0], vs[1]
-            iterations[left[idx]] += its
-            alive[idx[~ok]] = False
-        x[left[alive]] = xl[alive]
-        converged[left[alive]] = True
-        method[left[alive]] = "source stepping"
     x[~converged] = np.nan
     return x, converged, iterations, method.astype(str)
 

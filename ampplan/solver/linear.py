@@ -5,13 +5,16 @@ from __future__ import annotations
 import numpy as np
 
 
-def solve_batch(matrix: np.ndarray, rhs: np.ndarray):
+def solve_batch(matrix: np.ndarray, rhs: np.ndarray, check_residual: bool = True):
     """Solve ``matrix @ x = rhs`` for a stack of systems.
 
     Parameters
     ----------
     matrix : ndarray, shape (S, m, m)
     rhs : ndarray, shape (S, m)
+    check_residual : bool
+        Also reject members whose residual betrays near-singularity (Newton skips this: it
+        judges its iterates by their steps).
 
     Returns
     -------
@@ -32,6 +35,10 @@ def solve_batch(matrix: np.ndarray, rhs: np.ndarray):
                 pass
     with np.errstate(all="ignore"):
         ok = np.all(np.isfinite(x), axis=-1)
+    if not check_residual:
+        x[~ok] = np.nan
+        return x, ok
+    with np.errstate(all="ignore"):
         # A nearly singular member gives finite nonsense; its residual against the scale of the
         # equations gives it away.
         resid = np.abs(np.einsum("sij,sj->si", matrix, np.where(ok[:, None], x, 0.0)) - rhs).max(axis=-1)

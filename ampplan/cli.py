@@ -1,0 +1,259 @@
+"""The ``ampplan`` command line: check a plan file and report every stage's Q-point.
+
+::
+
+    ampplan check PLAN.json [--model constant-drop|ebers-moll] [--json] [--set ADDRESS=VALUE ...]
+    ampplan check --demo
+
+Exit status of ``check``:
+
+* 0: every stage is forward-active and no caution fired;
+* 1: a stage is out of forward-active, a caution fired, or the solver could not settle the plan;
+* 2: bad input: an unreadable or invalid plan file, a bad ``--set``, a bad option (the message
+  goes to standard error, without a traceback).
+
+Values are engineering notation at this edge (``--set s1.rc=4.7k``, ``--set s2.c_bypass=100u``),
+read by :func:`ampplan.units.parse_quantity`; the table prints them the same way.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib.resources
+import json
+import math
+import os
+import sys
+import textwrap
+
+from . import __version__
+from .errors import AmpplanError, ConvergenceError, NoConsistentRegionError, PlanFileError
+from .record import load_plan, read_plan_file
+from .solver import MODELS
+from .units import format_quantity, parse_quantity
+
+__all__ = ["main", "DEMO_PLAN"]
+
+#: The demo plan shipped inside the package (an invented scenario), relative to the package.
+DEMO_PLAN = "data/demo_plan.json"
+
+#: Exit statuses of ``check``.
+EXIT_OK, EXIT_NOT_OK, EXIT_BAD_INPUT = 0, 1, 2
+
+#: What ``--set name=none`` means: the parameter is not fitted.
+_NONE_WORDS = ("none", "null")
+
+
+class _BadInput(Exception):
+    """Input the user can fix (exit status 2); the message is shown as it is."""
+
+
+# ------------------------------------------------------------------------------------------------
+# Reading the plan
+# ------------------------------------------------------------------------------------------------
+
+def _read(args):
+    """(plan, label, description) from the file or the packaged demo."""
+    if args.demo and args.plan:
+        raise _BadInput("give a plan file or --demo, not both")
+    if not args.demo and not args.plan:
+        raise _BadInput("give a plan file to check, or --demo for the packaged example")
+    if args.demo:
+        with importlib.resources.as_file(importlib.resources.files("ampplan").joinpath(DEMO_PLAN)) as path:
+            data = read_plan_file(path)
+            plan = load_plan(path)
+        return plan, "demo plan", data.get("description", "")
+    data = read_plan_file(args.plan)
+    return load_plan(args.plan), args.plan, data.get("description", "")
+
+
+def _apply_settings(plan, settings) -> None:
+    """Apply ``--set ADDRESS=VALUE`` changes in order, each validated by the plan."""
+    for item in settings or ():
+        address, sep, text = item.partition("=")
+        address, text = address.strip(), text.strip()
+        if not sep or not address or not text:
+            raise _BadInput(f"--set {item!r}: expected ADDRESS=VALUE, e.g. s1.rc=4.7k")
+        try:
+            current = plan.get(address)
+            if isinstance(current, str):
+                value = text  # a word: a coupling or a polarity
+            elif text.lower() in _NONE_WORDS:
+                value = None
+            else:
+                value = parse_quantity(text)
+            plan.set(address, value)
+        except AmpplanError as exc:
+            raise _BadInput(f"--set {item}: {exc}") from None
+
+
+# ------------------------------------------------------------------------------------------------
+# The report
+# ------------------------------------------------------------------------------------------------
+
+def _q(value, unit: str = "") -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "—"
+    if isinstance(value, float) and math.isinf(value):
+        return ("-" if value < 0 else "") + "∞" + (f" {unit}" if unit else "")
+    return format_quantity(value, unit)
+
+
+def _gain(value: float) -> str:
+    if value is None or not math.isfinite(value):
+        return _q(value)
+    return f"{value:.4g}"
+
+
+def _table(rows: list[tuple[str, ...]], right: set[int]) -> list[str]:
+    widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
+
+    def line(row):
+        return "  ".join(c.rjust(w) if k in right else c.ljust(w) for k, (c, w) in enumerate(zip(row, widths)))
+
+    out = [line(rows[0]).rstrip(), "  ".join("-" * w for w in widths)]
+    out += [line(row).rstrip() for row in rows[1:]]
+    return out
+
+
+def _stage_rows(result) -> list[tuple[str, ...]]:
+    rows = [("stage", "kind", "region", "I_C", "V_CE", "sat. margin", "cutoff margin", "swing pk", "gain",
+             "R_in", "R_out")]
+    for s in result.stages:
+        t = s.transistor
+        flag = "!" if (t.region != "forward-active" or s.cautions) else " "
+        rows.append((f"{flag}{s.id}", s.kind, t.region, _q(t.ic, "A"), _q(t.vce, "V"),
+                     _q(s.saturation_margin, "V"), _q(s.cutoff_margin, "A"), _q(s.swing.peak, "V"),
+                     _gain(s.gain), _q(s.input_resistance, "Ω"), _q(s.output_resistance, "Ω")))
+    return rows
+
+
+def _chain_lines(result) -> list[str]:
+    gain = result.gain
+    decibels = f" ({20 * math.log10(abs(gain)):.1f} dB)" if gain and math.isfinite(gain) else ""
+    if result.limiting_stage:
+        amplitude = f"{_q(result.max_source_amplitude, 'V')} peak, limited by {result.limiting_stage}"
+    else:
+        amplitude = f"{_q(result.max_source_amplitude, 'V')} (no stage clips)"
+    figures = [
+        ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}"),
+        ("input resistance", _q(result.input_resistance, "Ω")),
+        ("output resistance", _q(result.output_resistance, "Ω")),
+        ("largest source amplitude", amplitude),
+        ("supply current", _q(result.supply_current, "A")),
+    ]
+    width = max(len(name) for name, _ in figures)
+    return [f"  {name.ljust(width)}  {value}" for name, value in figures]
+
+
+def _verdict(result) -> tuple[int, str]:
+    out_of_region = [s.id for s in result.stages if s.transistor.region != "forward-active"]
+    if result.all_forward_active and not result.cautions:
+        return EXIT_OK, "OK: every stage forward-active, no cautions"
+    reasons = []
+    if out_of_region:
+        reasons.append(f"not forward-active: {', '.join(out_of_region)}")
+    if result.cautions:
+        n = len(result.cautions)
+        reasons.append(f"{n} caution{'s' if n != 1 else ''}")
+    return EXIT_NOT_OK, "NOT OK: " + "; ".join(reasons)
+
+
+def _report(plan, result, label: str, description: str) -> tuple[int, str]:
+    status, verdict = _verdict(result)
+    load = ("no load" if plan.load_resistance is None
+            else f"load {_q(plan.load_resistance, 'Ω')} ({plan.load_coupling}-coupled)")
+    lines = [f"ampplan check: {label} ({result.model} model)"]
+    if description:
+        lines += textwrap.wrap(description, width=96, initial_indent="  ", subsequent_indent="  ",
+                               break_on_hyphens=False)
+    lines += [f"  supply {_q(plan.supply, 'V')}, lower rail {_q(plan.negative_supply, 'V')}, "
+              f"source {_q(plan.source_resistance, 'Ω')}, {load}, {plan.temperature:g} °C", ""]
+    lines += _table(_stage_rows(result), right=set(range(3, 11)))
+    lines += ["", "chain"] + _chain_lines(result) + ["", "cautions"]
+    lines += [f"  - {c}" for c in result.cautions] or ["  none"]
+    lines += ["", f"{verdict} (exit status {status})"]
+    return status, "\n".join(lines)
+
+
+# ------------------------------------------------------------------------------------------------
+# Commands
+# ------------------------------------------------------------------------------------------------
+
+def _check(args, out, err) -> int:
+    try:
+        plan, label, description = _read(args)
+        _apply_settings(plan, args.set)
+    except (PlanFileError, _BadInput) as exc:
+        return _fail(args, err, out, EXIT_BAD_INPUT, str(exc))
+    try:
+        result = plan.solve(model=args.model)
+    except (NoConsistentRegionError, ConvergenceError) as exc:
+        return _fail(args, err, out, EXIT_NOT_OK, f"{label}: the solver could not settle the plan: {exc}")
+    except AmpplanError as exc:
+        return _fail(args, err, out, EXIT_BAD_INPUT, f"{label}: {exc}")
+    if args.json:
+        status, _ = _verdict(result)
+        print(json.dumps({**result.to_dict(), "exit_status": status}, indent=2, ensure_ascii=False,
+                         allow_nan=False), file=out)
+        return status
+    status, text = _report(plan, result, label, description)
+    print(text, file=out)
+    return status
+
+
+def _fail(args, err, out, status: int, message: str) -> int:
+    print(f"ampplan: {message}", file=err)
+    if getattr(args, "json", False):
+        print(json.dumps({"error": message, "exit_status": status}, ensure_ascii=False), file=out)
+    return status
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="ampplan", description="Plan and check the DC bias of multi-stage bipolar-transistor amplifiers.")
+    parser.add_argument("--version", action="version", version=f"ampplan {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND")
+    check = commands.add_parser(
+        "check", help="solve a plan file and report every stage",
+        description="Solve a plan file and report each stage's region, Q-point, margins, swing and gain, "
+                    "then the chain figures and cautions. Exit status: 0 when every stage is "
+                    "forward-active with no caution, 1 when not, 2 for bad input.")
+    check.add_argument("plan", nargs="?", metavar="PLAN.json", help="the plan file to check")
+    check.add_argument("--demo", action="store_true", help="check the demo plan shipped with ampplan")
+    check.add_argument("--model", choices=MODELS, default=MODELS[0],
+                       help=f"device model (default {MODELS[0]})")
+    check.add_argument("--json", action="store_true", help="print the result as JSON for machines")
+    check.add_argument("--set", action="append", metavar="ADDRESS=VALUE",
+                       help="change one value before solving, in engineering notation: s1.rc=4.7k, "
+                            "supply=15, s2.device.beta=80, s1.rb2=none (repeatable)")
+    check.set_defaults(run=_check)
+    return parser
+
+
+def main(argv=None) -> int:
+    """Run the command line; returns the exit status.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments after the program name (default: ``sys.argv[1:]``).
+    """
+    parser = _parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse exits on --help, --version and usage errors
+        return exc.code if isinstance(exc.code, int) else EXIT_BAD_INPUT
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return EXIT_BAD_INPUT
+    try:
+        return args.run(args, sys.stdout, sys.stderr)
+    except BrokenPipeError:  # the reader went away (``ampplan check --demo | head``)
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return EXIT_NOT_OK
+
+
+if __name__ == "__main__":
+    sys.exit(main())
