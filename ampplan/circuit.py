@@ -210,8 +210,13 @@ class Circuit:
 
     @property
     def nodes(self) -> tuple[str, ...]:
-        """Every node name but ground, in order of first use."""
-        return self.layout().nodes
+        """Every node name but ground, in order of first use (no topology check)."""
+        seen: dict[str, None] = {}
+        for e in self._elements.values():
+            for n in _terminals(e):
+                if n != GROUND:
+                    seen.setdefault(n, None)
+        return tuple(seen)
 
     def layout(self) -> "Layout":
         """The compiled layout of unknowns and index arrays (cached until the circuit changes)."""
@@ -220,7 +225,7 @@ class Circuit:
         return self._layout
 
     def solve(self, model: str = "constant-drop", temperature: float = 25.0, batch: dict | None = None,
-              active_edge: str = "vce-sat"):
+              active_edge: str = "vce-sat", assume: dict | None = None):
         """Solve the DC operating point.
 
         Parameters
@@ -235,13 +240,17 @@ class Circuit:
             (``"Q1.beta"``); ``"temperature"`` varies the temperature.
         active_edge : {"vce-sat", "vcb-zero"}
             Where forward-active ends: at V_CE = V_CE(sat) (default) or at V_CB = 0.
+        assume : dict of str -> str, optional
+            Constant-drop only: regions to assume and check, without search (see
+            :func:`ampplan.solver.solve`).
 
         Returns
         -------
         ampplan.solver.OperatingPoint
         """
         from .solver import solve
-        return solve(self, model=model, temperature=temperature, batch=batch, active_edge=active_edge)
+        return solve(self, model=model, temperature=temperature, batch=batch, active_edge=active_edge,
+                     assume=assume)
 
     def __repr__(self) -> str:
         counts = {}
@@ -314,12 +323,7 @@ class Layout:
         self.current_sources = circuit.of_kind(CurrentSource)
         self.capacitors = circuit.of_kind(Capacitor)
         self.bjts = circuit.of_kind(Bjt)
-        nodes: dict[str, None] = {}
-        for e in circuit.elements:
-            for n in _terminals(e):
-                if n != GROUND:
-                    nodes.setdefault(n, None)
-        self.nodes: tuple[str, ...] = tuple(nodes)
+        self.nodes: tuple[str, ...] = circuit.nodes
         self.n_nodes = len(self.nodes)
         self.n_vs = len(self.voltage_sources)
         self.n_bjt = len(self.bjts)

@@ -136,7 +136,7 @@ def _chain_lines(result) -> list[str]:
     else:
         amplitude = f"{_q(result.max_source_amplitude, 'V')} (no stage clips)"
     figures = [
-        ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}"),
+        ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}" if decibels else _gain(gain)),
         ("input resistance", _q(result.input_resistance, "Ω")),
         ("output resistance", _q(result.output_resistance, "Ω")),
         ("largest source amplitude", amplitude),

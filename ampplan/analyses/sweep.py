@@ -5,7 +5,8 @@ source of that value), the source EMF is stepped away from its Q-point value in 
 and every step is one sample of one batched solve. A coarse logarithmic grid brackets the first
 step at which any transistor is out of forward-active; a few rounds of finer grids narrow the
 bracket to a part in 10^9. For the constant-drop model the chain is piecewise linear, so the
-answer is exact to that resolution.
+answer is exact to that resolution; each step there checks the all-forward-active assignment
+(``assume=``), the branch a quasi-static sweep stays on while it is consistent.
 """
 
 from __future__ import annotations
@@ -80,18 +81,32 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
         span = max((abs(e.voltage) for e in circuit.of_kind(VoltageSource) if e.name != source), default=1.0)
         span = max(span, 1.0)
 
+    # The constant-drop chain stays on its forward-active branch for as long as that branch is
+    # consistent (the operating point moves continuously), so each step only has to check the
+    # all-forward-active assignment: one linear solve per step, no search.
+    assume = {n: "forward-active" for n in names} if model == "constant-drop" else None
+
     def leaving(steps):
         """For each step (signed volts): index of the first transistor out of forward-active, or -1."""
         res = circuit.solve(model=model, temperature=op.temperature, active_edge=active_edge,
-                            batch={source: base + steps})
-        regions = np.stack([res.transistors[n].region for n in names], axis=1)
-        out = (regions != "forward-active") | (res.status != "ok")[:, None]
-        first = np.where(out.any(axis=1), np.argmax(out, axis=1), -1)
-        return first, regions
+                            batch={source: base + steps}, assume=assume)
+        if assume is None:
+            out = np.stack([res.transistors[n].region != "forward-active" for n in names], axis=1)
+        else:
+            out = np.stack([~(res.transistors[n].checks[0].holds & res.transistors[n].checks[1].holds)
+                            for n in names], axis=1)
+        out |= (res.status != "ok")[:, None] & (res.status != "assumption-fails")[:, None]
+        return np.where(out.any(axis=1), np.argmax(out, axis=1), -1)
+
+    def entered(step, k):
+        """The region transistor k is in just past the edge (a full solve of that one step)."""
+        res = circuit.solve(model=model, temperature=op.temperature, active_edge=active_edge,
+                            batch={source: np.array([base + step])})
+        return str(res.transistors[names[k]].region[0])
 
     coarse = np.geomspace(1e-6 * span, 10.0 * span, COARSE_STEPS)
     # Both directions in one batch: positive steps first, then negative.
-    first, regions = leaving(np.concatenate([coarse, -coarse]))
+    first = leaving(np.concatenate([coarse, -coarse]))
     results = []
     for sign, part in ((1.0, slice(0, COARSE_STEPS)), (-1.0, slice(COARSE_STEPS, 2 * COARSE_STEPS))):
         hit = np.flatnonzero(first[part] >= 0)
@@ -108,7 +123,7 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
         grids = [np.linspace(results[k][0], results[k][1], REFINE_STEPS + 1)[1:] for k in open_]
         signs = [1.0 if k == 0 else -1.0 for k in open_]
         steps = np.concatenate([s * g for s, g in zip(signs, grids)])
-        first, _ = leaving(steps)
+        first = leaving(steps)
         for j, k in enumerate(open_):
             part = first[j * REFINE_STEPS:(j + 1) * REFINE_STEPS]
             h = int(np.flatnonzero(part >= 0)[0]) if np.any(part >= 0) else REFINE_STEPS - 1
@@ -121,8 +136,7 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
             final.append(r)
             continue
         step = (1.0 if k == 0 else -1.0) * r[1]
-        first, regions = leaving(np.array([step]))
-        idx = int(first[0]) if first[0] >= 0 else 0
-        final.append((0.5 * (r[0] + r[1]), stage_of[idx], str(regions[0, idx])))
+        idx = max(int(leaving(np.array([step]))[0]), 0)
+        final.append((0.5 * (r[0] + r[1]), stage_of[idx], entered(step, idx)))
     (pos, pos_stage, pos_region), (neg, neg_stage, neg_region) = final
     return Clipping(float(pos), float(neg), pos_stage, neg_stage, pos_region, neg_region)

@@ -12,7 +12,7 @@ from typing import Literal, get_args
 
 import numpy as np
 
-from ..errors import ConvergenceError, NoConsistentRegionError, UnknownModelError
+from ..errors import ConvergenceError, NoConsistentRegionError, UnknownModelError, UnknownNameError
 from . import constant_drop as cd
 from . import ebers_moll as em
 from .result import REGIONS, UNSOLVED, Check, OperatingPoint, TransistorResult
@@ -27,7 +27,7 @@ ACTIVE_EDGES: tuple[str, ...] = get_args(ActiveEdge)
 
 
 def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batch: dict | None = None,
-          active_edge: str = "vce-sat") -> OperatingPoint:
+          active_edge: str = "vce-sat", assume: dict | None = None) -> OperatingPoint:
     """Solve a circuit's DC operating point.
 
     Parameters
@@ -40,6 +40,11 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
         Values to vary (see :meth:`ampplan.Circuit.solve`).
     active_edge : {"vce-sat", "vcb-zero"}
         Constant-drop model only: the edge between forward-active and saturation.
+    assume : dict of str -> str, optional
+        Constant-drop model only: solve with these regions assumed (transistor name -> region,
+        every transistor named) and only check them, as in hand analysis. No search: where a
+        check fails the status is ``"assumption-fails"`` (the numbers are still reported, with the
+        failing checks), and a single solve does not raise.
 
     Returns
     -------
@@ -59,11 +64,39 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
     if active_edge not in ACTIVE_EDGES:
         raise UnknownModelError(f"unknown active_edge {active_edge!r}; choose one of {', '.join(ACTIVE_EDGES)}")
     layout = circuit.layout()
+    if assume is not None:
+        if model != "constant-drop":
+            raise UnknownModelError("assume= applies to the constant-drop model only")
+        names = [q.name for q in layout.bjts]
+        missing = [n for n in names if n not in assume]
+        extra = [n for n in assume if n not in names]
+        if missing or extra:
+            raise UnknownNameError("assume must name every transistor exactly once"
+                                   + (f"; missing {', '.join(missing)}" if missing else "")
+                                   + (f"; no transistor named {', '.join(extra)}" if extra else ""))
+        bad = {n: r for n, r in assume.items() if r not in REGIONS}
+        if bad:
+            raise UnknownModelError(f"assume: unknown region(s) {bad}; regions are {', '.join(REGIONS)}")
     params = layout.parameters(temperature=temperature, batch=batch)
     single = batch is None
     if model == "ebers-moll":
         return _solve_ebers_moll(circuit, layout, params, single)
+    if assume is not None:
+        return _solve_assumed(circuit, layout, params, single, active_edge,
+                              [REGIONS.index(assume[q.name]) for q in layout.bjts])
     return _solve_constant_drop(circuit, layout, params, single, active_edge)
+
+
+def _solve_assumed(circuit, layout, params, single, active_edge, codes):
+    """Constant-drop solve of one assumed assignment, checked but not searched."""
+    problem = cd.RegionProblem(layout, params, active_edge)
+    rows = np.arange(params.size)
+    regions = np.broadcast_to(np.array(codes, dtype=np.int8), (params.size, layout.n_bjt)).copy()
+    x, ok = problem.solve(rows, regions)
+    good, _, checks = problem.consistent(rows, regions, x, ok)
+    status = np.where(good, "ok", np.where(ok, "assumption-fails", "singular"))
+    return _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + checks, status,
+                  "constant-drop", "assumed regions", 1, single)
 
 
 # -- Ebers–Moll -----------------------------------------------------------------------------------
@@ -113,12 +146,13 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
     alternatives = []
     iterations = 0
     final = None
+    final_checks = None
 
     if single and n_q <= cd.ENUMERATION_LIMIT:
         method = "enumeration"
         every = cd.all_assignments(n_q)
         x, ok = problem.solve(np.zeros(len(every), dtype=np.intp), every)
-        good, score = problem.consistent(np.zeros(len(every), dtype=np.intp), every, x, ok)
+        good, score, every_checks = problem.consistent(np.zeros(len(every), dtype=np.intp), every, x, ok)
         iterations = len(every)
         candidates = np.flatnonzero(good)
         if candidates.size == 1:
@@ -138,12 +172,13 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
             alt_regions = every
             alt_x = x
             final = x[pick:pick + 1], ok[pick:pick + 1]
+            final_checks = tuple(a[pick:pick + 1] for a in every_checks)
     else:
         method = "search from Ebers–Moll guess"
         rows = np.arange(s_count)
         guess, iterations = _em_guess(layout, params, rows)
         x, ok = problem.solve(rows, guess)
-        good, _ = problem.consistent(rows, guess, x, ok)
+        good, _, _ = problem.consistent(rows, guess, x, ok)
         chosen[good], found[good] = guess[good], True
         left = np.flatnonzero(~good)
         if left.size and n_q <= cd.ENUMERATION_LIMIT:
@@ -152,7 +187,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
             samples = np.repeat(left, len(every))
             cands = np.tile(every, (left.size, 1))
             x, ok = problem.solve(samples, cands)
-            good_all, score = problem.consistent(samples, cands, x, ok)
+            good_all, score, _ = problem.consistent(samples, cands, x, ok)
             iterations += len(samples)
             good_all = good_all.reshape(left.size, len(every))
             distance = np.where(good_all, cd.hamming(every[None, :, :], guess[left][:, None, :]), n_q + 1)
@@ -176,7 +211,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
             # Alternatives within two region changes (one beyond a dozen transistors).
             around = cd.neighbours(chosen[0], 2 if n_q <= 12 else 1)
             ax, aok = problem.solve(np.zeros(len(around), dtype=np.intp), around)
-            agood, _ = problem.consistent(np.zeros(len(around), dtype=np.intp), around, ax, aok)
+            agood, _, _ = problem.consistent(np.zeros(len(around), dtype=np.intp), around, ax, aok)
             alternatives = _distinct_others(ax, np.flatnonzero(agood), 0, layout)
             alt_regions, alt_x = around, ax
 
@@ -185,7 +220,9 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
 
     rows = np.arange(s_count)
     x, ok = final if final is not None else problem.solve(rows, chosen)
-    checks = (problem.check_names(chosen),) + problem.checks(rows, chosen, x)
+    if final_checks is None:
+        final_checks = problem.checks(rows, chosen, x)
+    checks = (problem.check_names(chosen),) + final_checks
     found &= ok
     status = np.where(found, "ok", "no-consistent-region")
     result = _build(circuit, layout, params, x, chosen, checks, status, "constant-drop", method, iterations,
@@ -211,7 +248,7 @@ def _search_near(problem, u, guess):
     seen = {current.tobytes()}
     for _ in range(cd.REPAIR_ROUNDS):
         x, ok = problem.solve(np.array([u]), current)
-        good, _ = problem.consistent(np.array([u]), current, x, ok)
+        good, _, _ = problem.consistent(np.array([u]), current, x, ok)
         if good[0]:
             return current[0], [], len(seen)
         current = problem.repair(np.array([u]), current, x)
@@ -221,7 +258,7 @@ def _search_near(problem, u, guess):
     cands = cd.neighbours(guess, 2)
     samples = np.full(len(cands), u, dtype=np.intp)
     x, ok = problem.solve(samples, cands)
-    good, score = problem.consistent(samples, cands, x, ok)
+    good, score, _ = problem.consistent(samples, cands, x, ok)
     idx = np.flatnonzero(good)
     if idx.size:
         return cands[idx[np.argmin(cd.hamming(cands[idx], guess))]], [], len(cands)
@@ -279,7 +316,8 @@ def _replace(result, **changes):
 # -- results --------------------------------------------------------------------------------------
 def _build(circuit, layout, params, x, regions, checks, status, model, method, iterations, single):
     """Assemble an OperatingPoint from unknowns ``x`` (S, size + 1) and regions (S, N)."""
-    failed = status != "ok"
+    # Samples with no answer at all get NaN; an assumption that fails keeps its numbers.
+    failed = (status != "ok") & (status != "assumption-fails")
     x = x.copy()
     x[failed] = np.nan
     n = layout.size

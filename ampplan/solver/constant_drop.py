@@ -163,15 +163,17 @@ class RegionProblem:
         return table
 
     def consistent(self, samples, regions, x, ok):
-        """True where the solve succeeded and every check of every transistor holds; plus a
-        violation score (number of failed checks, then their size) for ranking near misses."""
-        values, limits, margins, holds = self.checks(samples, regions, x)
+        """True where the solve succeeded and every check of every transistor holds; a violation
+        score (number of failed checks, then their size) for ranking near misses; and the checks
+        themselves (as :meth:`checks` returns them)."""
+        checks = self.checks(samples, regions, x)
+        values, limits, margins, holds = checks
         good = ok & np.all(holds, axis=(1, 2))
         failed = np.sum(~holds, axis=(1, 2))
         with np.errstate(invalid="ignore"):
             size = np.nansum(np.where(holds, 0.0, -margins), axis=(1, 2))
         score = np.where(ok, failed + np.tanh(size), np.inf)
-        return good, score
+        return good, score, checks
 
     def repair(self, samples, regions, x):
         """Next guess: move each transistor whose check failed toward the region it points to."""

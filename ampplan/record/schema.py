@@ -1,0 +1,239 @@
+"""The plan-file JSON Schema, generated from the declarations, and validation against it.
+
+Nothing is retyped here: stage parameters come from each template's :class:`~ampplan.stages.Parameter`
+rows, plan values from :data:`ampplan.plan.PLAN_PARAMETERS`, transistor fields from the
+:class:`~ampplan.devices.Transistor` dataclass (types from its annotations, bounds from the devices
+module), custom-stage elements from the circuit element dataclasses.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import typing
+
+import jsonschema
+
+from ..circuit import Bjt, Capacitor, CurrentSource, Resistor, VoltageSource
+from ..devices import _BOUNDS as DEVICE_BOUNDS  # the devices module's one declaration of its bounds
+from ..devices import _MAY_BE_INFINITE as DEVICE_MAY_BE_INFINITE
+from ..devices import FIELDS as DEVICE_FIELDS
+from ..devices import Transistor
+from ..errors import PlanFileError
+from ..plan import COUPLINGS, PLAN_PARAMETERS
+from ..stages import TEMPLATES, CustomStage
+from .messages import messages_for, problems_text, shown
+
+__all__ = ["FORMAT", "VERSION", "INFINITY", "ELEMENT_TYPES", "PLAN_SCHEMA", "field_kinds", "validate_plan_dict"]
+
+#: Value of the ``format`` field of every plan file.
+FORMAT = "ampplan-plan"
+#: Newest format version this ampplan writes and reads.
+VERSION = 1
+#: How an infinite value is spelt in a plan file (JSON has no infinity).
+INFINITY = "inf"
+
+#: Custom-stage element types: file name -> (circuit element class, Circuit method that adds one).
+ELEMENT_TYPES: dict[str, tuple[type, str]] = {
+    "resistor": (Resistor, "resistor"),
+    "capacitor": (Capacitor, "capacitor"),
+    "voltage_source": (VoltageSource, "voltage_source"),
+    "current_source": (CurrentSource, "current_source"),
+    "transistor": (Bjt, "bjt"),
+}
+
+
+def _number(lower=None, inclusive=False, upper=None, unit="", nullable=False, infinite=False, help_=""):
+    """Schema of one number; ``unit`` is our own annotation, read back by the error messages."""
+    schema = {"type": "number"}
+    if lower is not None:
+        schema["minimum" if inclusive else "exclusiveMinimum"] = lower
+    if upper is not None and math.isfinite(upper):
+        schema["maximum"] = upper
+    if unit:
+        schema["unit"] = unit
+    branches = [schema]
+    if infinite:
+        branches.append({"const": INFINITY})
+    if nullable:
+        branches.append({"type": "null"})
+    out = schema if len(branches) == 1 else {"anyOf": branches}
+    if help_:
+        out = {**out, "description": help_}
+    return out
+
+
+def field_kinds(cls) -> dict[str, tuple[object, bool]]:
+    """Field name -> (base type, None allowed) from a dataclass's resolved annotations."""
+    out = {}
+    for name, hint in typing.get_type_hints(cls).items():
+        args = typing.get_args(hint)
+        nullable = type(None) in args
+        base = next((a for a in args if a is not type(None)), hint) if nullable else hint
+        out[name] = (base, nullable)
+    return out
+
+
+def _device_schema() -> dict:
+    """Every Transistor field, typed from its annotation, bounded by the devices module's bounds."""
+    properties = {}
+    for name, (base, nullable) in field_kinds(Transistor).items():
+        if typing.get_origin(base) is typing.Literal:
+            properties[name] = {"enum": list(typing.get_args(base))}
+            continue
+        low, inclusive = DEVICE_BOUNDS.get(name, (None, False))
+        properties[name] = _number(low, inclusive, nullable=nullable, infinite=name in DEVICE_MAY_BE_INFINITE)
+    return {"type": "object", "properties": properties, "required": list(DEVICE_FIELDS),
+            "additionalProperties": False}
+
+
+def _stage_schema(cls) -> dict:
+    properties = {"kind": {"const": cls.kind}, "coupling": {"enum": list(COUPLINGS)}}
+    for p in cls.PARAMETERS:
+        properties[p.name] = _number(p.minimum, False, p.maximum, p.unit, nullable=p.optional,
+                                     help_=f"{p.help} ({p.unit})")
+    properties["device"] = {"$ref": "#/$defs/device"}
+    return {"type": "object", "properties": properties, "required": list(properties),
+            "additionalProperties": False}
+
+
+def _element_schema(kind: str, cls: type) -> dict:
+    properties = {"type": {"const": kind}, "name": {"type": "string", "minLength": 1}}
+    terminals = []
+    for name, (base, nullable) in field_kinds(cls).items():
+        if name == "name":
+            continue
+        if base is str:
+            terminals.append(name)
+        elif base is Transistor:
+            properties["device"] = {"$ref": "#/$defs/device"}
+        else:
+            properties["value"] = _number(nullable=nullable, help_=f"{name} (SI units)")
+    properties["nodes"] = {"type": "array", "items": {"type": "string", "minLength": 1},
+                           "minItems": len(terminals), "maxItems": len(terminals), "terminals": terminals,
+                           "description": "terminal nodes in order: " + ", ".join(terminals)}
+    return {"type": "object", "properties": properties, "required": list(properties),
+            "additionalProperties": False}
+
+
+def _custom_stage_schema() -> dict:
+    dispatch = [{"if": {"properties": {"type": {"const": kind}}, "required": ["type"]},
+                 "then": {"$ref": f"#/$defs/element.{kind}"}} for kind in ELEMENT_TYPES]
+    element = {"type": "object", "required": ["type"],
+               "properties": {"type": {"enum": list(ELEMENT_TYPES)}}, "allOf": dispatch}
+    names = {f.name for f in dataclasses.fields(CustomStage)}
+    properties = {"kind": {"const": CustomStage.kind}, "coupling": {"enum": list(COUPLINGS)}}
+    for name in ("input", "output", "transistor"):
+        if name in names:
+            properties[name] = {"type": "string", "minLength": 1}
+    properties["elements"] = {"type": "array", "items": element}
+    return {"type": "object", "properties": properties, "required": list(properties),
+            "additionalProperties": False}
+
+
+def _plan_value_schema(name: str) -> dict:
+    unit, lower, optional, help_ = PLAN_PARAMETERS[name]
+    return _number(lower, False, unit=unit, nullable=optional, help_=help_)
+
+
+def _build_schema() -> dict:
+    defs = {"device": _device_schema()}
+    stage_dispatch = []
+    for kind, cls in TEMPLATES.items():
+        defs[f"stage.{kind}"] = _custom_stage_schema() if cls is CustomStage else _stage_schema(cls)
+        stage_dispatch.append({"if": {"properties": {"kind": {"const": kind}}, "required": ["kind"]},
+                               "then": {"$ref": f"#/$defs/stage.{kind}"}})
+    for kind, (cls, _method) in ELEMENT_TYPES.items():
+        defs[f"element.{kind}"] = _element_schema(kind, cls)
+    properties = {
+        "format": {"const": FORMAT},
+        "version": {"type": "integer", "minimum": 1, "maximum": VERSION},
+        "description": {"type": "string", "description": "free text about the plan"},
+    }
+    for name in PLAN_PARAMETERS:
+        properties[name] = _plan_value_schema(name)
+    properties["load_coupling"] = {"enum": list(COUPLINGS), "description": "how the load meets the last stage"}
+    properties["stages"] = {"type": "array", "items": {
+        "type": "object", "required": ["kind"], "properties": {"kind": {"enum": list(TEMPLATES)}},
+        "allOf": stage_dispatch}}
+    return {
+        "$schema": "https://json-schema.org/draft/2020-12/schema",
+        "title": f"ampplan plan file, format version {VERSION}",
+        "type": "object",
+        "properties": properties,
+        "required": [name for name in properties if name != "description"],
+        "additionalProperties": False,
+        "$defs": defs,
+    }
+
+
+#: JSON Schema (draft 2020-12) of a version-1 plan file, generated from the declarations.
+PLAN_SCHEMA: dict = _build_schema()
+jsonschema.Draft202012Validator.check_schema(PLAN_SCHEMA)
+_VALIDATOR = jsonschema.Draft202012Validator(PLAN_SCHEMA)
+
+
+def _walk_numbers(value, path=()):
+    """(path, message) for duplicate keys and numbers that are not finite floats.
+
+    Duplicate keys are known to objects the plan-file parser made (``duplicates``, see
+    :mod:`.files`); a number like ``1e400`` parses to infinity, which no schema keyword catches.
+    """
+    if isinstance(value, dict):
+        for key in getattr(value, "duplicates", ()):
+            yield path, f"key {key!r} appears more than once"
+        for key, item in value.items():
+            yield from _walk_numbers(item, path + (key,))
+    elif isinstance(value, list):
+        for k, item in enumerate(value):
+            yield from _walk_numbers(item, path + (k,))
+    elif isinstance(value, (int, float)) and not isinstance(value, bool):
+        try:
+            finite = math.isfinite(float(value))
+        except OverflowError:
+            finite = False
+        if not finite:
+            yield path, "number too large (beyond the ±1.8e308 range of a float)"
+
+
+def _check_header(data, source: str) -> None:
+    """Reject what is not a plan file at all, or is one of a newer version, before anything else."""
+    if not isinstance(data, dict):
+        raise PlanFileError(f"{source}: a plan file holds one JSON object at the top level, "
+                            f"got {shown(data) if not isinstance(data, list) else 'a list'}")
+    if "format" not in data:
+        raise PlanFileError(f"{source}: format: missing; this is not an ampplan plan file "
+                            f"(expected \"format\": \"{FORMAT}\")")
+    if data["format"] != FORMAT:
+        raise PlanFileError(f"{source}: format: expected \"{FORMAT}\", got {shown(data['format'])}; "
+                            "this is not an ampplan plan file")
+    version = data.get("version")
+    readable = f"format version {VERSION}" if VERSION == 1 else f"format versions 1 to {VERSION}"
+    if "version" not in data:
+        raise PlanFileError(f"{source}: version: missing (this ampplan reads {readable})")
+    if isinstance(version, bool) or not isinstance(version, int):
+        raise PlanFileError(f"{source}: version: must be a whole number, got {shown(version)}")
+    if version > VERSION:
+        raise PlanFileError(f"{source}: written by a newer ampplan (format version {version}; "
+                            f"this ampplan reads up to {VERSION})")
+    if version < 1:
+        raise PlanFileError(f"{source}: version: got {version}; this ampplan reads {readable}")
+
+
+def validate_plan_dict(data, source: str = "<plan>") -> None:
+    """Check a parsed plan file against :data:`PLAN_SCHEMA`.
+
+    Raises
+    ------
+    PlanFileError
+        Naming ``source`` and the JSON path of every bad value (the first :data:`~.messages.MAX_PROBLEMS`).
+    """
+    _check_header(data, source)
+    try:
+        problems = list(_walk_numbers(data))
+        for error in _VALIDATOR.iter_errors(data):
+            problems += messages_for(error)
+    except RecursionError:
+        raise PlanFileError(f"{source}: values are nested too deeply to be a plan file") from None
+    if problems:
+        raise PlanFileError(problems_text(source, problems, data))
