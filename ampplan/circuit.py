@@ -137,10 +137,15 @@ class Circuit:
         self._layout = None
 
     def resistor(self, name: str, a: str, b: str, resistance: float) -> None:
-        """Add a resistor of ``resistance`` ohms (> 0, finite) between nodes ``a`` and ``b``."""
+        """Add a resistor of ``resistance`` ohms between nodes ``a`` and ``b``.
+
+        The value must lie within RESISTANCE_RANGE (1 µΩ to 1 TΩ): beyond it the equations lose
+        their precision in double arithmetic, so a short or an open should be drawn as one.
+        """
         _check_name("resistor", name)
-        self._add(Resistor(name, _check_node(name, "a", a), _check_node(name, "b", b),
-                           _finite(name, "resistance", resistance, positive=True)))
+        value = _finite(name, "resistance", resistance, positive=True)
+        _check_resistance_range(name, value)
+        self._add(Resistor(name, _check_node(name, "a", a), _check_node(name, "b", b), value))
 
     def voltage_source(self, name: str, plus: str, minus: str, voltage: float) -> None:
         """Add an ideal source holding V(plus) - V(minus) = ``voltage`` volts."""
@@ -258,6 +263,20 @@ class Circuit:
             counts[type(e).__name__] = counts.get(type(e).__name__, 0) + 1
         body = ", ".join(f"{n} {k}" for k, n in counts.items()) or "empty"
         return f"Circuit({body})"
+
+
+#: Smallest and largest resistance accepted, ohms.
+RESISTANCE_RANGE = (1e-6, 1e12)
+
+
+def _check_resistance_range(where: str, value) -> None:
+    low, high = RESISTANCE_RANGE
+    arr = np.asarray(value, dtype=float)
+    bad = (arr < low) | (arr > high)
+    if np.any(bad):
+        first = arr.flat[int(np.argmax(bad))]
+        raise InvalidValueError(f"{where}: resistance {first!r} Ω is outside {low:g} Ω … {high:g} Ω; "
+                                "draw a short or an open as such instead")
 
 
 def _did_you_mean(name: str, choices) -> str:
@@ -544,6 +563,8 @@ class Layout:
                     what = "> 0 and finite" if isinstance(element, (Resistor, Capacitor)) else "finite"
                     raise InvalidValueError(f"batch[{key!r}]: {_VALUE_FIELD[type(element)]} must be {what}, "
                                             f"got {values[first]!r} at sample {first}")
+                if isinstance(element, Resistor):
+                    _check_resistance_range(f"batch[{key!r}]", values)
                 overrides[key] = values
 
         def column(elements, field, transform=lambda x: x):

@@ -94,56 +94,7 @@ def _apply_settings(plan, settings) -> None:
 def _q(value, unit: str = "") -> str:
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
-    if isinstance(value, float) and math.isinf(value):
-        return ("-" if value < 0 else "") + "∞" + (f" {unit}" if unit else "")
     return format_quantity(value, unit)
-
-
-def _gain(value: float) -> str:
-    if value is None or not math.isfinite(value):
-        return _q(value)
-    return f"{value:.4g}"
-
-
-def _table(rows: list[tuple[str, ...]], right: set[int]) -> list[str]:
-    widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
-
-    def line(row):
-        return "  ".join(c.rjust(w) if k in right else c.ljust(w) for k, (c, w) in enumerate(zip(row, widths)))
-
-    out = [line(rows[0]).rstrip(), "  ".join("-" * w for w in widths)]
-    out += [line(row).rstrip() for row in rows[1:]]
-    return out
-
-
-def _stage_rows(result) -> list[tuple[str, ...]]:
-    rows = [("stage", "kind", "region", "I_C", "V_CE", "sat. margin", "cutoff margin", "swing pk", "gain",
-             "R_in", "R_out")]
-    for s in result.stages:
-        t = s.transistor
-        flag = "!" if (t.region != "forward-active" or s.cautions) else " "
-        rows.append((f"{flag}{s.id}", s.kind, t.region, _q(t.ic, "A"), _q(t.vce, "V"),
-                     _q(s.saturation_margin, "V"), _q(s.cutoff_margin, "A"), _q(s.swing.peak, "V"),
-                     _gain(s.gain), _q(s.input_resistance, "Ω"), _q(s.output_resistance, "Ω")))
-    return rows
-
-
-def _chain_lines(result) -> list[str]:
-    gain = result.gain
-    decibels = f" ({20 * math.log10(abs(gain)):.1f} dB)" if gain and math.isfinite(gain) else ""
-    if result.limiting_stage:
-        amplitude = f"{_q(result.max_source_amplitude, 'V')} peak, limited by {result.limiting_stage}"
-    else:
-        amplitude = f"{_q(result.max_source_amplitude, 'V')} (no stage clips)"
-    figures = [
-        ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}" if decibels else _gain(gain)),
-        ("input resistance", _q(result.input_resistance, "Ω")),
-        ("output resistance", _q(result.output_resistance, "Ω")),
-        ("largest source amplitude", amplitude),
-        ("supply current", _q(result.supply_current, "A")),
-    ]
-    width = max(len(name) for name, _ in figures)
-    return [f"  {name.ljust(width)}  {value}" for name, value in figures]
 
 
 def _verdict(result) -> tuple[int, str]:
@@ -169,8 +120,7 @@ def _report(plan, result, label: str, description: str) -> tuple[int, str]:
                                break_on_hyphens=False)
     lines += [f"  supply {_q(plan.supply, 'V')}, lower rail {_q(plan.negative_supply, 'V')}, "
               f"source {_q(plan.source_resistance, 'Ω')}, {load}, {plan.temperature:g} °C", ""]
-    lines += _table(_stage_rows(result), right=set(range(3, 11)))
-    lines += ["", "chain"] + _chain_lines(result) + ["", "cautions"]
+    lines += [result.table(), "", "chain", result.summary(), "", "cautions"]
     lines += [f"  - {c}" for c in result.cautions] or ["  none"]
     lines += ["", f"{verdict} (exit status {status})"]
     return status, "\n".join(lines)

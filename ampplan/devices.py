@@ -140,8 +140,8 @@ FIELDS: tuple[str, ...] = tuple(f.name for f in dataclasses.fields(Transistor))
 #: Numeric parameters (everything but polarity), the ones a batch may vary.
 PARAMETERS: tuple[str, ...] = tuple(f for f in FIELDS if f != "polarity")
 
-# (lower bound, lower inclusive) for each numeric parameter; unlisted ones only need to be finite.
-_BOUNDS = {
+#: (lower bound, lower inclusive) of each numeric parameter; unlisted ones only need to be finite.
+PARAMETER_BOUNDS = {
     "beta": (0.0, False),
     "beta_reverse": (0.0, False),
     "vbe_on": (0.0, False),
@@ -155,16 +155,17 @@ _BOUNDS = {
     "max_collector_current": (0.0, False),
     "max_vce": (0.0, False),
 }
-_MAY_BE_INFINITE = {"early_voltage", "max_power", "max_collector_current", "max_vce"}
+#: Parameters that may be infinite (no Early effect, no rating).
+MAY_BE_INFINITE = {"early_voltage", "max_power", "max_collector_current", "max_vce"}
 
 
 def check_parameter(name: str, value, where: str = "Transistor"):
     """Raise InvalidValueError unless ``value`` (scalar or array) is allowed for parameter ``name``."""
     arr = np.asarray(value, dtype=float)
-    bad_nan = np.isnan(arr) | (np.isinf(arr) & (name not in _MAY_BE_INFINITE))
+    bad_nan = np.isnan(arr) | (np.isinf(arr) & (name not in MAY_BE_INFINITE))
     if np.any(bad_nan):
         raise InvalidValueError(f"{where} parameter {name} must be finite, got {value!r}")
-    lower = _BOUNDS.get(name)
+    lower = PARAMETER_BOUNDS.get(name)
     if lower is not None:
         low, inclusive = lower
         bad = arr < low if inclusive else arr <= low

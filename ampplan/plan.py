@@ -14,7 +14,7 @@ from typing import Literal, get_args
 from .circuit import GROUND, Circuit
 from .devices import FIELDS as DEVICE_FIELDS
 from .errors import InvalidValueError, UnknownModelError, UnknownNameError
-from .stages import CustomStage, Rails, Stage, StageNodes
+from .stages import Parameter, Rails, Stage, StageNodes
 
 __all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PLAN_PARAMETERS"]
 
@@ -27,18 +27,23 @@ SUPPLY, NEGATIVE_SUPPLY, SOURCE, SOURCE_RESISTOR, LOAD_RESISTOR, LOAD_CAPACITOR 
 #: Nodes of the plan's own: source EMF, source output, load.
 EMF_NODE, SOURCE_NODE, LOAD_NODE = "emf", "source_out", "load"
 
-# Plan-level numbers: (name, unit, lower bound exclusive or None, may be None, help).
-PLAN_PARAMETERS = {
-    "supply": ("V", None, False, "positive supply rail, volts"),
-    "negative_supply": ("V", None, False, "lower rail (0 for ground, negative for a split supply), volts"),
-    "source_resistance": ("Ω", None, False, "signal source resistance, ohms (0 for an ideal source)"),
-    "load_resistance": ("Ω", 0.0, True, "load resistance, ohms (None: no load)"),
-    "temperature": ("°C", -273.15, False, "ambient and junction temperature, degrees Celsius"),
-    "resistor_power_rating": ("W", 0.0, False, "power rating of every resistor, watts"),
-    "min_headroom": ("V", None, False, "caution when V_CE is closer than this to V_CE(sat), volts"),
-    "coupling_capacitance": ("F", 0.0, True, "value of every coupling capacitor, farads (None: not chosen)"),
-    "bypass_capacitance": ("F", 0.0, True, "default bypass capacitor value, farads (None: not chosen)"),
-}
+#: Plan-level numbers, declared once: validation, the plan-file schema and docs come from here.
+PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
+    Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, optional=False, scale="linear"),
+    Parameter("negative_supply", "V", 0.0, "lower rail (0 for ground, negative for a split supply), volts",
+              minimum=-math.inf, maximum=0.0, optional=False, scale="linear"),
+    Parameter("source_resistance", "Ω", 0.0, "signal source resistance, ohms (0 for an ideal source)",
+              minimum=0.0, minimum_inclusive=True, optional=False),
+    Parameter("load_resistance", "Ω", None, "load resistance, ohms (None: no load)"),
+    Parameter("temperature", "°C", 25.0, "ambient and junction temperature, degrees Celsius",
+              minimum=-273.15, optional=False, scale="linear"),
+    Parameter("resistor_power_rating", "W", 0.25, "power rating of every resistor, watts (common practice)",
+              optional=False),
+    Parameter("min_headroom", "V", 1.0, "caution when V_CE is closer than this to the forward-active edge, volts",
+              minimum=0.0, minimum_inclusive=True, optional=False, scale="linear"),
+    Parameter("coupling_capacitance", "F", None, "value of every coupling capacitor, farads (None: not chosen)"),
+    Parameter("bypass_capacitance", "F", None, "default bypass capacitor value, farads (None: not chosen)"),
+)}
 
 
 @dataclass
@@ -93,14 +98,23 @@ class Plan:
     min_headroom : float
         A caution fires when a transistor's V_CE is closer than this to V_CE(sat), volts
         (1 V: common practice, no source).
+    load_coupling : {"capacitor", "direct"}
+    coupling_capacitance, bypass_capacitance : float or None
+        Farads; open at DC and shorts at midband whatever their value.
+    description : str
+        Free text about the design.
     """
 
     def __init__(self, supply: float = 12.0, negative_supply: float = 0.0, source_resistance: float = 0.0,
                  load_resistance: float | None = None, temperature: float = 25.0, *,
                  load_coupling: str = "capacitor", resistor_power_rating: float = 0.25,
                  min_headroom: float = 1.0, coupling_capacitance: float | None = None,
-                 bypass_capacitance: float | None = None):
+                 bypass_capacitance: float | None = None, description: str = ""):
         self._entries: list[StageEntry] = []
+        if not isinstance(description, str):
+            raise InvalidValueError(f"Plan.description must be text, got {type(description).__name__}")
+        #: Free text about the design (kept in the plan file).
+        self.description = description
         for name, value in (("supply", supply), ("negative_supply", negative_supply),
                             ("source_resistance", source_resistance), ("load_resistance", load_resistance),
                             ("temperature", temperature), ("resistor_power_rating", resistor_power_rating),
@@ -111,30 +125,10 @@ class Plan:
 
     # -- plan-level values --------------------------------------------------------------------
     def _set_plan_value(self, name, value):
-        unit, lower, optional, help_ = PLAN_PARAMETERS[name]
-        if value is None:
-            if not optional:
-                raise InvalidValueError(f"Plan.{name}: is required ({help_})")
-            object.__setattr__(self, "_" + name, None)
-            return
-        if isinstance(value, bool):
-            raise InvalidValueError(f"Plan.{name}: must be a number, got {value!r}")
-        try:
-            number = float(value)
-        except (TypeError, ValueError):
-            raise InvalidValueError(f"Plan.{name}: must be a number, got {value!r}") from None
-        if not math.isfinite(number):
-            raise InvalidValueError(f"Plan.{name}: must be finite, got {value!r}")
-        if name == "source_resistance" and number < 0:
-            raise InvalidValueError(f"Plan.source_resistance: must be >= 0 Ω, got {value!r}")
-        if name == "min_headroom" and number < 0:
-            raise InvalidValueError(f"Plan.min_headroom: must be >= 0 V, got {value!r}")
-        if name == "negative_supply" and number > 0:
-            raise InvalidValueError(f"Plan.negative_supply: must be <= 0 V (the lower rail), got {value!r}")
-        if name == "supply" and number <= 0:
-            raise InvalidValueError(f"Plan.supply: must be > 0 V, got {value!r}")
-        if lower is not None and number <= lower:
-            raise InvalidValueError(f"Plan.{name}: must be > {lower:g} {unit}, got {value!r}")
+        number = PLAN_PARAMETERS[name].check(value, f"Plan.{name}")
+        if name == "source_resistance" and number is not None and 0 < number < 1e-6:
+            # Below a micro-ohm the source would swamp the equations' precision; 0 is the ideal source.
+            raise InvalidValueError(f"Plan.source_resistance: must be 0 (an ideal source) or >= 1 µΩ, got {value!r}")
         object.__setattr__(self, "_" + name, number)
 
     supply = property(lambda self: self._supply, lambda self, v: self._set_plan_value("supply", v))
@@ -245,6 +239,9 @@ class Plan:
         if rest == "coupling":
             if value not in COUPLINGS:
                 raise UnknownModelError(f"{address} must be one of {', '.join(COUPLINGS)}, got {value!r}")
+            if value == "capacitor" and not entry.stage.has_base_bias():
+                raise InvalidValueError(f"{head}: a capacitor-coupled {type(entry.stage).__name__} needs its own "
+                                        "base bias (rb1 and/or rb2, or rf)")
             entry.coupling = value
             return
         if rest.startswith("device."):

@@ -45,9 +45,11 @@ class Parameter:
         SI unit symbol (``"Ω"``, ``"F"``).
     default : float or None
     minimum : float
-        Exclusive lower bound (values must be greater).
+        Lower bound: values must be greater (or equal when ``minimum_inclusive``).
     maximum : float
         Inclusive upper bound.
+    minimum_inclusive : bool
+        Whether ``minimum`` itself is allowed.
     scale : {"log", "linear"}
         How a control should move it.
     optional : bool
@@ -63,6 +65,7 @@ class Parameter:
     maximum: float = math.inf
     scale: Scale = "log"
     optional: bool = True
+    minimum_inclusive: bool = False
 
     def check(self, value, where: str):
         """Return ``value`` as float (or None), raising InvalidValueError naming ``where``."""
@@ -76,10 +79,19 @@ class Parameter:
             number = float(value)
         except (TypeError, ValueError):
             raise InvalidValueError(f"{where}: must be a number, got {value!r}") from None
-        if not math.isfinite(number) or number <= self.minimum or number > self.maximum:
-            bound = f"> {self.minimum:g}" + (f" and <= {self.maximum:g}" if math.isfinite(self.maximum) else "")
-            raise InvalidValueError(f"{where}: must be {bound} {self.unit}, got {value!r}".replace("  ", " "))
+        below = number < self.minimum if self.minimum_inclusive else number <= self.minimum
+        if not math.isfinite(number) or below or number > self.maximum:
+            raise InvalidValueError(f"{where}: must be {self.bounds_text()}, got {value!r}")
         return number
+
+    def bounds_text(self) -> str:
+        """The allowed range in words, e.g. ``"> 0 Ω"`` or ``">= 0 V and <= 60 V"``."""
+        parts = []
+        if math.isfinite(self.minimum):
+            parts.append(f"{'>=' if self.minimum_inclusive else '>'} {self.minimum:g} {self.unit}".rstrip())
+        if math.isfinite(self.maximum):
+            parts.append(f"<= {self.maximum:g} {self.unit}".rstrip())
+        return " and ".join(parts) or "finite"
 
 
 @dataclass(frozen=True)

@@ -14,6 +14,9 @@ from .errors import InvalidValueError
 
 __all__ = ["parse_quantity", "format_quantity"]
 
+# Plain-ASCII spellings accepted for unit symbols.
+_ASCII_UNITS = {"Ω": "Ohm", "°C": "C"}
+
 
 def parse_quantity(text, unit: str = "") -> float:
     """Read ``"4.7k"``, ``"100u"``, ``"2.2 MΩ"`` or a plain number as a float in SI base units.
@@ -23,9 +26,15 @@ def parse_quantity(text, unit: str = "") -> float:
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         return float(text)
     try:
-        return float(Quantity(str(text).strip(), units=unit or None))
+        quantity = Quantity(str(text).strip())
     except (InvalidNumber, ValueError) as exc:
         raise InvalidValueError(f"cannot read {text!r} as a quantity{' in ' + unit if unit else ''}") from exc
+    # Anything after the number must be the expected unit (or nothing): quantiphy would otherwise
+    # read "4k7" as 4 with a unit "k7", or "1meg" as 1 m with a unit "eg".
+    if quantity.units and quantity.units not in {unit, _ASCII_UNITS.get(unit, unit)}:
+        raise InvalidValueError(f"cannot read {text!r} as a quantity{' in ' + unit if unit else ''}: "
+                                f"unexpected {quantity.units!r} after the number (write 4.7k, 100u, 2.2M)")
+    return float(quantity)
 
 
 def format_quantity(value: float, unit: str = "", digits: int = 4) -> str:

@@ -13,11 +13,15 @@ __all__ = ["LoadLine", "LoadLines", "Swing", "Clipping", "StageResult", "PlanRes
 
 
 def _q(value, unit=""):
-    if value is None:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
     if isinstance(value, float) and math.isinf(value):
-        return "∞" + (f" {unit}" if unit else "")
+        return ("-" if value < 0 else "") + "∞" + (f" {unit}" if unit else "")
     return format_quantity(value, unit)
+
+
+def _gain(value) -> str:
+    return f"{value:.4g}" if value is not None and math.isfinite(value) else _q(value)
 
 
 @dataclass(frozen=True)
@@ -246,38 +250,53 @@ class PlanResult:
         raise KeyError(sid)
 
     def table(self) -> str:
-        """A fixed-width text table a designer reads at a glance."""
-        head = ("stage", "kind", "region", "I_C", "V_CE", "headroom", "swing pk", "gain", "R_in", "R_out")
-        rows = [head]
+        """A fixed-width text table a designer reads at a glance; ``!`` marks a stage out of
+        forward-active or with a caution."""
+        rows = [("stage", "kind", "region", "I_C", "V_CE", "sat. margin", "cutoff margin", "swing pk", "gain",
+                 "R_in", "R_out")]
         for s in self.stages:
             t = s.transistor
-            rows.append((s.id, s.kind, t.region, _q(t.ic, "A"), _q(t.vce, "V"), _q(s.saturation_margin, "V"),
-                         _q(s.swing.peak, "V"), f"{s.gain:.4g}", _q(s.input_resistance, "Ω"),
-                         _q(s.output_resistance, "Ω")))
-        widths = [max(len(r[k]) for r in rows) for k in range(len(head))]
-        lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
-        lines.insert(1, "  ".join("-" * w for w in widths))
-        return "\n".join(lines)
+            flag = "!" if (t.region != "forward-active" or s.cautions) else " "
+            rows.append((f"{flag}{s.id}", s.kind, t.region, _q(t.ic, "A"), _q(t.vce, "V"),
+                         _q(s.saturation_margin, "V"), _q(s.cutoff_margin, "A"), _q(s.swing.peak, "V"),
+                         _gain(s.gain), _q(s.input_resistance, "Ω"), _q(s.output_resistance, "Ω")))
+        widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
+        right = set(range(3, len(widths)))
+
+        def line(row):
+            return "  ".join(c.rjust(w) if k in right else c.ljust(w)
+                             for k, (c, w) in enumerate(zip(row, widths))).rstrip()
+
+        out = [line(rows[0]), "  ".join("-" * w for w in widths)] + [line(row) for row in rows[1:]]
+        if any(row[0].startswith("!") for row in rows[1:]):
+            out.append("(! out of forward-active or with a caution)")
+        return "\n".join(out)
 
     def summary(self) -> str:
         """The chain figures, one per line."""
-        limit = (f"{_q(self.max_source_amplitude, 'V')} peak at the source, limited by {self.limiting_stage}"
-                 if self.limiting_stage else f"{_q(self.max_source_amplitude, 'V')} (no stage clips)")
-        return "\n".join([
-            f"gain (load/source EMF): {self.gain:.4g} V/V",
-            f"input resistance: {_q(self.input_resistance, 'Ω')}, output resistance: "
-            f"{_q(self.output_resistance, 'Ω')}",
-            f"largest source amplitude: {limit} (load-line estimate {_q(self.max_source_amplitude_estimate, 'V')})",
-            f"supply current: {_q(self.supply_current, 'A')}, supply power: {_q(self.supply_power, 'W')}",
-        ])
+        gain = self.gain
+        decibels = f" ({20 * math.log10(abs(gain)):.1f} dB)" if gain and math.isfinite(gain) else ""
+        if self.limiting_stage:
+            amplitude = f"{_q(self.max_source_amplitude, 'V')} peak, limited by {self.limiting_stage}"
+        else:
+            amplitude = f"{_q(self.max_source_amplitude, 'V')} (no stage clips)"
+        figures = [
+            ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}"),
+            ("input resistance", _q(self.input_resistance, "Ω")),
+            ("output resistance", _q(self.output_resistance, "Ω")),
+            ("largest source amplitude", amplitude),
+            ("  load-line estimate", f"{_q(self.max_source_amplitude_estimate, 'V')} peak"),
+            ("supply current", _q(self.supply_current, "A")),
+            ("supply power", _q(self.supply_power, "W")),
+        ]
+        width = max(len(name) for name, _ in figures)
+        return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
 
     def __repr__(self) -> str:
         out = [f"PlanResult({self.model}, {len(self.stages)} stage(s), "
                f"{'all forward-active' if self.all_forward_active else 'NOT all forward-active'})",
-               self.table(), self.summary()]
-        if self.cautions:
-            out.append("cautions:")
-            out += [f"  - {c}" for c in self.cautions]
+               self.table(), "chain", self.summary(), "cautions"]
+        out += [f"  - {c}" for c in self.cautions] or ["  none"]
         return "\n".join(out)
 
     def _repr_html_(self) -> str:

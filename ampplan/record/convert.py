@@ -69,7 +69,8 @@ def plan_to_dict(plan: Plan, description: str | None = None) -> dict:
     ----------
     plan : Plan
     description : str, optional
-        Free text stored as the file's ``description``; left out when None.
+        Free text stored as the file's ``description``; None takes ``plan.description`` (left out
+        when empty).
 
     Returns
     -------
@@ -79,7 +80,8 @@ def plan_to_dict(plan: Plan, description: str | None = None) -> dict:
     if not isinstance(plan, Plan):
         raise TypeError(f"plan_to_dict expects an ampplan Plan, got {type(plan).__name__}")
     out = {"format": FORMAT, "version": VERSION}
-    if description is not None:
+    description = plan.description if description is None else description
+    if description:
         out["description"] = str(description)
     for name in PLAN_PARAMETERS:
         out[name] = _out(getattr(plan, name))
@@ -203,7 +205,8 @@ def plan_from_dict(data, source: str = "<plan>") -> Plan:
     if problems:
         raise PlanFileError(problems_text(source, problems, data))
     try:
-        plan = Plan(**{name: _value(data[name]) for name in PLAN_PARAMETERS}, load_coupling=data["load_coupling"])
+        plan = Plan(**{name: _value(data[name]) for name in PLAN_PARAMETERS}, load_coupling=data["load_coupling"],
+                    description=data.get("description", ""))
     except AmpplanError as exc:
         raise PlanFileError(f"{source}: {exc}") from None
     for k, (stage, raw) in enumerate(zip(stages, data["stages"])):

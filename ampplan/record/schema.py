@@ -15,8 +15,8 @@ import typing
 import jsonschema
 
 from ..circuit import Bjt, Capacitor, CurrentSource, Resistor, VoltageSource
-from ..devices import _BOUNDS as DEVICE_BOUNDS  # the devices module's one declaration of its bounds
-from ..devices import _MAY_BE_INFINITE as DEVICE_MAY_BE_INFINITE
+from ..devices import MAY_BE_INFINITE as DEVICE_MAY_BE_INFINITE
+from ..devices import PARAMETER_BOUNDS as DEVICE_BOUNDS
 from ..devices import FIELDS as DEVICE_FIELDS
 from ..devices import Transistor
 from ..errors import PlanFileError
@@ -132,8 +132,9 @@ def _custom_stage_schema() -> dict:
 
 
 def _plan_value_schema(name: str) -> dict:
-    unit, lower, optional, help_ = PLAN_PARAMETERS[name]
-    return _number(lower, False, unit=unit, nullable=optional, help_=help_)
+    p = PLAN_PARAMETERS[name]
+    lower = p.minimum if math.isfinite(p.minimum) else None
+    return _number(lower, p.minimum_inclusive, upper=p.maximum, unit=p.unit, nullable=p.optional, help_=p.help)
 
 
 def _build_schema() -> dict:
