@@ -354,9 +354,9 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
         if single:
             chk = tuple(Check(str(nm[c]), va[c], li[c], bool(ho[c]), ma[c]) for c in range(2))
         else:
-            chk = tuple(Check(nm[:, c].astype(str), va[:, c], li[:, c], ho[:, c], ma[:, c]) for c in range(2))
+            chk = tuple(Check(nm[:, c], va[:, c], li[:, c], ho[:, c], ma[:, c]) for c in range(2))
         transistors[q.name] = TransistorResult(
-            name=q.name, polarity=q.device.polarity, region=str(reg) if single else reg.astype(str),
+            name=q.name, polarity=q.device.polarity, region=str(reg) if single else reg,
             ic=c_, ib=b_, ie=e_, vbe=be_, vce=ce_, beta_forced=f_, power=p_, checks=chk)
     return OperatingPoint(
         model=model, v=v, i=currents, transistors=transistors,

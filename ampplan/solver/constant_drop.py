@@ -155,7 +155,7 @@ class RegionProblem:
         return values, limits, margins, holds
 
     def check_names(self, regions):
-        """Names of the checks of ``regions`` (K, N), as an object array (K, N, 2)."""
+        """Names of the checks of ``regions`` (K, N), as a str array (K, N, 2)."""
         npn = self.layout.sign > 0
         edge_slot = 1 if self.active_edge == "vcb-zero" else 0
         table = np.where(npn[None, :, None], _NAMES_NPN[edge_slot][regions.astype(np.intp)],
@@ -199,12 +199,12 @@ _QUANTITY = (np.array([[0, 1], [4, 2], [4, 5], [4, 2]]), np.array([[0, 1], [4, 3
 _LIMIT = (np.array([[0, 1], [3, 2], [3, 4], [3, 5]]), np.array([[0, 1], [3, 3], [3, 4], [3, 5]]))
 _DIRECTION = np.array([[-1, -1], [1, 1], [1, -1], [1, -1]])
 _IS_CURRENT = np.array([[False, False], [True, False], [True, True], [True, False]])
-_NAMES_NPN = tuple(np.array(t, dtype=object) for t in (
+_NAMES_NPN = tuple(np.array(t, dtype=str) for t in (
     [["V_BE < V_BE(on)", "V_BC < V_BC(on)"], ["I_B > 0", "V_CE >= V_CE(sat)"],
      ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_CE <= -V_CE(sat)"]],
     [["V_BE < V_BE(on)", "V_BC < V_BC(on)"], ["I_B > 0", "V_CB >= 0"],
      ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_CE <= -V_CE(sat)"]]))
-_NAMES_PNP = tuple(np.array(t, dtype=object) for t in (
+_NAMES_PNP = tuple(np.array(t, dtype=str) for t in (
     [["V_EB < V_EB(on)", "V_CB < V_CB(on)"], ["I_B > 0", "V_EC >= V_EC(sat)"],
      ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_EC <= -V_EC(sat)"]],
     [["V_EB < V_EB(on)", "V_CB < V_CB(on)"], ["I_B > 0", "V_BC >= 0"],

@@ -40,6 +40,8 @@ SOURCE_STEPS = 20
 RELATIVE_TOLERANCE = 1e-9
 VOLTAGE_TOLERANCE = 1e-9    # volts
 CURRENT_TOLERANCE = 1e-15   # amperes
+#: Amperes: the device-versus-linearised current test is relative above this (nA currents included).
+FIT_TOLERANCE = 1e-21
 
 
 def _exp(arg):
@@ -145,11 +147,13 @@ class NewtonProblem:
         x, v_old, converged (bool (S',)), iterations (int (S',))
         """
         lay = self.layout
-        params = _take(self.params, rows)
+        every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
+        pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
+        params = _take(self.params, rows, device=False) if not every else self.params
         base, rhs0 = lay.assemble(params, source_scale=scale, gmin=gmin, reduced=True)
         nu = base.shape[1] - 1
-        dev = {k: v[rows] for k, v in self.dev.items()}
-        v_t, nvt, v_crit = self.v_t[rows], self.nvt[rows], self.v_crit[rows]
+        dev = {k: pick(self.dev[k]) for k in _MODEL_PARAMETERS}
+        v_t, nvt, v_crit = pick(self.v_t), pick(self.nvt), pick(self.v_crit)
         abs_tol = self.abs_tol[:nu]
         converged = np.zeros(len(rows), dtype=bool)
         iterations = np.zeros(len(rows), dtype=int)
@@ -163,9 +167,13 @@ class NewtonProblem:
             if not gathered:
                 # Gather the still-active samples once per change of the active set.
                 gathered = True
-                base_act, rhs_act = base[active], rhs0[active]
-                d_act = {k: v[active] for k, v in dev.items()}
-                vt_act, nvt_act, crit_act = v_t[active], nvt[active], v_crit[active]
+                if active.size == len(rows):
+                    base_act, rhs_act, d_act = base, rhs0, dev
+                    vt_act, nvt_act, crit_act = v_t, nvt, v_crit
+                else:
+                    base_act, rhs_act = base[active], rhs0[active]
+                    d_act = {k: v[active] for k, v in dev.items()}
+                    vt_act, nvt_act, crit_act = v_t[active], nvt[active], v_crit[active]
             xa = x[active]
             vbe_raw, vbc_raw = self.junctions(xa)
             vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_act, crit_act)
@@ -181,14 +189,22 @@ class NewtonProblem:
             step = np.abs(u - xa[:, :nu])
             small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:, :nu])) + abs_tol,
                            axis=1)
-            done = ok & small & ~was_limited
             iterations[active] += 1
             # I_B and I_C from the companion model at the new voltages.
             new = xa.copy()
             new[:, :nu] = u
             vbe_new, vbc_new = self.junctions(new)
-            new[:, lay.q_ib] = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
-            new[:, lay.q_ic] = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+            lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
+            lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+            new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
+            # Converged when the step is negligible, or when the device's own currents at the new
+            # voltages already match the linearised ones (which Kirchhoff's law holds exactly):
+            # the second test spares the confirming iteration.
+            true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, vt_act)
+            fits = np.all((np.abs(true_b - lin_b) <= RELATIVE_TOLERANCE * np.abs(lin_b) + FIT_TOLERANCE)
+                          & (np.abs(true_c - lin_c) <= RELATIVE_TOLERANCE * np.abs(lin_c) + FIT_TOLERANCE),
+                          axis=1)
+            done = ok & ((small & ~was_limited) | fits)
             x[active] = np.where(ok[:, None], new, xa)
             vbe_old[active], vbc_old[active] = vbe, vbc
             converged[active[done]] = True
@@ -218,10 +234,16 @@ class NewtonProblem:
                 rhs[:, node] -= sign * s * j
 
 
-def _take(params, rows):
+#: The device parameters the Ebers–Moll equations read.
+_MODEL_PARAMETERS = ("beta", "beta_reverse", "saturation_current", "early_voltage", "emission_coefficient")
+
+
+def _take(params, rows, device: bool = True):
+    """Samples ``rows`` of ``params`` (without device parameters when ``device`` is False)."""
     from ..circuit import Parameters
     return Parameters(conductance=params.conductance[rows], voltage=params.voltage[rows],
-                      current=params.current[rows], device={k: v[rows] for k, v in params.device.items()},
+                      current=params.current[rows],
+                      device={k: v[rows] for k, v in params.device.items()} if device else {},
                       temperature=params.temperature[rows])
 
 
@@ -341,31 +363,30 @@ def classify(layout, params, x):
     sat = dev["vce_sat"]
     be, bc = v_be >= on_be, v_bc >= on_bc
     regions = np.where(~be & ~bc, 0, np.where(v_ce >= sat, 1, np.where(v_ce <= -sat, 3, 2)))
-    npn = s > 0
-    names = np.empty(regions.shape + (2,), dtype=object)
-    values = np.empty(regions.shape + (2,))
-    limits = np.empty(regions.shape + (2,))
-    sign_of = np.empty(regions.shape + (2,))     # +1: value >= limit wanted; -1: value < limit
-    cases = {
-        0: (("V_BE < V_BE(on) - 0.2 V", "V_EB < V_EB(on) - 0.2 V", v_be, on_be, -1),
-            ("V_BC < V_BC(on) - 0.2 V", "V_CB < V_CB(on) - 0.2 V", v_bc, on_bc, -1)),
-        1: (("V_BE >= V_BE(on) - 0.2 V", "V_EB >= V_EB(on) - 0.2 V", v_be, on_be, 1),
-            ("V_CE >= V_CE(sat)", "V_EC >= V_EC(sat)", v_ce, sat, 1)),
-        2: (("V_CE < V_CE(sat)", "V_EC < V_EC(sat)", v_ce, sat, -1),
-            ("V_CE > -V_CE(sat)", "V_EC > -V_EC(sat)", v_ce, -sat, 1)),
-        3: (("V_BC >= V_BC(on) - 0.2 V", "V_CB >= V_CB(on) - 0.2 V", v_bc, on_bc, 1),
-            ("V_CE <= -V_CE(sat)", "V_EC <= -V_EC(sat)", v_ce, -sat, -1)),
-    }
-    for code, pair in cases.items():
-        here = regions == code
-        for k, (n_npn, n_pnp, value, limit, direction) in enumerate(pair):
-            names[..., k] = np.where(here, np.where(npn, n_npn, n_pnp), names[..., k])
-            values[..., k] = np.where(here, value, values[..., k])
-            limits[..., k] = np.where(here, limit, limits[..., k])
-            sign_of[..., k] = np.where(here, direction, sign_of[..., k])
-    margins = np.where(sign_of > 0, values - limits, limits - values)
+    # Table lookup of each region's two checks (as in constant_drop): quantities
+    # (v_be, v_bc, v_ce), limits (on_be, on_bc, V_CE(sat), -V_CE(sat)), direction +1 for
+    # "value above limit".
+    quantities = np.stack([v_be, v_bc, v_ce], axis=-1)
+    bounds = np.stack([on_be, on_bc, sat, -sat], axis=-1)
+    values = np.take_along_axis(quantities, _EM_QUANTITY[regions], axis=2)
+    limits = np.take_along_axis(bounds, _EM_LIMIT[regions], axis=2)
+    margins = np.where(_EM_DIRECTION[regions] > 0, values - limits, limits - values)
+    names = np.where((s > 0)[None, :, None], _EM_NAMES_NPN[regions], _EM_NAMES_PNP[regions])
     return regions, (names, values, limits, margins)
 
 
 #: Volts below the constant-drop on-voltage at which a junction counts as conducting.
 CONDUCTION_MARGIN = 0.2
+
+# The classification checks per region (rows: cutoff, forward-active, saturation, reverse-active).
+_EM_QUANTITY = np.array([[0, 1], [0, 2], [2, 2], [1, 2]])
+_EM_LIMIT = np.array([[0, 1], [0, 2], [2, 3], [1, 3]])
+_EM_DIRECTION = np.array([[-1, -1], [1, 1], [-1, 1], [1, -1]])
+_EM_NAMES_NPN = np.array([["V_BE < V_BE(on) - 0.2 V", "V_BC < V_BC(on) - 0.2 V"],
+                          ["V_BE >= V_BE(on) - 0.2 V", "V_CE >= V_CE(sat)"],
+                          ["V_CE < V_CE(sat)", "V_CE > -V_CE(sat)"],
+                          ["V_BC >= V_BC(on) - 0.2 V", "V_CE <= -V_CE(sat)"]], dtype=str)
+_EM_NAMES_PNP = np.array([["V_EB < V_EB(on) - 0.2 V", "V_CB < V_CB(on) - 0.2 V"],
+                          ["V_EB >= V_EB(on) - 0.2 V", "V_EC >= V_EC(sat)"],
+                          ["V_EC < V_EC(sat)", "V_EC > -V_EC(sat)"],
+                          ["V_CB >= V_CB(on) - 0.2 V", "V_EC <= -V_EC(sat)"]], dtype=str)
