@@ -208,7 +208,11 @@ def test_batch_equals_one_by_one(case, model):
             "transistors": {n: {f: _field(getattr(t, f), k) for f in ("ic", "ib", "ie", "vbe", "vce")}
                             for n, t in op_b.transistors.items()},
         }
-        bad = compare(got, as_solution(op_1), 1e-9, sample)
+        # Ebers–Moll: Newton stops once an iterate fits to 1e-9, and a batch sample starts from a
+        # solved neighbour while a single solve starts from its own guess, so the two agree to
+        # that tolerance of the circuit's voltages, not to the last bit.
+        floor = 1.0 if model == "ebers-moll" else 1e-3
+        bad = compare(got, as_solution(op_1), 1e-9, sample, voltage_floor=floor)
         assert not bad, f"sample {k}:\n" + "\n".join(bad)
 
 

@@ -161,6 +161,7 @@ class NewtonProblem:
         vbe_old, vbc_old = v_old
         x = x.copy()
         gathered = False
+        ahead = None     # device currents at the latest iterate, reused when it is not limited
         for _ in range(max_iterations):
             if active.size == 0:
                 break
@@ -179,7 +180,10 @@ class NewtonProblem:
             vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_act, crit_act)
             vbc = _limit_junction(vbc_raw, vbc_old[active], nvt_act, crit_act)
             was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
-            i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_act)
+            if ahead is not None and not was_limited.any():
+                i_b, i_c, d = ahead          # evaluated at exactly these voltages last time round
+            else:
+                i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_act)
             # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
             j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
             j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
@@ -200,7 +204,7 @@ class NewtonProblem:
             # Converged when the step is negligible, or when the device's own currents at the new
             # voltages already match the linearised ones (which Kirchhoff's law holds exactly):
             # the second test spares the confirming iteration.
-            true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, vt_act)
+            true_b, true_c, d_new = device_currents(vbe_new, vbc_new, d_act, vt_act)
             fits = np.all((np.abs(true_b - lin_b) <= RELATIVE_TOLERANCE * np.abs(lin_b) + FIT_TOLERANCE)
                           & (np.abs(true_c - lin_c) <= RELATIVE_TOLERANCE * np.abs(lin_c) + FIT_TOLERANCE),
                           axis=1)
@@ -210,9 +214,11 @@ class NewtonProblem:
             converged[active[done]] = True
             # A singular or non-finite iterate ends that sample's attempt; a fallback takes over.
             still = ~done & ok
+            ahead = (true_b, true_c, d_new)
             if not np.all(still):
                 active = active[still]
                 gathered = False
+                ahead = (true_b[still], true_c[still], {k: v[still] for k, v in d_new.items()})
         return x, (vbe_old, vbc_old), converged, iterations
 
     def _stamp_companion(self, matrix, rhs, d, j_b, j_c):
@@ -371,7 +377,7 @@ def classify(layout, params, x):
     values = np.take_along_axis(quantities, _EM_QUANTITY[regions], axis=2)
     limits = np.take_along_axis(bounds, _EM_LIMIT[regions], axis=2)
     margins = np.where(_EM_DIRECTION[regions] > 0, values - limits, limits - values)
-    names = np.where((s > 0)[None, :, None], _EM_NAMES_NPN[regions], _EM_NAMES_PNP[regions])
+    names = _EM_NAMES[(s < 0).astype(np.intp)[None, :, None], regions[:, :, None], np.arange(2)[None, None, :]]
     return regions, (names, values, limits, margins)
 
 
@@ -382,11 +388,11 @@ CONDUCTION_MARGIN = 0.2
 _EM_QUANTITY = np.array([[0, 1], [0, 2], [2, 2], [1, 2]])
 _EM_LIMIT = np.array([[0, 1], [0, 2], [2, 3], [1, 3]])
 _EM_DIRECTION = np.array([[-1, -1], [1, 1], [-1, 1], [1, -1]])
-_EM_NAMES_NPN = np.array([["V_BE < V_BE(on) - 0.2 V", "V_BC < V_BC(on) - 0.2 V"],
+_EM_NAMES = np.array([[["V_BE < V_BE(on) - 0.2 V", "V_BC < V_BC(on) - 0.2 V"],
                           ["V_BE >= V_BE(on) - 0.2 V", "V_CE >= V_CE(sat)"],
                           ["V_CE < V_CE(sat)", "V_CE > -V_CE(sat)"],
-                          ["V_BC >= V_BC(on) - 0.2 V", "V_CE <= -V_CE(sat)"]], dtype=str)
-_EM_NAMES_PNP = np.array([["V_EB < V_EB(on) - 0.2 V", "V_CB < V_CB(on) - 0.2 V"],
+                          ["V_BC >= V_BC(on) - 0.2 V", "V_CE <= -V_CE(sat)"]],
+                      [["V_EB < V_EB(on) - 0.2 V", "V_CB < V_CB(on) - 0.2 V"],
                           ["V_EB >= V_EB(on) - 0.2 V", "V_EC >= V_EC(sat)"],
                           ["V_EC < V_EC(sat)", "V_EC > -V_EC(sat)"],
-                          ["V_CB >= V_CB(on) - 0.2 V", "V_EC <= -V_EC(sat)"]], dtype=str)
+                          ["V_CB >= V_CB(on) - 0.2 V", "V_EC <= -V_EC(sat)"]]], dtype=str)   # [npn, pnp]
