@@ -8,10 +8,11 @@ Prints
     Ebers–Moll path, against a plain Python loop of ``scipy.optimize.root`` per sample on an
     independent KCL residual of the same Ebers–Moll equations (written below, sharing no code
     with ampplan). The loop runs on a subset and is scaled linearly to 10,000; both answers
-    must agree to 1e-6 relative on that subset, or the script exits with status 1. The loop
-    is given every advantage a careful user would give it (an analytic Jacobian, each sample
-    warm-started from the nominal answer, while ampplan's batch starts cold), so the ratio is
-    conservative; the same loop with root's own finite-difference Jacobian is printed beside it;
+    must agree to 1e-6 relative on that subset, or the script exits with status 1. The plain
+    loop calls root with its defaults (hybr, its own finite-difference Jacobian), each sample
+    starting from the nominal answer (ampplan's batch likewise starts every sample from one
+    solved sample); the same loop given an analytic Jacobian is printed beside it as a
+    stronger reference;
 (c) the constant-drop batch of the same 10,000 parameter sets.
 
 The targets (issue 2 §8, for a 2-core machine) are printed beside the figures. Missing a
@@ -41,8 +42,9 @@ import ampplan  # noqa: E402
 
 SAMPLES = 10_000
 LOOP_SAMPLES = 200          # the scipy loop runs on this many samples, scaled linearly
+ROUNDS = 5                  # interleaved timing rounds of the batch and the loops; best of each
 AGREEMENT = 1e-6            # relative
-SEED = 20260101
+RANDOM_STATE = 20260101
 
 # Targets from issue 2 §8.
 TARGET_SINGLE_CD_3Q_MS = 1.0
@@ -300,30 +302,37 @@ def draw_batch(netlist: dict, rng: np.random.Generator) -> dict:
 def bench_batch() -> bool:
     netlist = CIRCUITS[3]
     c = to_circuit(netlist)
-    batch = draw_batch(netlist, np.random.default_rng(SEED))
+    batch = draw_batch(netlist, np.random.default_rng(RANDOM_STATE))
     q_names = [q[0] for q in netlist["transistors"]]
 
     print(f"(b) batch of {SAMPLES:,} parameter sets, 3-transistor chain, Ebers–Moll")
     op = c.solve(model="ebers-moll", batch=batch)
-    t_batch = median_time(lambda: c.solve(model="ebers-moll", batch=batch), repeat=3, warmup=0)
+    residual = KclResidual(netlist, DEVICE)
+    nominal_r = np.array([r[3] for r in netlist["resistors"]])
+    x_nominal = nominal_start(residual, nominal_r, np.full(len(q_names), DEVICE.beta), 12.0)
+    # The machine is shared, so the batch and both loops are timed in interleaved rounds and each
+    # keeps its best round: the ratio compares like with like even when the load drifts.
+    batch_times, loop_times, fd_times = [], [], []
+    for _ in range(ROUNDS):
+        batch_times.append(median_time(lambda: c.solve(model="ebers-moll", batch=batch), repeat=1, warmup=0))
+        loop_v, failures, t = scipy_loop(residual, batch, q_names, x_nominal, jacobian=True)
+        loop_times.append(t)
+        _, failures_fd, t = scipy_loop(residual, batch, q_names, x_nominal, jacobian=False)
+        fd_times.append(t)
+    t_batch, t_loop_subset, t_fd_subset = min(batch_times), min(loop_times), min(fd_times)
     n_ok = int(np.sum(op.status == "ok"))
+    print(f"    (best of {ROUNDS} interleaved rounds each)")
     print(f"    ampplan batched Ebers–Moll:  {t_batch:.3f} s for {SAMPLES:,} samples "
           f"({t_batch / SAMPLES * 1e6:.1f} µs/sample), {n_ok:,} converged")
     print(f"    regions: {region_counts(op, q_names)}")
 
-    # The plain loop: scipy.optimize.root per sample, each warm-started from the nominal answer.
-    residual = KclResidual(netlist, DEVICE)
-    nominal_r = np.array([r[3] for r in netlist["resistors"]])
-    x_nominal = nominal_start(residual, nominal_r, np.full(len(q_names), DEVICE.beta), 12.0)
-    loop_v, failures, t_loop_subset = scipy_loop(residual, batch, q_names, x_nominal, jacobian=True)
     t_loop = t_loop_subset * SAMPLES / LOOP_SAMPLES
-    print("    plain loop of scipy.optimize.root (hybr, analytic Jacobian, warm start at the nominal answer):")
+    print("    loop of scipy.optimize.root given an analytic Jacobian (hybr, start at the nominal answer):")
     print(f"        {t_loop_subset:.3f} s for the first {LOOP_SAMPLES} samples, scaled linearly to {SAMPLES:,}: "
           f"{t_loop:.2f} s ({t_loop_subset / LOOP_SAMPLES * 1e3:.2f} ms/sample, {failures} did not converge)")
-    _, failures_fd, t_fd_subset = scipy_loop(residual, batch, q_names, x_nominal, jacobian=False)
     t_fd = t_fd_subset * SAMPLES / LOOP_SAMPLES
     failures += failures_fd
-    print("    the same loop with root's own finite-difference Jacobian (for reference):")
+    print("    plain loop of scipy.optimize.root with its defaults (hybr, its own finite-difference Jacobian):")
     print(f"        {t_fd_subset:.3f} s for the first {LOOP_SAMPLES} samples, scaled linearly to {SAMPLES:,}: "
           f"{t_fd:.2f} s ({t_fd_subset / LOOP_SAMPLES * 1e3:.2f} ms/sample, {failures_fd} did not converge)")
 
@@ -337,13 +346,14 @@ def bench_batch() -> bool:
     agree = bool(max(rel_v, rel_i) <= AGREEMENT and failures == 0 and n_ok == SAMPLES)
     print(f"    agreement on those {LOOP_SAMPLES} samples: node voltages {rel_v:.1e}, collector currents "
           f"{rel_i:.1e} relative (required <= {AGREEMENT:g}): {'agree' if agree else 'DISAGREE'}")
-    ratio = t_loop / t_batch
-    print(f"    speed-up, batched vs loop (same run): {ratio:,.0f}x against the analytic-Jacobian loop, "
-          f"{t_fd / t_batch:,.0f}x against the finite-difference one")
+    plain, tuned = t_fd / t_batch, t_loop / t_batch
+    print(f"    speed-up, batched vs loop (same run): {plain:,.0f}x against the plain loop (root's defaults), "
+          f"{tuned:,.0f}x against the analytic-Jacobian loop")
     print(f"    target: {SAMPLES:,}-sample Ebers–Moll batch < {TARGET_BATCH_EM_S:g} s -> {t_batch:.3f} s, "
           f"{verdict(t_batch < TARGET_BATCH_EM_S)}")
-    print(f"    target: >= {TARGET_RATIO:g}x faster than the loop (the analytic-Jacobian one) -> {ratio:,.0f}x, "
-          f"{verdict(ratio >= TARGET_RATIO)}")
+    print(f"    target: >= {TARGET_RATIO:g}x faster than the plain loop -> {plain:,.0f}x, "
+          f"{verdict(plain >= TARGET_RATIO)} (against the analytic-Jacobian loop: {tuned:,.0f}x, "
+          f"{verdict(tuned >= TARGET_RATIO)})")
     print()
 
     print(f"(c) batch of the same {SAMPLES:,} parameter sets, constant-drop")
