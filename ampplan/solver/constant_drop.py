@@ -32,6 +32,7 @@ when it must break a tie, which gives the same answer as the order above at a fr
 
 from __future__ import annotations
 
+import functools
 import itertools
 
 import numpy as np
@@ -211,10 +212,13 @@ _NAMES_PNP = tuple(np.array(t, dtype=str) for t in (
      ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_EC <= -V_EC(sat)"]]))
 
 
+@functools.lru_cache(maxsize=None)
 def all_assignments(n: int) -> np.ndarray:
-    """Every region assignment of n transistors, shape (4^n, n), all forward-active first."""
+    """Every region assignment of n transistors, shape (4^n, n), all forward-active first (read-only)."""
     order = (ACTIVE, CUTOFF, SATURATION, REVERSE)
-    return np.array(list(itertools.product(order, repeat=n)), dtype=np.int8).reshape(-1, n)
+    table = np.array(list(itertools.product(order, repeat=n)), dtype=np.int8).reshape(-1, n)
+    table.flags.writeable = False
+    return table
 
 
 def neighbours(guess: np.ndarray, distance: int) -> np.ndarray:
