@@ -363,7 +363,7 @@ class CustomStage(Stage):
                 raise InvalidValueError(f"CustomStage element {name!r} is a transistor; set its device instead")
             attr = next(a for a in ("resistance", "voltage", "current", "capacitance") if hasattr(old, a))
             circuit.remove(name)
-            _readd(circuit, dataclasses.replace(old, **{attr: value}))
+            circuit.add(dataclasses.replace(old, **{attr: value}))
         return CustomStage(circuit=circuit, input=self.input, output=self.output, transistor=self.transistor)
 
     def has_base_bias(self):
@@ -387,17 +387,6 @@ class CustomStage(Stage):
                 circuit.bjt(new_name, rename(e.collector), rename(e.base), rename(e.emitter), e.device)
             added.append(new_name)
         return StageNodes(input_node, rename(self.output), f"{sid}_{self.transistor}", tuple(added))
-
-
-def _readd(circuit: Circuit, element) -> None:
-    if isinstance(element, Resistor):
-        circuit.resistor(element.name, element.a, element.b, element.resistance)
-    elif isinstance(element, Capacitor):
-        circuit.capacitor(element.name, element.a, element.b, element.capacitance)
-    elif isinstance(element, VoltageSource):
-        circuit.voltage_source(element.name, element.plus, element.minus, element.voltage)
-    elif isinstance(element, CurrentSource):
-        circuit.current_source(element.name, element.from_node, element.to_node, element.current)
 
 
 #: Templates by their plan-file ``kind``.
