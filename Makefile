@@ -25,8 +25,11 @@ test: $(VENV)/.stamp-test
 bench: $(VENV)/.stamp-test
 	$(BIN)/python tests/benchmarks/bench_solver.py
 
+# JupyterLab listens on this machine only; root (a container, say) needs --allow-root.
+ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)
+
 lab: $(VENV)/.stamp-lab
-	$(BIN)/jupyter lab --notebook-dir=notebooks
+	$(BIN)/jupyter lab --notebook-dir=notebooks --ServerApp.ip=127.0.0.1 $(ROOT_FLAG)
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .hypothesis
