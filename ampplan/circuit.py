@@ -437,7 +437,7 @@ class Layout:
         np.add.at(a, (self.q_e, self.q_ic), -s)
         return a
 
-    def assemble(self, params: Parameters, source_scale=1.0, gmin=0.0, reduced: bool = False):
+    def assemble(self, params: Parameters, source_scale=1.0, ladder_conductance=0.0, reduced: bool = False):
         """Linear part of the equations for every sample.
 
         Parameters
@@ -446,7 +446,7 @@ class Layout:
             S samples of element values.
         source_scale : float or ndarray of shape (S,)
             Multiplies every independent source (source stepping).
-        gmin : float or ndarray of shape (S,)
+        ladder_conductance : float or ndarray of shape (S,)
             Conductance from every node to ground, siemens (the conductance ladder).
         reduced : bool
             Leave out the transistor-current unknowns and their rows (for a device model that
@@ -466,9 +466,9 @@ class Layout:
         # (elements, n·n) replace loops over elements and samples.
         matrix = (params.conductance @ resistors).reshape(s_count, n, n)
         matrix += structure
-        if np.any(gmin):
+        if np.any(ladder_conductance):
             diag = np.arange(self.n_nodes)
-            matrix[:, diag, diag] += np.reshape(gmin, (-1, 1))
+            matrix[:, diag, diag] += np.reshape(ladder_conductance, (-1, 1))
         scale = np.reshape(np.asarray(source_scale, dtype=float), (-1, 1))
         rhs = (params.voltage * scale) @ volts + (params.current * scale) @ amps
         return matrix, rhs

@@ -223,7 +223,7 @@ def scaled_to_temperature(devices: dict, temperature):
     -----
     Saturation current (Gray & Meyer, *Analysis and Design of Analog Integrated Circuits*, the
     I_S(T) relation of the bipolar chapter, from memory):
-    ``I_S(T) = I_S(T0) · (T/T0)^(XT/n) · exp(E_g·q/(n·k) · (1/T0 - 1/T))`` with XT the
+    ``I_S(T) = I_S(T0) · (T/T0)^(m/n) · exp(E_g·q/(n·k) · (1/T0 - 1/T))`` with m the
     ``saturation_current_exponent``, E_g the ``bandgap_energy`` and T in kelvin.
     Constant-drop voltages move linearly: ``V(T) = V(T0) + vbe_temperature_coefficient·(T - T0)``.
     β is held constant. At T = T0 = 25 °C nothing changes.

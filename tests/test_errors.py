@@ -241,3 +241,20 @@ def test_bad_batch_value(key, values):
 def test_batch_arrays_of_different_lengths():
     c = ref.to_circuit(BATCH_CIRCUIT)
     _raises_naming(errors.AmpplanError, ["RC", "VCC"], lambda: c.solve(batch={"RC": [1e3, 2e3], "VCC": [5.0, 6.0, 7.0]}))
+
+
+def test_batch_whose_later_sample_fails_its_warm_start():
+    # Regression: sample 0 solves, sample 1 has no operating point (a current source pulls
+    # 10 µA out of the base, which no region allows: issue 2 §5, a failed sample gets a status).
+    # Both models must report it per sample, in either order, without raising.
+    for model, status in (("constant-drop", "no-consistent-region"), ("ebers-moll", "no-convergence")):
+        for order in ([-1e-5, 1e-5], [1e-5, -1e-5]):
+            c = ampplan.Circuit()
+            c.voltage_source("V", "vcc", "gnd", 5.0)
+            c.current_source("I", "b", "gnd", 1e-5)
+            c.resistor("RC", "vcc", "c", 1e3)
+            c.bjt("Q", "c", "b", "gnd", ampplan.Transistor())
+            op = c.solve(model=model, batch={"I": order})
+            bad = order.index(1e-5)
+            assert op.status[bad] == status and op.status[1 - bad] == "ok"
+            assert math.isnan(op.transistors["Q"].ic[bad])

@@ -130,7 +130,7 @@ class NewtonProblem:
         s = lay.sign
         return s * (x[:, lay.q_b] - x[:, lay.q_e]), s * (x[:, lay.q_b] - x[:, lay.q_c])
 
-    def newton(self, rows, x, v_old, gmin=0.0, scale=1.0, max_iterations=MAX_ITERATIONS):
+    def newton(self, rows, x, v_old, ladder_conductance=0.0, scale=1.0, max_iterations=MAX_ITERATIONS):
         """Newton iterations on the samples ``rows`` (index array), from iterate ``x``.
 
         The iterations run on the reduced system of node voltages and source currents: each
@@ -154,7 +154,7 @@ class NewtonProblem:
         every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
         pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
         params = _take(self.params, rows, device=False) if not every else self.params
-        base, rhs0 = lay.assemble(params, source_scale=scale, gmin=gmin, reduced=True)
+        base, rhs0 = lay.assemble(params, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
         nu = base.shape[1] - 1
         # Drop ground's spare row and column once, so each iteration's matrix is contiguous.
         base, rhs0 = np.ascontiguousarray(base[:, :nu, :nu]), np.ascontiguousarray(rhs0[:, :nu])
@@ -332,14 +332,14 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
             unsolved = []
             for at in range(1, s_count, BLOCK):
                 rows = left[at:at + BLOCK]
-                start = np.repeat(x[first], rows.size, axis=0)
-                unsolved.append(attempt(rows, start, problem.junctions(start), "newton",
+                warm = np.repeat(x[first], rows.size, axis=0)
+                unsolved.append(attempt(rows, warm, problem.junctions(warm), "newton",
                                         max_iterations=WARM_ITERATIONS))
             left = np.concatenate(unsolved)
     left = left[~converged[left]]
     if left.size:
         left = attempt(left, *own_start(left), "newton")
-    for label, rungs in (("conductance ladder", [{"gmin": g} for g in LADDER]),
+    for label, rungs in (("conductance ladder", [{"ladder_conductance": g} for g in LADDER]),
                          ("source stepping", [{"scale": a} for a in np.linspace(0.0, 1.0, SOURCE_STEPS + 1)])):
         if not left.size:
             break
