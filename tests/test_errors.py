@@ -258,3 +258,30 @@ def test_batch_whose_later_sample_fails_its_warm_start():
             bad = order.index(1e-5)
             assert op.status[bad] == status and op.status[1 - bad] == "ok"
             assert math.isnan(op.transistors["Q"].ic[bad])
+
+
+def test_circuit_without_transistors_solves_and_empty_circuit_is_refused():
+    # A plain divider (Ohm's law: 5 V at the midpoint of two equal resistors on 10 V) solves with
+    # both models; an empty circuit is refused with a clear message, not a numpy error.
+    c = ampplan.Circuit()
+    c.voltage_source("V", "vcc", "gnd", 10.0)
+    c.resistor("R1", "vcc", "m", 1e3)
+    c.resistor("R2", "m", "gnd", 1e3)
+    for model in ("constant-drop", "ebers-moll"):
+        assert math.isclose(c.solve(model=model).v["m"], 5.0, rel_tol=1e-12)
+    with pytest.raises(errors.InvalidValueError, match="empty"):
+        ampplan.Circuit().solve()
+
+
+def test_junction_held_far_forward_by_ideal_sources_is_no_operating_point():
+    # An ideal 4.5 V source straight across a base-emitter junction has no physical answer: the
+    # Ebers–Moll solve must say so rather than report amperes on exp()'s linear continuation.
+    c = ampplan.Circuit()
+    c.voltage_source("V", "vcc", "gnd", 10.0)
+    c.voltage_source("VB", "b", "gnd", 4.5)
+    c.resistor("RC", "vcc", "c", 1e3)
+    c.bjt("Q", "c", "b", "gnd", ampplan.Transistor())
+    with pytest.raises(errors.ConvergenceError, match="ideal sources"):
+        c.solve(model="ebers-moll")
+    op = c.solve(model="ebers-moll", batch={"VB": [0.6, 4.5]})
+    assert list(op.status) == ["ok", "no-convergence"]

@@ -325,17 +325,19 @@ def test_cc_swing_against_load_line(polarity):
     assert close(s.swing.toward_cutoff, t.ie * par(re, rl))
 
 
-def _sweep_closed_form(polarity, i_b, vce, beta, rs, r_bias, r_emitter, r_collector):
+def _sweep_closed_form(polarity, i_b, vce, beta, rs, r_bias, r_emitter, r_collector, r_pi):
     """Source excursions at which a single stage leaves forward-active, constant-drop model.
 
-    Re-derived here: capacitors hold their Q-point voltages, V_BE stays V_BE(on), so for an EMF step e
-    the base sees the Thevenin source e R_B/(R_B + R_s) behind R_B || R_s; the base current moves by
-    k e with k = (R_B/(R_B + R_s)) / (R_B || R_s + (β + 1) R_e,ac); I_C by β k e; and V_CE by
+    Re-derived here: capacitors hold their Q-point voltages; the bias is the constant-drop one and
+    the excursion about it follows the hybrid-π model (V_BE moves by r_π·ΔI_B, r_π = β·V_T/I_CQ;
+    Sedra & Smith, hybrid-π section, from memory), so for an EMF step e the base sees the Thevenin
+    source e R_B/(R_B + R_s) behind R_B || R_s; the base current moves by k e with
+    k = (R_B/(R_B + R_s)) / (R_B || R_s + r_π + (β + 1) R_e,ac); I_C by β k e; and V_CE by
     -k e (β R_c,ac + (β + 1) R_e,ac). Saturation when V_CE falls by V_CEQ - V_CE(sat); cutoff when
     the base current falls by I_BQ. For a PNP a positive EMF step lowers |I_C|.
     Returns {"positive": (volts, region), "negative": (volts, region)}.
     """
-    k = (r_bias / (r_bias + rs)) / (par(r_bias, rs) + (beta + 1.0) * r_emitter)
+    k = (r_bias / (r_bias + rs)) / (par(r_bias, rs) + r_pi + (beta + 1.0) * r_emitter)
     e_sat = (vce - VCE_SAT) / (k * (beta * r_collector + (beta + 1.0) * r_emitter))
     e_cut = i_b / k
     if polarity == "npn":
@@ -352,8 +354,9 @@ def test_ce_max_source_amplitude_matches_constant_drop_closed_form(polarity, rs)
     res = single_stage_plan(ampplan.CommonEmitter(**divider(polarity, near, far), rc=rc, re=re,
                                                   re_bypassed=re_b, device=q), rs=rs, rl=rl).solve()
     t = res.stages[0].transistor
-    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, rs, par(near, far), re, par(rc, rl))
-    # Source: the closed form above (re-derived by hand from the constant-drop model).
+    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, rs, par(near, far), re, par(rc, rl),
+                                  beta * VT / t.ic)
+    # Source: the closed form above (re-derived by hand: constant-drop bias, hybrid-π excursion).
     assert math.isclose(res.clipping.positive, expected["positive"][0], rel_tol=1e-6)
     assert math.isclose(res.clipping.negative, expected["negative"][0], rel_tol=1e-6)
     assert res.clipping.positive_region == expected["positive"][1]
@@ -372,7 +375,8 @@ def test_cc_max_source_amplitude_matches_constant_drop_closed_form(polarity):
                             rs=rs, rl=rl).solve()
     t = res.stages[0].transistor
     # Source: the same hand derivation with the emitter load R_E || R_L and no collector resistor.
-    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, rs, par(near, far), par(re, rl), 0.0)
+    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, rs, par(near, far), par(re, rl), 0.0,
+                                  beta * VT / t.ic)
     assert math.isclose(res.clipping.positive, expected["positive"][0], rel_tol=1e-6)
     assert math.isclose(res.clipping.negative, expected["negative"][0], rel_tol=1e-6)
     assert res.clipping.positive_region == expected["positive"][1]
@@ -1044,5 +1048,25 @@ def test_random_degenerated_ce_matches_closed_forms(polarity, beta, rs, rl, rc, 
     assert close(s.gain, a_v) and close(s.input_resistance, par(near, far, r_base))
     assert close(s.output_resistance, rc)
     # Source: the constant-drop clipping closed form re-derived above.
-    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, rs, par(near, far), re, par(rc, rl))
+    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, rs, par(near, far), re, par(rc, rl),
+                                  beta * VT / t.ic)
     assert math.isclose(res.max_source_amplitude, min(expected.values())[0], rel_tol=1e-6)
+
+
+@pytest.mark.parametrize("polarity", POLARITIES)
+def test_fully_bypassed_ce_from_an_ideal_source_clips_where_the_load_lines_say(polarity):
+    # Regression: with V_BE held at V_BE(on) (r_π = 0) the held-capacitor sweep of a fully bypassed
+    # CE driven from an ideal source had no forward-active solution and reported ~0 V. The sweep
+    # carries the hybrid-π r_π about the Q-point, so it must agree with the closed form above
+    # (R_e,ac = 0, R_s = 0) and with the load-line estimate min(swing)/|gain| (issue 3 §5).
+    beta, rl, rc, re_b = 150.0, 10e3, 4.7e3, 1e3
+    near, far = 10e3, 47e3
+    q = ampplan.Transistor(polarity=polarity, beta=beta)
+    res = single_stage_plan(ampplan.CommonEmitter(**divider(polarity, near, far), rc=rc, re_bypassed=re_b,
+                                                  device=q), rs=0.0, rl=rl).solve()
+    t = res.stages[0].transistor
+    expected = _sweep_closed_form(polarity, t.ib, frame_vce(t), beta, 0.0, par(near, far), 0.0, par(rc, rl),
+                                  beta * VT / t.ic)
+    assert math.isclose(res.clipping.positive, expected["positive"][0], rel_tol=1e-6)
+    assert math.isclose(res.clipping.negative, expected["negative"][0], rel_tol=1e-6)
+    assert math.isclose(res.max_source_amplitude, res.max_source_amplitude_estimate, rel_tol=1e-6)

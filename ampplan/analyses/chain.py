@@ -113,7 +113,7 @@ def analyse_compiled(plan, compiled, op, active_edge: str = "vce-sat") -> PlanRe
             output_node=nodes.output, cautions=tuple(stage_cautions)))
 
     clipping = clipping_sweep(op, compiled.source, transistor_stage, op.model, active_edge,
-                              span=max(abs(plan.supply), abs(plan.negative_supply)))
+                              span=max(abs(plan.supply), abs(plan.negative_supply)), models=models)
     if clipping.positive <= clipping.negative:
         amplitude, limiting = clipping.positive, clipping.positive_stage
     else:

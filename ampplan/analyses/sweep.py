@@ -4,19 +4,27 @@ The coupling and bypass capacitors are held at their Q-point voltages (each beco
 source of that value), the source EMF is stepped away from its Q-point value in both directions,
 and every step is one sample of one batched solve. A coarse logarithmic grid brackets the first
 step at which any transistor is out of forward-active; a few rounds of finer grids narrow the
-bracket to a part in 10^9. For the constant-drop model the chain is piecewise linear, so the
-answer is exact to that resolution; each step there checks the all-forward-active assignment
-(``assume=``), the branch a quasi-static sweep stays on while it is consistent.
+bracket to a part in 10^9.
+
+For the constant-drop model each forward-active transistor also gets its hybrid-π input and
+output resistances about the Q-point (:func:`with_hybrid_pi`): r_π in series with the base and
+r_o across collector and emitter, each offset so the Q-point itself does not move. The
+constant-drop equations alone hold V_BE fixed (r_π = 0), which pins the base of a bypassed stage
+and makes the sweep disagree with the midband gains (or, from an ideal source, leaves it no
+solution at all). With them the chain is piecewise linear and agrees with the hybrid-π gains, so
+the answer is exact to the sweep's resolution; each step checks the all-forward-active
+assignment (``assume=``), the branch a quasi-static sweep stays on while it is consistent.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from ..circuit import Capacitor, Circuit, VoltageSource, _UnionFind
+from ..circuit import Bjt, Capacitor, Circuit, VoltageSource, _UnionFind
 from .results import Clipping
+from .smallsignal import incremental_models
 
-__all__ = ["held_capacitor_circuit", "clipping_sweep"]
+__all__ = ["held_capacitor_circuit", "with_hybrid_pi", "clipping_sweep"]
 
 #: Coarse grid: this many steps per direction, logarithmic from 1 µV·span to 10·span.
 COARSE_STEPS = 60
@@ -46,8 +54,39 @@ def held_capacitor_circuit(op) -> Circuit:
     return held
 
 
+def with_hybrid_pi(circuit: Circuit, op, models: dict) -> Circuit:
+    """``circuit`` with r_π and r_o added about the Q-point of ``op`` to each forward-active transistor.
+
+    For a transistor with incremental model ``models[name]`` (hybrid-π: g[0, 0] = 1/r_π,
+    g[1, 1] = -1/r_o), the base is fed through r_π and a source of -r_π·I_BQ, and r_o sits across
+    collector and emitter beside a current source carrying its Q-point current the other way.
+    At the Q-point both additions carry nothing, so the bias is unchanged; away from it they add
+    exactly the hybrid-π terms the constant-drop equations leave out. New nodes are named
+    ``"<transistor>.base"`` and ``"<transistor>.pi"``.
+    """
+    out = Circuit()
+    for e in circuit.elements:
+        m = models.get(e.name) if isinstance(e, Bjt) else None
+        if m is None or m.kind != "conductance" or op.transistors[e.name].region != "forward-active" \
+                or m.g[0, 0] <= 0:
+            out.add(e)
+            continue
+        t = op.transistors[e.name]
+        r_pi = 1.0 / m.g[0, 0]
+        inner, middle = f"{e.name}.base", f"{e.name}.pi"
+        out.resistor(f"{e.name}_r_pi", e.base, middle, r_pi)
+        # Current into the base terminal is s·I_B (textbook I_B flows out of a PNP's base).
+        out.voltage_source(f"{e.name}_v_pi", middle, inner, -r_pi * e.device.sign * t.ib)
+        out.bjt(e.name, e.collector, inner, e.emitter, e.device)
+        g_o = -m.g[1, 1]
+        if g_o > 0:
+            out.resistor(f"{e.name}_r_o", e.collector, e.emitter, 1.0 / g_o)
+            out.current_source(f"{e.name}_i_o", e.emitter, e.collector, t.vce * g_o)
+    return out
+
+
 def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_edge: str = "vce-sat",
-                   span: float | None = None) -> Clipping:
+                   span: float | None = None, models: dict | None = None) -> Clipping:
     """Smallest source excursions, each sign, at which a transistor leaves forward-active.
 
     Parameters
@@ -63,12 +102,17 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
     span : float, optional
         Volts setting the sweep range (default: the largest supply magnitude); the sweep reaches
         ten times it.
+    models : dict of str -> IncrementalModel, optional
+        The Q-point's incremental models (computed when not given); the constant-drop sweep
+        adds their r_π and r_o (:func:`with_hybrid_pi`).
 
     Returns
     -------
     Clipping
     """
     circuit = held_capacitor_circuit(op)
+    if model == "constant-drop":
+        circuit = with_hybrid_pi(circuit, op, incremental_models(op) if models is None else models)
     base = circuit.element(source).voltage
     names = list(op.transistors)
     stage_of = [transistor_stage.get(n) for n in names]
@@ -95,7 +139,12 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
         else:
             out = np.stack([~(res.transistors[n].checks[0].holds & res.transistors[n].checks[1].holds)
                             for n in names], axis=1)
-        out |= (res.status != "ok")[:, None] & (res.status != "assumption-fails")[:, None]
+        # A step with no answer at all counts as leaving; a singular all-forward-active system is
+        # singular at every step (the source only moves the right-hand side) and says nothing.
+        failed = ~np.isin(res.status, ("ok", "assumption-fails", "singular"))
+        out |= failed[:, None]
+        if assume is not None and np.all(res.status == "singular"):
+            raise _Undetermined
         return np.where(out.any(axis=1), np.argmax(out, axis=1), -1)
 
     def entered(step, k):
@@ -106,7 +155,10 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
 
     coarse = np.geomspace(1e-6 * span, 10.0 * span, COARSE_STEPS)
     # Both directions in one batch: positive steps first, then negative.
-    first = leaving(np.concatenate([coarse, -coarse]))
+    try:
+        first = leaving(np.concatenate([coarse, -coarse]))
+    except _Undetermined:
+        return Clipping(np.nan, np.nan, None, None, None, None)
     results = []
     for sign, part in ((1.0, slice(0, COARSE_STEPS)), (-1.0, slice(COARSE_STEPS, 2 * COARSE_STEPS))):
         hit = np.flatnonzero(first[part] >= 0)
@@ -140,3 +192,7 @@ def clipping_sweep(op, source: str, transistor_stage: dict, model: str, active_e
         final.append((0.5 * (r[0] + r[1]), stage_of[idx], entered(step, idx)))
     (pos, pos_stage, pos_region), (neg, neg_stage, neg_region) = final
     return Clipping(float(pos), float(neg), pos_stage, neg_stage, pos_region, neg_region)
+
+
+class _Undetermined(Exception):
+    """The forward-active branch of the held circuit is singular: the sweep cannot say."""

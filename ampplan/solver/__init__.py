@@ -12,7 +12,8 @@ from typing import Literal, get_args
 
 import numpy as np
 
-from ..errors import ConvergenceError, NoConsistentRegionError, UnknownModelError, UnknownNameError
+from ..errors import (ConvergenceError, InvalidValueError, NoConsistentRegionError, UnknownModelError,
+                      UnknownNameError)
 from . import constant_drop as cd
 from . import ebers_moll as em
 from .result import REGIONS, UNSOLVED, Check, OperatingPoint, TransistorResult
@@ -63,6 +64,8 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
         raise UnknownModelError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
     if active_edge not in ACTIVE_EDGES:
         raise UnknownModelError(f"unknown active_edge {active_edge!r}; choose one of {', '.join(ACTIVE_EDGES)}")
+    if not circuit.elements:
+        raise InvalidValueError("the circuit is empty: add a source and the elements it drives")
     layout = circuit.layout()
     if assume is not None:
         if model != "constant-drop":
@@ -111,6 +114,13 @@ def _newton_start(layout, params):
 
 def _solve_ebers_moll(circuit, layout, params, single):
     x, converged, iterations, method = em.solve_newton(layout, params, _newton_start(layout, params))
+    if single and method[0] == "overdriven":
+        raise ConvergenceError(
+            "no physical operating point: a junction of "
+            f"{', '.join(q.name for q in layout.bjts)} is driven beyond "
+            f"{em.EXP_LIMIT:g}·n·V_T (about {em.EXP_LIMIT * 0.0257:.1f} V) forward, which only ideal sources "
+            "can do; put a resistance in series with the source driving it",
+            iterations=int(iterations[0]))
     if single and not converged[0]:
         raise ConvergenceError(
             f"Ebers–Moll Newton did not converge for the circuit with transistors "

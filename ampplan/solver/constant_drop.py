@@ -216,7 +216,7 @@ _NAMES_PNP = tuple(np.array(t, dtype=str) for t in (
 def all_assignments(n: int) -> np.ndarray:
     """Every region assignment of n transistors, shape (4^n, n), all forward-active first (read-only)."""
     order = (ACTIVE, CUTOFF, SATURATION, REVERSE)
-    table = np.array(list(itertools.product(order, repeat=n)), dtype=np.int8).reshape(-1, n)
+    table = np.array(list(itertools.product(order, repeat=n)), dtype=np.int8).reshape(4 ** n, n)
     table.flags.writeable = False
     return table
 

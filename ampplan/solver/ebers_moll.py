@@ -294,7 +294,8 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
     converged : ndarray of bool, shape (S,)
     iterations : ndarray of int, shape (S,)
     method : ndarray of str, shape (S,)
-        ``"newton"``, ``"conductance ladder"`` or ``"source stepping"``.
+        ``"newton"``, ``"conductance ladder"`` or ``"source stepping"``; ``"overdriven"`` for a
+        sample whose only answer holds a junction beyond EXP_LIMIT·n·V_T (not converged).
     """
     problem = NewtonProblem(layout, params)
     s_count = params.size
@@ -358,6 +359,15 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
         converged[left[alive]] = True
         method[left[alive]] = label
         left = left[~alive]
+    # An answer on the straight continuation of exp() is no operating point: only ideal sources
+    # can hold a junction that far forward. Those samples fail with their own label.
+    done = np.flatnonzero(converged)
+    if done.size:
+        vbe, vbc = problem.junctions(x[done])
+        limit = EXP_LIMIT * problem.nvt[done]
+        over = np.any((vbe > limit) | (vbc > limit), axis=1)
+        converged[done[over]] = False
+        method[done[over]] = "overdriven"
     x[~converged] = np.nan
     return x, converged, iterations, method.astype(str)
 

@@ -3,12 +3,16 @@
 from __future__ import annotations
 
 import html
+import math
+import operator
 from dataclasses import dataclass, field
 from typing import Literal, get_args
 
 import numpy as np
 
-__all__ = ["Region", "REGIONS", "Check", "TransistorResult", "OperatingPoint"]
+from ..errors import InvalidValueError
+
+__all__ = ["Region", "REGIONS", "Status", "STATUSES", "Check", "TransistorResult", "OperatingPoint"]
 
 Region = Literal["cutoff", "forward-active", "saturation", "reverse-active"]
 #: Region names, indexed by the integer codes the solver uses internally.
@@ -16,19 +20,67 @@ REGIONS: tuple[str, ...] = get_args(Region)
 #: Region given to a batch sample that has no solution.
 UNSOLVED = "unsolved"
 
+#: Outcome of one solve (or of one batch sample):
+#:
+#: * ``"ok"``: a solution whose region checks all hold;
+#: * ``"no-consistent-region"``: the constant-drop search found no region assignment that holds;
+#: * ``"no-convergence"``: Newton's method (Ebers–Moll) did not converge, fallbacks included;
+#: * ``"assumption-fails"``: the regions were imposed (``assume=``) and a check fails at the
+#:   solution; the numbers are still reported;
+#: * ``"singular"``: the equations of the imposed regions have no unique solution (fields NaN).
+Status = Literal["ok", "no-consistent-region", "no-convergence", "assumption-fails", "singular"]
+#: Every status, in the order of :data:`Status`.
+STATUSES: tuple[str, ...] = get_args(Status)
+
 
 def _fmt(x, unit: str = "") -> str:
-    """Engineering form of a scalar for reprs (SI prefixes), or a summary of an array."""
+    """Engineering form of a scalar for reprs and tables, or a summary of an array.
+
+    SI prefixes through :func:`ampplan.units.format_quantity`; None and NaN print as ``"—"``,
+    infinities as ``"∞"`` with the unit. An array prints as ``[min … max]`` over its non-NaN
+    values; an array of str as ``value×count`` pairs.
+    """
     from ..units import format_quantity
     if isinstance(x, str):
         return x
+    if x is None:
+        return "—"
     if np.ndim(x) == 0:
-        return format_quantity(float(x), unit)
+        value = float(x)
+        if math.isnan(value):
+            return "—"
+        if math.isinf(value):
+            return ("-" if value < 0 else "") + "∞" + (f" {unit}" if unit else "")
+        return format_quantity(value, unit)
     arr = np.asarray(x)
     if arr.dtype.kind in "US":
         values, counts = np.unique(arr, return_counts=True)
         return ", ".join(f"{v}×{c}" for v, c in zip(values, counts))
-    return f"[{format_quantity(float(np.nanmin(arr)), unit)} … {format_quantity(float(np.nanmax(arr)), unit)}]"
+    arr = arr.astype(float)
+    if arr.size == 0 or np.all(np.isnan(arr)):  # np.nanmin would warn on an all-NaN batch
+        return "—"
+    return f"[{_fmt(np.nanmin(arr), unit)} … {_fmt(np.nanmax(arr), unit)}]"
+
+
+def _unit_of(name) -> str:
+    """Unit of a check's quantity from its name: amperes for ``I_…``, volts for ``V_…``.
+
+    In a batch (``name`` an array) the unit is the one all samples share, else ``""``.
+    """
+    initials = {str(n)[:1] for n in np.ravel(np.asarray(name))}
+    return {"I": "A", "V": "V"}.get(initials.pop(), "") if len(initials) == 1 else ""
+
+
+_CHECK_HEAD = ("<thead><tr><th>condition</th><th>holds</th><th>margin</th><th>value</th><th>limit</th>"
+               "</tr></thead>")
+
+
+def _holds_text(holds) -> str:
+    """``"holds"`` / ``"FAILS"`` for one check, ``"holds in k of S"`` over a batch."""
+    if np.ndim(holds) == 0:
+        return "holds" if bool(holds) else "FAILS"
+    arr = np.asarray(holds, dtype=bool)
+    return f"holds in {int(arr.sum())} of {arr.size}"
 
 
 @dataclass(frozen=True)
@@ -53,12 +105,28 @@ class Check:
     holds: bool
     margin: float
 
+    @property
+    def unit(self) -> str:
+        """``"V"`` or ``"A"``, read from the name (``""`` when a batch mixes them)."""
+        return _unit_of(self.name)
+
     def __repr__(self) -> str:
-        return (f"Check({self.name}: value={_fmt(self.value)}, limit={_fmt(self.limit)}, "
-                f"margin={_fmt(self.margin)}, holds={self.holds})")
+        u = self.unit
+        return (f"Check({_fmt(self.name)} {_holds_text(self.holds)}, margin {_fmt(self.margin, u)}: "
+                f"value {_fmt(self.value, u)}, limit {_fmt(self.limit, u)})")
+
+    def _repr_html_(self) -> str:
+        return f"<table>{_CHECK_HEAD}<tbody>{self._html_row()}</tbody></table>"
+
+    def _html_row(self) -> str:
+        e, u = html.escape, self.unit
+        cells = (_fmt(self.name), _holds_text(self.holds), _fmt(self.margin, u), _fmt(self.value, u),
+                 _fmt(self.limit, u))
+        return "<tr>" + "".join(f"<td>{e(c)}</td>" for c in cells) + "</tr>"
 
     def to_dict(self) -> dict:
-        return {k: _plain(getattr(self, k)) for k in ("name", "value", "limit", "holds", "margin")}
+        """Plain, JSON-ready dict (arrays become lists; NaN and infinities become None)."""
+        return _json_safe({k: _plain(getattr(self, k)) for k in ("name", "value", "limit", "holds", "margin")})
 
 
 @dataclass(frozen=True)
@@ -106,11 +174,24 @@ class TransistorResult:
                 f"I_C={_fmt(self.ic, 'A')}, V_CE={_fmt(self.vce, 'V')}, I_B={_fmt(self.ib, 'A')}, "
                 f"V_BE={_fmt(self.vbe, 'V')}, forced beta={_fmt(self.beta_forced)})")
 
+    def _repr_html_(self) -> str:
+        e = html.escape
+        figures = (("region", _fmt(self.region)), ("I_C", _fmt(self.ic, "A")), ("V_CE", _fmt(self.vce, "V")),
+                   ("I_B", _fmt(self.ib, "A")), ("V_BE", _fmt(self.vbe, "V")),
+                   ("forced beta", _fmt(self.beta_forced)), ("power", _fmt(self.power, "W")))
+        rows = "".join(f"<tr><td>{e(k)}</td><td>{e(v)}</td></tr>" for k, v in figures)
+        checks = "".join(c._html_row() for c in self.checks)
+        return (f"<div><strong>Transistor {e(self.name)} ({e(self.polarity.upper())})</strong>"
+                f"<table><tbody>{rows}</tbody></table>"
+                + (f"<table>{_CHECK_HEAD}<tbody>{checks}</tbody></table>" if checks else "")
+                + "</div>")
+
     def to_dict(self) -> dict:
+        """Plain, JSON-ready dict (arrays become lists; NaN and infinities become None)."""
         out = {k: _plain(getattr(self, k)) for k in
                ("name", "polarity", "region", "ic", "ib", "ie", "vbe", "vce", "beta_forced", "power")}
         out["checks"] = [c.to_dict() for c in self.checks]
-        return out
+        return _json_safe(out)
 
 
 @dataclass(frozen=True)
@@ -128,8 +209,10 @@ class OperatingPoint:
         voltage source delivers out of its plus terminal; a current source's own value.
     transistors : dict of str -> TransistorResult
     status : str
-        ``"ok"``; in a batch an array of str with ``"no-consistent-region"`` or ``"no-convergence"``
-        for samples that failed (their numeric fields are NaN).
+        One of :data:`STATUSES` (see :data:`Status`): ``"ok"``, or for a single solve
+        ``"assumption-fails"`` when the regions were imposed; in a batch an array of str, one per
+        sample, where failed samples (``"no-consistent-region"``, ``"no-convergence"``,
+        ``"singular"``) have NaN numeric fields.
     temperature : float
         Degrees Celsius (ndarray (S,) in a batch).
     alternatives : tuple of OperatingPoint
@@ -190,9 +273,28 @@ class OperatingPoint:
                       axis=0)
 
     def sample(self, k: int) -> "OperatingPoint":
-        """Sample ``k`` of a batch as a single OperatingPoint."""
+        """Sample ``k`` of a batch as a single OperatingPoint.
+
+        Parameters
+        ----------
+        k : int
+            Sample index, ``0 <= k < batch_size`` (negative counts from the end, as for a list).
+
+        Raises
+        ------
+        InvalidValueError
+            When this is a single solve, not a batch, or ``k`` is not an integer in range.
+        """
         if self.batch_size is None:
-            raise ValueError("sample() needs a batched OperatingPoint")
+            raise InvalidValueError("OperatingPoint.sample: this is a single solve, not a batch; it has no samples")
+        try:
+            index = operator.index(k)
+        except TypeError:
+            raise InvalidValueError(f"OperatingPoint.sample: k must be an integer, got {k!r}") from None
+        if isinstance(k, bool) or not -self.batch_size <= index < self.batch_size:
+            raise InvalidValueError(f"OperatingPoint.sample: k must be an integer from 0 to {self.batch_size - 1} "
+                                    f"(the batch has {self.batch_size} samples), got {k!r}")
+        k = index % self.batch_size
         pick = lambda a: a[k].item() if hasattr(a[k], "item") else a[k]  # noqa: E731
         transistors = {
             name: TransistorResult(
@@ -240,8 +342,8 @@ class OperatingPoint:
                 f"<table><thead><tr><th>node</th><th>voltage</th></tr></thead><tbody>{nodes}</tbody></table></div>")
 
     def to_dict(self) -> dict:
-        """Plain, JSON-ready dict (arrays become lists)."""
-        return {
+        """Plain, JSON-ready dict (arrays become lists; NaN and infinities become None)."""
+        return _json_safe({
             "model": self.model,
             "status": _plain(self.status),
             "temperature": _plain(self.temperature),
@@ -252,7 +354,7 @@ class OperatingPoint:
             "i": {n: _plain(v) for n, v in self.i.items()},
             "transistors": {n: t.to_dict() for n, t in self.transistors.items()},
             "alternatives": [a.to_dict() for a in self.alternatives],
-        }
+        })
 
 
 def _plain(x):
@@ -260,4 +362,20 @@ def _plain(x):
         return x.tolist()
     if isinstance(x, np.generic):
         return x.item()
+    return x
+
+
+def _json_safe(x):
+    """``x`` with NaN and infinities (at any depth of dicts and lists) replaced by None.
+
+    JSON has no NaN or infinity; ``json.dumps(..., allow_nan=False)`` accepts the result.
+    """
+    if isinstance(x, dict):
+        return {k: _json_safe(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_json_safe(v) for v in x]
+    if isinstance(x, np.ndarray) or isinstance(x, np.generic):
+        return _json_safe(_plain(x))
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
     return x
