@@ -16,20 +16,22 @@ its linearised Ebers–Moll equations for Newton's method).
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
-import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Union
 
 import numpy as np
 
+from .devices import ABSOLUTE_ZERO, Transistor, check_parameter
 from .devices import PARAMETERS as DEVICE_PARAMETERS
-from .devices import Transistor, check_parameter
 from .errors import (DuplicateNameError, FloatingNodeError, InvalidValueError, UnknownNameError,
                      VoltageSourceLoopError)
+from .validation import check_number, check_samples
 
 __all__ = ["GROUND", "Circuit", "Resistor", "VoltageSource", "CurrentSource", "Capacitor", "Bjt",
-           "Layout", "Parameters"]
+           "Layout", "Parameters", "RESISTANCE_RANGE", "VALUE_BOUNDS"]
 
 GROUND = "gnd"
 
@@ -86,6 +88,23 @@ Element = Union[Resistor, VoltageSource, CurrentSource, Capacitor, Bjt]
 _VALUE_FIELD = {Resistor: "resistance", VoltageSource: "voltage", CurrentSource: "current",
                 Capacitor: "capacitance"}
 
+#: Smallest and largest resistance accepted, ohms: beyond them the equations lose their precision
+#: in double arithmetic, so a short or an open should be drawn as one.
+RESISTANCE_RANGE = (1e-6, 1e12)
+
+#: Bounds and unit of each element kind's value, declared once: the element methods, batches,
+#: the stage templates (through RESISTANCE_RANGE) and the plan-file schema follow them.
+VALUE_BOUNDS: dict[type, dict] = {
+    Resistor: dict(minimum=RESISTANCE_RANGE[0], minimum_inclusive=True, maximum=RESISTANCE_RANGE[1], unit="Ω"),
+    VoltageSource: dict(unit="V"),
+    CurrentSource: dict(unit="A"),
+    Capacitor: dict(minimum=0.0, unit="F"),
+}
+
+# The method that adds (and validates) each element kind, by kind.
+_ADD_METHOD = {Resistor: "resistor", VoltageSource: "voltage_source", CurrentSource: "current_source",
+               Capacitor: "capacitor", Bjt: "bjt"}
+
 
 def _check_name(kind: str, name) -> str:
     if not isinstance(name, str) or not name.strip():
@@ -101,16 +120,9 @@ def _check_node(element: str, terminal: str, node) -> str:
     return node
 
 
-def _finite(element: str, quantity: str, value, positive: bool = False) -> float:
-    try:
-        value = float(value)
-    except (TypeError, ValueError):
-        raise InvalidValueError(f"{element}: {quantity} must be a number, got {value!r}") from None
-    if not math.isfinite(value):
-        raise InvalidValueError(f"{element}: {quantity} must be finite, got {value!r}")
-    if positive and value <= 0:
-        raise InvalidValueError(f"{element}: {quantity} must be > 0, got {value!r}")
-    return value
+def _value(kind: type, element: str, value, optional: bool = False) -> float | None:
+    """An element's value checked against its kind's VALUE_BOUNDS (``"R1: resistance must be ..."``)."""
+    return check_number(value, f"{element}: {_VALUE_FIELD[kind]}", optional=optional, **VALUE_BOUNDS[kind])
 
 
 class Circuit:
@@ -143,8 +155,7 @@ class Circuit:
         their precision in double arithmetic, so a short or an open should be drawn as one.
         """
         _check_name("resistor", name)
-        value = _finite(name, "resistance", resistance, positive=True)
-        _check_resistance_range(name, value)
+        value = _value(Resistor, name, resistance)
         self._add(Resistor(name, _check_node(name, "a", a), _check_node(name, "b", b), value))
 
     def voltage_source(self, name: str, plus: str, minus: str, voltage: float) -> None:
@@ -153,19 +164,18 @@ class Circuit:
         plus, minus = _check_node(name, "plus", plus), _check_node(name, "minus", minus)
         if plus == minus:
             raise InvalidValueError(f"{name}: voltage source has both terminals on node {plus!r}")
-        self._add(VoltageSource(name, plus, minus, _finite(name, "voltage", voltage)))
+        self._add(VoltageSource(name, plus, minus, _value(VoltageSource, name, voltage)))
 
     def current_source(self, name: str, from_node: str, to_node: str, current: float) -> None:
         """Add an ideal source: ``current`` amperes leave ``from_node``, flow through it into ``to_node``."""
         _check_name("current source", name)
         self._add(CurrentSource(name, _check_node(name, "from", from_node),
-                                _check_node(name, "to", to_node), _finite(name, "current", current)))
+                                _check_node(name, "to", to_node), _value(CurrentSource, name, current)))
 
     def capacitor(self, name: str, a: str, b: str, capacitance: float | None = None) -> None:
         """Add a capacitor (open at DC, short at midband); ``capacitance`` in farads or None."""
         _check_name("capacitor", name)
-        if capacitance is not None:
-            capacitance = _finite(name, "capacitance", capacitance, positive=True)
+        capacitance = _value(Capacitor, name, capacitance, optional=True)
         self._add(Capacitor(name, _check_node(name, "a", a), _check_node(name, "b", b), capacitance))
 
     def bjt(self, name: str, collector: str, base: str, emitter: str, device: Transistor) -> None:
@@ -177,10 +187,15 @@ class Circuit:
                       _check_node(name, "emitter", emitter), device))
 
     def add(self, element: Element) -> None:
-        """Add an element object (as made by the methods above, or taken from another circuit)."""
-        if not isinstance(element, (Resistor, VoltageSource, CurrentSource, Capacitor, Bjt)):
+        """Add an element object (as made by the methods above, or taken from another circuit).
+
+        It goes through the method for its kind (:meth:`resistor`, :meth:`bjt` ...), so it is
+        validated exactly as they validate.
+        """
+        method = next((m for kind, m in _ADD_METHOD.items() if isinstance(element, kind)), None)
+        if method is None:
             raise InvalidValueError(f"cannot add a {type(element).__name__} to a circuit")
-        self._add(element)
+        getattr(self, method)(*(getattr(element, f.name) for f in dataclasses.fields(element)))
 
     def remove(self, name: str) -> Element:
         """Remove and return the element ``name``."""
@@ -230,7 +245,7 @@ class Circuit:
         return self._layout
 
     def solve(self, model: str = "constant-drop", temperature: float = 25.0, batch: dict | None = None,
-              active_edge: str = "vce-sat", assume: dict | None = None):
+              active_edge: str = "vce-sat", assume: dict | None = None, warm_start: bool = True):
         """Solve the DC operating point.
 
         Parameters
@@ -241,13 +256,16 @@ class Circuit:
             Junction temperature, degrees Celsius (parameters are given at 25 °C).
         batch : dict of str -> array_like, optional
             Values to vary, each of shape (S,) (scalars broadcast): element values by element name
-            (``"RC"``, ``"VCC"``) and device parameters as ``"<transistor>.<parameter>"``
-            (``"Q1.beta"``); ``"temperature"`` varies the temperature.
+            (``"RC"``, ``"VCC"``) and numeric device parameters as ``"<transistor>.<parameter>"``
+            (``"Q1.beta"``; not ``polarity``); ``"temperature"`` varies the temperature.
         active_edge : {"vce-sat", "vcb-zero"}
             Where forward-active ends: at V_CE = V_CE(sat) (default) or at V_CB = 0.
         assume : dict of str -> str, optional
             Constant-drop only: regions to assume and check, without search (see
             :func:`ampplan.solver.solve`).
+        warm_start : bool
+            Batches only: start every sample from one solved sample (fast; see
+            :func:`ampplan.solver.solve` for circuits with several operating points).
 
         Returns
         -------
@@ -255,7 +273,7 @@ class Circuit:
         """
         from .solver import solve
         return solve(self, model=model, temperature=temperature, batch=batch, active_edge=active_edge,
-                     assume=assume)
+                     assume=assume, warm_start=warm_start)
 
     def __repr__(self) -> str:
         counts = {}
@@ -263,20 +281,6 @@ class Circuit:
             counts[type(e).__name__] = counts.get(type(e).__name__, 0) + 1
         body = ", ".join(f"{n} {k}" for k, n in counts.items()) or "empty"
         return f"Circuit({body})"
-
-
-#: Smallest and largest resistance accepted, ohms.
-RESISTANCE_RANGE = (1e-6, 1e12)
-
-
-def _check_resistance_range(where: str, value) -> None:
-    low, high = RESISTANCE_RANGE
-    arr = np.asarray(value, dtype=float)
-    bad = (arr < low) | (arr > high)
-    if np.any(bad):
-        first = arr.flat[int(np.argmax(bad))]
-        raise InvalidValueError(f"{where}: resistance {first!r} Ω is outside {low:g} Ω … {high:g} Ω; "
-                                "draw a short or an open as such instead")
 
 
 def _did_you_mean(name: str, choices) -> str:
@@ -502,9 +506,32 @@ class Layout:
     def parameters(self, temperature=25.0, batch: dict | None = None) -> Parameters:
         """Element and device values for S samples, with ``batch`` overriding the circuit's own.
 
-        Raises UnknownNameError for a batch key that names no element or parameter and
-        InvalidValueError for a bad value (naming the key and the first bad sample).
+        Parameters
+        ----------
+        temperature : float
+            Degrees Celsius, one value (the batch key ``"temperature"`` varies it per sample).
+        batch : dict of str -> array_like of shape (S,), optional
+            Keys and values as for :meth:`Circuit.solve`; scalars broadcast.
+
+        Returns
+        -------
+        Parameters
+            A transistor parameter given as None is NaN, but for ``vbc_on``: None there means
+            "same as vbe_on" and takes ``vbe_on``'s values, after the batch's overrides (a batch
+            of ``"Q1.vbe_on"`` moves it too, unless the batch sets ``"Q1.vbc_on"`` as well).
+
+        Raises
+        ------
+        InvalidValueError
+            A batch that is not a dict, a key that is not text, a parameter a batch cannot vary
+            (``polarity``), arrays of different lengths, or a bad value (naming the key and the
+            index of the first bad sample); a bad ``temperature``.
+        UnknownNameError
+            A batch key that names no element or transistor parameter.
         """
+        temperature = check_number(temperature, "temperature", minimum=ABSOLUTE_ZERO, unit="°C")
+        if batch is not None and not isinstance(batch, Mapping):
+            raise InvalidValueError(f"batch must be a dict of name -> values, got {type(batch).__name__}")
         if not batch:
             # A single solve of an unchanged circuit reuses its parameters (they are never mutated).
             cached = self._parameter_cache.get(temperature)
@@ -513,13 +540,51 @@ class Layout:
             return cached
         return self._parameters(temperature, batch)
 
-    def _parameters(self, temperature, batch: dict) -> Parameters:
-        arrays = {}
+    def _batch_targets(self, batch: Mapping) -> dict:
+        """What each batch key varies: ``"temperature"``, an element, or ``(transistor index, parameter)``.
+
+        Every key is checked here, before any value is read.
+        """
+        by_name = {e.name: e for group in (self.resistors, self.voltage_sources, self.current_sources,
+                                           self.capacitors) for e in group}
+        q_index = {q.name: j for j, q in enumerate(self.bjts)}
+        targets = {}
+        for key in batch:
+            if not isinstance(key, str):
+                raise InvalidValueError(f"batch keys must be names (text), got {key!r}")
+            if key == "temperature":
+                targets[key] = key
+            elif "." in key:
+                qname, _, pname = key.partition(".")
+                if qname not in q_index:
+                    raise UnknownNameError(f"batch key {key!r}: the circuit has no transistor named {qname!r}"
+                                           + _did_you_mean(qname, q_index))
+                if pname == "polarity":
+                    raise InvalidValueError(f"batch key {key!r}: polarity cannot vary in a batch (it sets the "
+                                            "orientation of the equations); solve each polarity on its own")
+                if pname not in DEVICE_PARAMETERS:
+                    raise UnknownNameError(f"batch key {key!r}: transistors have no parameter {pname!r}"
+                                           + _did_you_mean(pname, DEVICE_PARAMETERS))
+                targets[key] = (q_index[qname], pname)
+            elif key in by_name:
+                targets[key] = by_name[key]
+            else:
+                raise UnknownNameError(f"batch key {key!r} names no resistor, source or capacitor"
+                                       + _did_you_mean(key, by_name))
+        return targets
+
+    def _parameters(self, temperature: float, batch: Mapping) -> Parameters:
+        targets = self._batch_targets(batch)
+        arrays: dict[str, np.ndarray] = {}
         for key, value in batch.items():
-            arr = np.asarray(value, dtype=float) if not isinstance(value, np.ndarray) else value.astype(float)
-            if arr.ndim > 1:
-                raise InvalidValueError(f"batch[{key!r}] must be a scalar or a 1-D array, got shape {arr.shape}")
-            arrays[key] = arr
+            target = targets[key]
+            if target == "temperature":
+                arrays[key] = check_samples(value, f"batch[{key!r}]:", minimum=ABSOLUTE_ZERO, unit="°C")
+            elif isinstance(target, tuple):
+                arrays[key] = check_parameter(target[1], value, where=f"batch[{key!r}]:", samples=True)
+            else:
+                kind = type(target)
+                arrays[key] = check_samples(value, f"batch[{key!r}]: {_VALUE_FIELD[kind]}", **VALUE_BOUNDS[kind])
         sizes = {k: a.shape[0] for k, a in arrays.items() if a.ndim == 1}
         if len(set(sizes.values())) > 1:
             raise InvalidValueError("batch arrays differ in length: "
@@ -527,45 +592,10 @@ class Layout:
         s_count = next(iter(sizes.values()), 1)
         if s_count == 0:
             raise InvalidValueError("batch arrays are empty")
-        full = lambda v: np.broadcast_to(np.asarray(v, dtype=float), (s_count,)).copy()  # noqa: E731
-        temp = full(arrays.pop("temperature", temperature))
-        if not np.all(np.isfinite(temp)) or np.any(temp <= -273.15):
-            raise InvalidValueError(f"temperature must be finite and above -273.15 °C, got {temperature!r}")
-
-        by_name = {e.name: e for group in (self.resistors, self.voltage_sources, self.current_sources,
-                                           self.capacitors, self.bjts) for e in group}
-        overrides: dict[str, np.ndarray] = {}
-        device_overrides: dict[tuple[int, str], np.ndarray] = {}
-        q_index = {q.name: j for j, q in enumerate(self.bjts)}
-        for key, arr in arrays.items():
-            if "." in key:
-                qname, _, pname = key.partition(".")
-                if qname not in q_index:
-                    raise UnknownNameError(f"batch key {key!r}: the circuit has no transistor named {qname!r}"
-                                           + _did_you_mean(qname, q_index))
-                if pname not in DEVICE_PARAMETERS:
-                    raise UnknownNameError(f"batch key {key!r}: transistors have no parameter {pname!r}"
-                                           + _did_you_mean(pname, DEVICE_PARAMETERS))
-                check_parameter(pname, arr, where=f"batch[{key!r}]:")
-                device_overrides[(q_index[qname], pname)] = full(arr)
-            else:
-                if key not in by_name or isinstance(by_name[key], Bjt):
-                    raise UnknownNameError(f"batch key {key!r} names no resistor, source or capacitor"
-                                           + _did_you_mean(key, [k for k, e in by_name.items()
-                                                                 if not isinstance(e, Bjt)]))
-                values = full(arr)
-                element = by_name[key]
-                bad = ~np.isfinite(values)
-                if isinstance(element, (Resistor, Capacitor)):
-                    bad |= values <= 0
-                if np.any(bad):
-                    first = int(np.argmax(bad))
-                    what = "> 0 and finite" if isinstance(element, (Resistor, Capacitor)) else "finite"
-                    raise InvalidValueError(f"batch[{key!r}]: {_VALUE_FIELD[type(element)]} must be {what}, "
-                                            f"got {values[first]!r} at sample {first}")
-                if isinstance(element, Resistor):
-                    _check_resistance_range(f"batch[{key!r}]", values)
-                overrides[key] = values
+        full = lambda arr: np.broadcast_to(arr, (s_count,)).copy()  # noqa: E731
+        temp = full(arrays["temperature"]) if "temperature" in arrays else np.full(s_count, temperature)
+        overrides = {key: full(arr) for key, arr in arrays.items() if not isinstance(targets[key], (str, tuple))}
+        device_overrides = {targets[key]: full(arr) for key, arr in arrays.items() if isinstance(targets[key], tuple)}
 
         def column(elements, field, transform=lambda x: x):
             out = np.empty((s_count, len(elements)))
@@ -580,6 +610,8 @@ class Layout:
                 v = getattr(q.device, pname)
                 col[:, j] = device_overrides.get((j, pname), np.nan if v is None else v)
             device[pname] = col
+        # vbc_on None means "same as vbe_on"; resolved here, after the batch's overrides of either.
+        device["vbc_on"] = np.where(np.isnan(device["vbc_on"]), device["vbe_on"], device["vbc_on"])
         return Parameters(
             conductance=column(self.resistors, "resistance", lambda r: 1.0 / np.asarray(r, dtype=float)),
             voltage=column(self.voltage_sources, "voltage"),

@@ -13,7 +13,9 @@ Exit status of ``check``:
   goes to standard error, without a traceback).
 
 Values are engineering notation at this edge (``--set s1.rc=4.7k``, ``--set s2.c_bypass=100u``),
-read by :func:`ampplan.units.parse_quantity`; the table prints them the same way.
+optionally with the unit the address is declared in (``4.7kΩ``, ``100uF``, ``12V``, ``85°C``; see
+:meth:`ampplan.plan.Plan.unit`), read by :func:`ampplan.units.parse_quantity`; the table prints
+them the same way.
 """
 
 from __future__ import annotations
@@ -28,7 +30,8 @@ import textwrap
 
 from . import __version__
 from .errors import AmpplanError, ConvergenceError, NoConsistentRegionError, PlanFileError
-from .record import load_plan, read_plan_file
+from .devices import Transistor
+from .record import plan_from_dict, read_plan_file
 from .solver import MODELS
 from .units import format_quantity, parse_quantity
 
@@ -53,22 +56,23 @@ class _BadInput(Exception):
 # ------------------------------------------------------------------------------------------------
 
 def _read(args):
-    """(plan, label, description) from the file or the packaged demo."""
+    """(plan, label) from the file or the packaged demo; the file is read once."""
     if args.demo and args.plan:
         raise _BadInput("give a plan file or --demo, not both")
     if not args.demo and not args.plan:
         raise _BadInput("give a plan file to check, or --demo for the packaged example")
     if args.demo:
         with importlib.resources.as_file(importlib.resources.files("ampplan").joinpath(DEMO_PLAN)) as path:
-            data = read_plan_file(path)
-            plan = load_plan(path)
-        return plan, "demo plan", data.get("description", "")
-    data = read_plan_file(args.plan)
-    return load_plan(args.plan), args.plan, data.get("description", "")
+            return plan_from_dict(read_plan_file(path), source=os.fspath(path)), "demo plan"
+    return plan_from_dict(read_plan_file(args.plan), source=os.fspath(args.plan)), args.plan
 
 
 def _apply_settings(plan, settings) -> None:
-    """Apply ``--set ADDRESS=VALUE`` changes in order, each validated by the plan."""
+    """Apply ``--set ADDRESS=VALUE`` changes in order, each validated by the plan.
+
+    A number may carry the unit the address is declared in (``s1.rc=4.7kΩ``, ``temperature=85°C``),
+    read by :func:`~ampplan.units.parse_quantity`; any other unit is refused.
+    """
     for item in settings or ():
         address, sep, text = item.partition("=")
         address, text = address.strip(), text.strip()
@@ -76,12 +80,15 @@ def _apply_settings(plan, settings) -> None:
             raise _BadInput(f"--set {item!r}: expected ADDRESS=VALUE, e.g. s1.rc=4.7k")
         try:
             current = plan.get(address)
+            if isinstance(current, Transistor):
+                raise _BadInput(f"--set {item}: {address} is a whole transistor; set its parameters one "
+                                f"at a time ({address}.beta=..., {address}.vbe_on=...)")
             if isinstance(current, str):
-                value = text  # a word: a coupling or a polarity
+                value = text  # a word: a coupling, a polarity or the description
             elif text.lower() in _NONE_WORDS:
                 value = None
             else:
-                value = parse_quantity(text)
+                value = parse_quantity(text, plan.unit(address))
             plan.set(address, value)
         except AmpplanError as exc:
             raise _BadInput(f"--set {item}: {exc}") from None
@@ -132,7 +139,7 @@ def _report(plan, result, label: str, description: str) -> tuple[int, str]:
 
 def _check(args, out, err) -> int:
     try:
-        plan, label, description = _read(args)
+        plan, label = _read(args)
         _apply_settings(plan, args.set)
     except (PlanFileError, _BadInput) as exc:
         return _fail(args, err, out, EXIT_BAD_INPUT, str(exc))
@@ -147,7 +154,7 @@ def _check(args, out, err) -> int:
         print(json.dumps({**result.to_dict(), "exit_status": status}, indent=2, ensure_ascii=False,
                          allow_nan=False), file=out)
         return status
-    status, text = _report(plan, result, label, description)
+    status, text = _report(plan, result, label, plan.description)
     print(text, file=out)
     return status
 
@@ -175,8 +182,9 @@ def _parser() -> argparse.ArgumentParser:
                        help=f"device model (default {MODELS[0]})")
     check.add_argument("--json", action="store_true", help="print the result as JSON for machines")
     check.add_argument("--set", action="append", metavar="ADDRESS=VALUE",
-                       help="change one value before solving, in engineering notation: s1.rc=4.7k, "
-                            "supply=15, s2.device.beta=80, s1.rb2=none (repeatable)")
+                       help="change one value before solving, in engineering notation with or without "
+                            "its unit: s1.rc=4.7k, s1.rc=4.7kΩ, supply=15V, s2.device.beta=80, "
+                            "s1.rb2=none (repeatable)")
     check.set_defaults(run=_check)
     return parser
 

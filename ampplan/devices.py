@@ -8,13 +8,15 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import typing
 from dataclasses import dataclass
 from typing import Literal, get_args
 
 import numpy as np
 from scipy import constants
 
-from .errors import InvalidValueError, UnknownModelError, UnknownNameError
+from .errors import UnknownModelError, UnknownNameError
+from .validation import check_number, check_samples
 
 __all__ = [
     "Polarity",
@@ -22,6 +24,10 @@ __all__ = [
     "Transistor",
     "thermal_voltage",
     "REFERENCE_TEMPERATURE",
+    "ABSOLUTE_ZERO",
+    "DEVICE_UNITS",
+    "OPTIONAL_PARAMETERS",
+    "check_parameter",
     "PRESETS",
     "preset",
 ]
@@ -31,6 +37,8 @@ POLARITIES: tuple[str, ...] = get_args(Polarity)
 
 #: Temperature (degrees C) at which device parameters are given, and the default solve temperature.
 REFERENCE_TEMPERATURE = 25.0
+#: Absolute zero in degrees Celsius (scipy.constants): every temperature must lie above it.
+ABSOLUTE_ZERO = -constants.zero_Celsius
 
 
 def thermal_voltage(temperature=REFERENCE_TEMPERATURE):
@@ -58,7 +66,9 @@ class Transistor:
     The constant-drop model uses ``beta``, ``vbe_on``, ``vce_sat``, ``beta_reverse`` and
     ``vbc_on``; the Ebers–Moll model uses ``beta``, ``beta_reverse``, ``saturation_current``,
     ``early_voltage`` and ``emission_coefficient``. Voltages are magnitudes: a PNP with
-    ``vbe_on=0.7`` has V_EB = 0.7 V when on. All values are at 25 °C.
+    ``vbe_on=0.7`` has V_EB = 0.7 V when on. All values are at 25 °C and are stored as
+    floats; a bool, text or a list is refused (InvalidValueError naming the parameter), and None
+    only where the annotation allows it.
 
     Parameters
     ----------
@@ -72,7 +82,9 @@ class Transistor:
     beta_reverse : float
         Reverse current gain β_R, dimensionless, > 0.
     vbc_on : float or None
-        Base-collector drop when conducting, volts; None means the same as ``vbe_on``.
+        Base-collector drop when conducting, volts; None (the default) means the same as
+        ``vbe_on``, whatever ``vbe_on`` is changed to later: it is kept as None here and resolved
+        where the numbers are built (:meth:`ampplan.circuit.Layout.parameters`).
     saturation_current : float
         Transport saturation current I_S, amperes, > 0.
     early_voltage : float
@@ -107,17 +119,13 @@ class Transistor:
     max_vce: float | None = None
 
     def __post_init__(self):
-        if self.polarity not in POLARITIES:
+        if not isinstance(self.polarity, str) or self.polarity not in POLARITIES:
             raise UnknownModelError(
                 f"Transistor polarity must be one of {', '.join(POLARITIES)}, got {self.polarity!r}"
             )
-        if self.vbc_on is None:
-            object.__setattr__(self, "vbc_on", self.vbe_on)
+        # Every number stored as a float, so that "150", True or [1, 2] never reach the solver.
         for name in PARAMETERS:
-            value = getattr(self, name)
-            if value is None:
-                continue
-            check_parameter(name, value)
+            object.__setattr__(self, name, check_parameter(name, getattr(self, name)))
 
     @property
     def sign(self) -> int:
@@ -139,6 +147,27 @@ class Transistor:
 FIELDS: tuple[str, ...] = tuple(f.name for f in dataclasses.fields(Transistor))
 #: Numeric parameters (everything but polarity), the ones a batch may vary.
 PARAMETERS: tuple[str, ...] = tuple(f for f in FIELDS if f != "polarity")
+#: Parameters annotated ``float | None``: the only ones that may be None.
+OPTIONAL_PARAMETERS: frozenset = frozenset(
+    name for name, hint in typing.get_type_hints(Transistor).items() if type(None) in get_args(hint))
+
+#: SI unit symbol of each numeric parameter ("" for dimensionless), for messages, files and the CLI.
+DEVICE_UNITS: dict[str, str] = {
+    "beta": "",
+    "vbe_on": "V",
+    "vce_sat": "V",
+    "beta_reverse": "",
+    "vbc_on": "V",
+    "saturation_current": "A",
+    "early_voltage": "V",
+    "emission_coefficient": "",
+    "vbe_temperature_coefficient": "V/K",
+    "bandgap_energy": "eV",
+    "saturation_current_exponent": "",
+    "max_power": "W",
+    "max_collector_current": "A",
+    "max_vce": "V",
+}
 
 #: (lower bound, lower inclusive) of each numeric parameter; unlisted ones only need to be finite.
 PARAMETER_BOUNDS = {
@@ -159,19 +188,34 @@ PARAMETER_BOUNDS = {
 MAY_BE_INFINITE = {"early_voltage", "max_power", "max_collector_current", "max_vce"}
 
 
-def check_parameter(name: str, value, where: str = "Transistor"):
-    """Raise InvalidValueError unless ``value`` (scalar or array) is allowed for parameter ``name``."""
-    arr = np.asarray(value, dtype=float)
-    bad_nan = np.isnan(arr) | (np.isinf(arr) & (name not in MAY_BE_INFINITE))
-    if np.any(bad_nan):
-        raise InvalidValueError(f"{where} parameter {name} must be finite, got {value!r}")
-    lower = PARAMETER_BOUNDS.get(name)
-    if lower is not None:
-        low, inclusive = lower
-        bad = arr < low if inclusive else arr <= low
-        if np.any(bad):
-            op = ">=" if inclusive else ">"
-            raise InvalidValueError(f"{where} parameter {name} must be {op} {low:g}, got {value!r}")
+def check_parameter(name: str, value, where: str = "Transistor", samples: bool = False):
+    """Validate a value of the numeric parameter ``name``; returns it as float (or None).
+
+    Parameters
+    ----------
+    name : str
+        One of :data:`PARAMETERS`.
+    value : object
+        One number (None only for :data:`OPTIONAL_PARAMETERS`), or with ``samples`` a number or a
+        1-D array of samples.
+    where : str
+        Who holds the value, for the message: ``"Transistor"`` or ``"batch['Q1.beta']:"``.
+    samples : bool
+        Accept a batch of samples; returns a float ndarray of shape () or (S,).
+
+    Raises
+    ------
+    InvalidValueError
+        Naming ``where`` and ``name`` (and the first bad sample of a batch).
+    """
+    low, inclusive = PARAMETER_BOUNDS.get(name, (-math.inf, False))
+    bounds = dict(minimum=low, minimum_inclusive=inclusive, may_be_infinite=name in MAY_BE_INFINITE,
+                  unit=DEVICE_UNITS[name])
+    if samples:
+        return check_samples(value, f"{where} parameter {name}", **bounds)
+    nullable = ", ".join(f for f in FIELDS if f in OPTIONAL_PARAMETERS)
+    return check_number(value, f"{where} parameter {name}", optional=name in OPTIONAL_PARAMETERS,
+                        required=f"None is allowed only for {nullable}", **bounds)
 
 
 # Presets are typical values for a role (common practice, no source); they are starting points
@@ -210,7 +254,8 @@ def scaled_to_temperature(devices: dict, temperature):
     Parameters
     ----------
     devices : dict of str -> ndarray
-        Parameter name -> values at 25 °C, each of shape (S, N) for S samples of N transistors.
+        Parameter name -> values at 25 °C, each of shape (S, N) for S samples of N transistors,
+        with ``vbc_on`` already resolved (as :meth:`ampplan.circuit.Layout.parameters` gives them).
     temperature : float or ndarray
         Degrees Celsius, scalar or shape (S, 1).
 

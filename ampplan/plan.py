@@ -11,10 +11,12 @@ import math
 from dataclasses import dataclass, field
 from typing import Literal, get_args
 
-from .circuit import GROUND, Circuit
+from .circuit import GROUND, RESISTANCE_RANGE, Circuit, _did_you_mean
+from .devices import ABSOLUTE_ZERO, DEVICE_UNITS
 from .devices import FIELDS as DEVICE_FIELDS
 from .errors import InvalidValueError, UnknownModelError, UnknownNameError
 from .stages import Parameter, Rails, Stage, StageNodes
+from .validation import shown
 
 __all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PLAN_PARAMETERS"]
 
@@ -32,11 +34,13 @@ PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
     Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, optional=False, scale="linear"),
     Parameter("negative_supply", "V", 0.0, "lower rail (0 for ground, negative for a split supply), volts",
               minimum=-math.inf, maximum=0.0, optional=False, scale="linear"),
+    # 0 or within RESISTANCE_RANGE; the gap below its lower end is refused by Plan itself.
     Parameter("source_resistance", "Ω", 0.0, "signal source resistance, ohms (0 for an ideal source)",
-              minimum=0.0, minimum_inclusive=True, optional=False),
-    Parameter("load_resistance", "Ω", None, "load resistance, ohms (None: no load)"),
+              minimum=0.0, minimum_inclusive=True, maximum=RESISTANCE_RANGE[1], optional=False),
+    Parameter("load_resistance", "Ω", None, "load resistance, ohms (None: no load)",
+              minimum=RESISTANCE_RANGE[0], minimum_inclusive=True, maximum=RESISTANCE_RANGE[1]),
     Parameter("temperature", "°C", 25.0, "ambient and junction temperature, degrees Celsius",
-              minimum=-273.15, optional=False, scale="linear"),
+              minimum=ABSOLUTE_ZERO, optional=False, scale="linear"),
     Parameter("resistor_power_rating", "W", 0.25, "power rating of every resistor, watts (common practice)",
               optional=False),
     Parameter("min_headroom", "V", 1.0, "caution when V_CE is closer than this to the forward-active edge, volts",
@@ -44,6 +48,17 @@ PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
     Parameter("coupling_capacitance", "F", None, "value of every coupling capacitor, farads (None: not chosen)"),
     Parameter("bypass_capacitance", "F", None, "default bypass capacitor value, farads (None: not chosen)"),
 )}
+
+
+#: Plan-level addresses that hold words, not numbers.
+_PLAN_WORDS = ("load_coupling", "description")
+
+
+def _check_base_bias(sid: str, stage: Stage, coupling: str) -> None:
+    """Refuse a capacitor-coupled stage that does not bias its own input."""
+    if coupling == "capacitor" and not stage.has_base_bias():
+        raise InvalidValueError(f"{sid}: a capacitor-coupled {type(stage).__name__} needs its own base bias "
+                                "(rb1 and/or rb2, or rf); give one or use coupling='direct'")
 
 
 @dataclass
@@ -111,9 +126,6 @@ class Plan:
                  min_headroom: float = 1.0, coupling_capacitance: float | None = None,
                  bypass_capacitance: float | None = None, description: str = ""):
         self._entries: list[StageEntry] = []
-        if not isinstance(description, str):
-            raise InvalidValueError(f"Plan.description must be text, got {type(description).__name__}")
-        #: Free text about the design (kept in the plan file).
         self.description = description
         for name, value in (("supply", supply), ("negative_supply", negative_supply),
                             ("source_resistance", source_resistance), ("load_resistance", load_resistance),
@@ -126,9 +138,11 @@ class Plan:
     # -- plan-level values --------------------------------------------------------------------
     def _set_plan_value(self, name, value):
         number = PLAN_PARAMETERS[name].check(value, f"Plan.{name}")
-        if name == "source_resistance" and number is not None and 0 < number < 1e-6:
-            # Below a micro-ohm the source would swamp the equations' precision; 0 is the ideal source.
-            raise InvalidValueError(f"Plan.source_resistance: must be 0 (an ideal source) or >= 1 µΩ, got {value!r}")
+        if name == "source_resistance" and number is not None and 0 < number < RESISTANCE_RANGE[0]:
+            # Below the circuit's smallest resistance the source would swamp the equations' precision;
+            # 0 is the ideal source.
+            raise InvalidValueError(f"Plan.source_resistance: must be 0 (an ideal source) or >= "
+                                    f"{RESISTANCE_RANGE[0]:g} Ω, got {shown(value)}")
         object.__setattr__(self, "_" + name, number)
 
     supply = property(lambda self: self._supply, lambda self, v: self._set_plan_value("supply", v))
@@ -146,6 +160,17 @@ class Plan:
                                     lambda self, v: self._set_plan_value("coupling_capacitance", v))
     bypass_capacitance = property(lambda self: self._bypass_capacitance,
                                   lambda self, v: self._set_plan_value("bypass_capacitance", v))
+
+    @property
+    def description(self) -> str:
+        """Free text about the design (kept in the plan file)."""
+        return self._description
+
+    @description.setter
+    def description(self, value: str):
+        if not isinstance(value, str):
+            raise InvalidValueError(f"Plan.description must be text, got {type(value).__name__}")
+        self._description = value
 
     @property
     def load_coupling(self) -> str:
@@ -170,9 +195,7 @@ class Plan:
         if not isinstance(stage, Stage):
             raise InvalidValueError(f"plan.add expects a stage template, got {type(stage).__name__}")
         sid = f"s{len(self._entries) + 1}"
-        if coupling == "capacitor" and not stage.has_base_bias():
-            raise InvalidValueError(f"{sid}: a capacitor-coupled {type(stage).__name__} needs its own base bias "
-                                    "(rb1 and/or rb2, or rf); give one or use coupling='direct'")
+        _check_base_bias(sid, stage, coupling)
         self._entries.append(StageEntry(stage, coupling))
         return sid
 
@@ -205,51 +228,103 @@ class Plan:
         return ids.index(sid)
 
     # -- dotted addresses ---------------------------------------------------------------------
-    def get(self, address: str):
-        """Value at a dotted address: ``"supply"``, ``"s1.rc"``, ``"s2.device.beta"``, ``"s1.coupling"``."""
+    def _address(self, address) -> tuple:
+        """What a dotted address names, checked: ``("plan", name)``, ``("coupling", k)``,
+        ``("device", k)``, ``("device-parameter", k, name)`` or ``("stage", k, name)``, k the stage index."""
+        if not isinstance(address, str):
+            raise UnknownNameError(f"an address is text such as 's1.rc', got {address!r}")
         head, _, rest = address.partition(".")
         if not rest:
-            if head in PLAN_PARAMETERS or head == "load_coupling":
-                return getattr(self, head)
-            raise UnknownNameError(f"no plan parameter {address!r}")
-        entry = self._entries[self._index(head)]
-        if rest == "coupling":
-            return entry.coupling
+            if head in PLAN_PARAMETERS or head in _PLAN_WORDS:
+                return ("plan", head)
+            raise UnknownNameError(f"no plan parameter {address!r}"
+                                   + _did_you_mean(head, (*PLAN_PARAMETERS, *_PLAN_WORDS)))
+        k = self._index(head)
+        if rest in ("coupling", "device"):
+            return (rest, k)
         if rest.startswith("device."):
             pname = rest[len("device."):]
             if pname not in DEVICE_FIELDS:
-                raise UnknownNameError(f"{address}: transistors have no parameter {pname!r}")
-            return getattr(entry.stage.device, pname)
-        values = entry.stage.parameters()
+                raise UnknownNameError(f"{address}: transistors have no parameter {pname!r}"
+                                       + _did_you_mean(pname, DEVICE_FIELDS))
+            return ("device-parameter", k, pname)
+        stage = self._entries[k].stage
+        values = stage.parameters()
         if rest not in values:
-            raise UnknownNameError(f"{address}: {type(entry.stage).__name__} has no parameter {rest!r}; "
-                                   f"it has {', '.join(values)}")
-        return values[rest]
+            raise UnknownNameError(f"{address}: {type(stage).__name__} has no parameter {rest!r}; "
+                                   f"it has {', '.join((*values, 'device', 'coupling'))}")
+        return ("stage", k, rest)
+
+    def get(self, address: str):
+        """Value at a dotted address.
+
+        Addresses: a plan value (``"supply"``, ``"load_coupling"``, ``"description"``); a stage's
+        parameter (``"s1.rc"``; for a custom stage, an element's name), its transistor
+        (``"s1.device"``) or one transistor parameter (``"s2.device.beta"``), and its coupling
+        (``"s1.coupling"``).
+        """
+        where = self._address(address)
+        if where[0] == "plan":
+            return getattr(self, where[1])
+        entry = self._entries[where[1]]
+        if where[0] == "coupling":
+            return entry.coupling
+        if where[0] == "device":
+            return entry.stage.device
+        if where[0] == "device-parameter":
+            return getattr(entry.stage.device, where[2])
+        return entry.stage.parameters()[where[2]]
 
     def set(self, address: str, value) -> None:
-        """Change the value at a dotted address (see :meth:`get`); validated like the constructor."""
-        head, _, rest = address.partition(".")
-        if not rest:
-            if head in PLAN_PARAMETERS or head == "load_coupling":
-                setattr(self, head, value)
-                return
-            raise UnknownNameError(f"no plan parameter {address!r}")
-        k = self._index(head)
-        entry = self._entries[k]
-        if rest == "coupling":
-            if value not in COUPLINGS:
+        """Change the value at a dotted address (see :meth:`get`), validated like the constructors.
+
+        A refused change leaves the plan as it was. A capacitor-coupled stage must keep its own
+        base bias, as :meth:`add` requires.
+        """
+        where = self._address(address)
+        if where[0] == "plan":
+            setattr(self, where[1], value)
+            return
+        sid = self.stage_ids[where[1]]
+        entry = self._entries[where[1]]
+        if where[0] == "coupling":
+            if not isinstance(value, str) or value not in COUPLINGS:
                 raise UnknownModelError(f"{address} must be one of {', '.join(COUPLINGS)}, got {value!r}")
-            if value == "capacitor" and not entry.stage.has_base_bias():
-                raise InvalidValueError(f"{head}: a capacitor-coupled {type(entry.stage).__name__} needs its own "
-                                        "base bias (rb1 and/or rb2, or rf)")
+            _check_base_bias(sid, entry.stage, value)
             entry.coupling = value
             return
-        if rest.startswith("device."):
-            pname = rest[len("device."):]
-            device = entry.stage.device.replace(**{pname: value})
-            entry.stage = entry.stage.replace(device=device)
-            return
-        entry.stage = entry.stage.replace(**{rest: value})
+        if where[0] == "device":
+            stage = entry.stage.replace(device=value)
+        elif where[0] == "device-parameter":
+            stage = entry.stage.replace(device=entry.stage.device.replace(**{where[2]: value}))
+        else:
+            stage = entry.stage.replace(**{where[2]: value})
+        _check_base_bias(sid, stage, entry.coupling)
+        entry.stage = stage
+
+    def unit(self, address: str) -> str:
+        """SI unit symbol of the number at a dotted address, from the declarations.
+
+        ``"Ω"``, ``"F"``, ``"V"``, ``"A"``, ``"W"``, ``"°C"``, ``"V/K"``, ``"eV"``, or ``""`` for a
+        dimensionless one (``"s1.device.beta"``).
+
+        Raises
+        ------
+        UnknownNameError
+            The address names nothing.
+        InvalidValueError
+            The address holds a word (a coupling, a polarity, the description) or a transistor,
+            not a number.
+        """
+        where = self._address(address)
+        if where[0] == "plan" and where[1] in PLAN_PARAMETERS:
+            return PLAN_PARAMETERS[where[1]].unit
+        if where[0] == "device-parameter" and where[2] in DEVICE_UNITS:
+            return DEVICE_UNITS[where[2]]
+        if where[0] == "stage":
+            return self._entries[where[1]].stage.unit(where[2])
+        held = "a transistor" if where[0] == "device" else "a word"
+        raise InvalidValueError(f"{address} holds {held}, not a number, so it has no unit")
 
     def copy(self) -> "Plan":
         """An independent copy (stages are immutable)."""

@@ -18,9 +18,11 @@ import math
 from dataclasses import dataclass, field
 from typing import ClassVar, Literal, get_args
 
-from .circuit import GROUND, Bjt, Capacitor, Circuit, CurrentSource, Resistor, VoltageSource
+from .circuit import (GROUND, RESISTANCE_RANGE, VALUE_BOUNDS, Bjt, Capacitor, Circuit, CurrentSource, Resistor,
+                      VoltageSource)
 from .devices import Transistor
 from .errors import InvalidValueError, UnknownNameError
+from .validation import bounds_text, check_number
 
 __all__ = ["Parameter", "Stage", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage",
            "StageNodes", "Rails", "TEMPLATES", "SUPPLY_NODE", "LOWER_NODE"]
@@ -68,30 +70,18 @@ class Parameter:
     minimum_inclusive: bool = False
 
     def check(self, value, where: str):
-        """Return ``value`` as float (or None), raising InvalidValueError naming ``where``."""
-        if value is None:
-            if self.optional:
-                return None
-            raise InvalidValueError(f"{where}: is required ({self.help})")
-        if isinstance(value, bool):
-            raise InvalidValueError(f"{where}: must be a number, got {value!r}")
-        try:
-            number = float(value)
-        except (TypeError, ValueError):
-            raise InvalidValueError(f"{where}: must be a number, got {value!r}") from None
-        below = number < self.minimum if self.minimum_inclusive else number <= self.minimum
-        if not math.isfinite(number) or below or number > self.maximum:
-            raise InvalidValueError(f"{where}: must be {self.bounds_text()}, got {value!r}")
-        return number
+        """Return ``value`` as float (or None), raising InvalidValueError naming ``where``.
+
+        The rules are those of :func:`ampplan.validation.check_number`: a real number (not a bool,
+        text or a list), finite, within the bounds; None only when ``optional``.
+        """
+        return check_number(value, f"{where}:", minimum=self.minimum, maximum=self.maximum,
+                            minimum_inclusive=self.minimum_inclusive, unit=self.unit, optional=self.optional,
+                            required=self.help)
 
     def bounds_text(self) -> str:
-        """The allowed range in words, e.g. ``"> 0 Ω"`` or ``">= 0 V and <= 60 V"``."""
-        parts = []
-        if math.isfinite(self.minimum):
-            parts.append(f"{'>=' if self.minimum_inclusive else '>'} {self.minimum:g} {self.unit}".rstrip())
-        if math.isfinite(self.maximum):
-            parts.append(f"<= {self.maximum:g} {self.unit}".rstrip())
-        return " and ".join(parts) or "finite"
+        """The allowed range in words, e.g. ``"> 0 F"`` or ``">= 1e-06 Ω and <= 1e+12 Ω"``."""
+        return bounds_text(self.minimum, self.maximum, self.minimum_inclusive, self.unit)
 
 
 @dataclass(frozen=True)
@@ -111,7 +101,10 @@ class StageNodes:
 
 
 def _r(p, help_, default=None, optional=True):
-    return Parameter(p, "Ω", default, help_, optional=optional)
+    # Resistances take their bounds from the circuit's RESISTANCE_RANGE, so that a stage never
+    # holds a value its circuit would refuse.
+    return Parameter(p, "Ω", default, help_, optional=optional, minimum=RESISTANCE_RANGE[0],
+                     minimum_inclusive=True, maximum=RESISTANCE_RANGE[1])
 
 
 def _c(p, help_):
@@ -141,6 +134,14 @@ class Stage:
     def parameters(self) -> dict:
         """Declared parameter values by name (SI units; None where not fitted)."""
         return {p.name: getattr(self, p.name) for p in self.PARAMETERS}
+
+    def unit(self, name: str) -> str:
+        """SI unit symbol of parameter ``name`` (``"Ω"``, ``"F"``), from its declaration."""
+        for p in self.PARAMETERS:
+            if p.name == name:
+                return p.unit
+        raise UnknownNameError(f"{type(self).__name__} has no parameter {name!r}; "
+                               f"it has {', '.join(p.name for p in self.PARAMETERS)}")
 
     def replace(self, **changes) -> "Stage":
         """A copy with some parameters (or ``device``) changed."""
@@ -173,7 +174,11 @@ class Stage:
             added.append(f"{sid}_rb2")
 
     def _emitter_network(self, circuit, sid, emitter, rail, added, re, re_bypassed, c_bypass):
-        """Unbypassed ``re`` then bypassed ``re_bypassed`` from the emitter to ``rail``."""
+        """Unbypassed ``re`` then bypassed ``re_bypassed`` from the emitter to ``rail``.
+
+        The caller passes at least one of ``re`` and ``re_bypassed`` (with neither, the emitter
+        goes straight to the rail and this is not called).
+        """
         node = emitter
         if re is not None:
             nxt = f"{sid}_ex" if re_bypassed is not None else rail
@@ -184,8 +189,6 @@ class Stage:
             circuit.resistor(f"{sid}_re_bypassed", node, rail, re_bypassed)
             circuit.capacitor(f"{sid}_c_bypass", node, GROUND, c_bypass)
             added += [f"{sid}_re_bypassed", f"{sid}_c_bypass"]
-        elif re is None and emitter != rail:
-            raise InvalidValueError(f"{sid}: the emitter needs re or re_bypassed (or both)")
 
 
 def _template(name: str, kind: str, parameters: tuple[Parameter, ...], summary: str, base=Stage):
@@ -198,7 +201,7 @@ def _template(name: str, kind: str, parameters: tuple[Parameter, ...], summary: 
     for p in parameters:
         default = "None" if p.default is None else f"{p.default:g}"
         lines += [f"{p.name} : float{' or None' if p.optional else ''}",
-                  f"    {p.help} ({p.unit}, > {p.minimum:g}; default {default})."]
+                  f"    {p.help} ({p.unit}, {p.bounds_text()}; default {default})."]
     lines += ["device : Transistor", "    The stage's transistor (its polarity decides the orientation)."]
     cls.__doc__ = "\n".join(lines)
     cls.__module__ = __name__
@@ -270,9 +273,6 @@ CommonCollector = _template(
 
 
 class _CommonBase(Stage):
-    def has_base_bias(self):
-        return True
-
     def _check(self):
         if self.rb1 is None or self.rb2 is None:
             raise InvalidValueError("CommonBase needs both rb1 and rb2 (its base divider)")
@@ -309,9 +309,10 @@ class CustomStage(Stage):
     circuit : Circuit
         The stage's elements. Rails are the nodes ``"supply"`` and ``"lower"`` (the lower rail)
         and ``"gnd"``; the node named by ``input`` is joined to the previous stage (or coupling
-        capacitor); every other node is private to the stage.
+        capacitor); every other node is private to the stage (``"<sid>.<node>"`` in the plan's
+        circuit, e.g. ``"s2.c"``).
     input, output : str
-        The stage's input and output nodes.
+        The stage's input and output nodes: nodes of its own, not rails (InvalidValueError).
     transistor : str
         Name of the transistor whose Q-point, swing and load lines the stage reports.
     """
@@ -327,8 +328,14 @@ class CustomStage(Stage):
         if not isinstance(self.circuit, Circuit):
             raise InvalidValueError("CustomStage.circuit must be an ampplan.Circuit")
         nodes = set(self.circuit.nodes) | {GROUND}
+        rails = (SUPPLY_NODE, LOWER_NODE, GROUND)
         for what in ("input", "output"):
             node = getattr(self, what)
+            if node in rails:
+                # The plan joins a rail node to its own rail, so a rail input or output would
+                # merge the signal path with that rail.
+                raise InvalidValueError(f"CustomStage.{what}: {node!r} is a rail node; the {what} must be a "
+                                        f"node of the stage's own (not {', '.join(map(repr, rails))})")
             if node not in nodes:
                 raise UnknownNameError(f"CustomStage.{what}: the stage circuit has no node {node!r}")
         names = {b.name for b in self.circuit.of_kind(Bjt)}
@@ -350,6 +357,14 @@ class CustomStage(Stage):
                     out[e.name] = getattr(e, attr)
         return out
 
+    def unit(self, name: str) -> str:
+        """SI unit symbol of element ``name``'s value: Ω, F, V or A by its kind."""
+        element = self.circuit.element(name)
+        if isinstance(element, Bjt):
+            raise InvalidValueError(f"CustomStage element {name!r} is a transistor; it has no single value "
+                                    "(its device parameters have units of their own)")
+        return VALUE_BOUNDS[type(element)]["unit"]
+
     def replace(self, **changes) -> "CustomStage":
         """A copy with element values (by element name) or ``device`` changed."""
         circuit = self.circuit.copy()
@@ -366,12 +381,14 @@ class CustomStage(Stage):
             circuit.add(dataclasses.replace(old, **{attr: value}))
         return CustomStage(circuit=circuit, input=self.input, output=self.output, transistor=self.transistor)
 
-    def has_base_bias(self):
-        return True
-
     def build(self, circuit, sid, input_node, rails):
+        """Add the elements as ``<sid>_<element>``; private nodes become ``<sid>.<node>``.
+
+        The plan's own nodes are ``<sid>_...`` without a dot (``s1_in``, ``s1_c``), so a private
+        node can never land on one of them.
+        """
         mapping = {SUPPLY_NODE: rails.supply, LOWER_NODE: rails.lower, GROUND: GROUND, self.input: input_node}
-        rename = lambda n: mapping.get(n, f"{sid}_{n}")  # noqa: E731
+        rename = lambda n: mapping.get(n, f"{sid}.{n}")  # noqa: E731
         added = []
         for e in self.circuit.elements:
             new_name = f"{sid}_{e.name}"

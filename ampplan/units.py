@@ -21,7 +21,9 @@ _ASCII_UNITS = {"Ω": "Ohm", "°C": "C"}
 def parse_quantity(text, unit: str = "") -> float:
     """Read ``"4.7k"``, ``"100u"``, ``"2.2 MΩ"`` or a plain number as a float in SI base units.
 
-    Raises InvalidValueError naming the text when it is not a number.
+    A unit after the number must be ``unit`` (or its ASCII spelling, ``Ohm`` for Ω, ``C`` for °C);
+    with ``unit=""`` none is allowed. Raises InvalidValueError naming the text when it is not a
+    number or carries another unit.
     """
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         return float(text)
@@ -32,8 +34,10 @@ def parse_quantity(text, unit: str = "") -> float:
     # Anything after the number must be the expected unit (or nothing): quantiphy would otherwise
     # read "4k7" as 4 with a unit "k7", or "1meg" as 1 m with a unit "eg".
     if quantity.units and quantity.units not in {unit, _ASCII_UNITS.get(unit, unit)}:
+        expected = f"{unit} or no unit" if unit else "no unit"
         raise InvalidValueError(f"cannot read {text!r} as a quantity{' in ' + unit if unit else ''}: "
-                                f"unexpected {quantity.units!r} after the number (write 4.7k, 100u, 2.2M)")
+                                f"unexpected {quantity.units!r} after the number, expected {expected} "
+                                "(write 4.7k, 100u, 2.2M)")
     return float(quantity)
 
 

@@ -158,6 +158,60 @@ def test_bad_set_exits_2(capsys, saturated, setting, expected):
     assert "Traceback" not in err
 
 
+@pytest.mark.parametrize("with_unit, without", [
+    pytest.param("s1.rb1=2.2 MΩ", "s1.rb1=2.2M", id="megohm-spaced"),
+    pytest.param("s1.rb1=2.2MOhm", "s1.rb1=2.2M", id="megohm-ascii"),
+    pytest.param("s1.rc=4.7kΩ", "s1.rc=4.7k", id="kilohm"),
+    pytest.param("s1.c_bypass=100uF", "s1.c_bypass=100u", id="microfarad"),
+    pytest.param("supply=12V", "supply=12", id="volt"),
+    pytest.param("temperature=85°C", "temperature=85", id="celsius"),
+    pytest.param("s1.device.vbe_on=650mV", "s1.device.vbe_on=0.65", id="millivolt"),
+    pytest.param("s1.device.saturation_current=10fA", "s1.device.saturation_current=1e-14", id="femtoampere"),
+])
+def test_set_reads_the_unit_of_the_address(capsys, saturated, with_unit, without):
+    # SI prefixes (BIPM SI brochure, from memory): M = 1e6, k = 1e3, u = 1e-6, m = 1e-3, f = 1e-15.
+    # The same value with and without its unit gives the same report.
+    status, out, err = run(capsys, "check", str(saturated), "--json", "--set", "s1.rb1=2.2M", "--set", with_unit)
+    assert err == "", err
+    expected = run(capsys, "check", str(saturated), "--json", "--set", "s1.rb1=2.2M", "--set", without)
+    assert (status, out) == expected[:2]
+
+
+@pytest.mark.parametrize("setting, expected", [
+    pytest.param("s1.rc=4.7kV", ["unexpected 'V'", "expected Ω or no unit"], id="volts-for-a-resistor"),
+    pytest.param("supply=12Ω", ["unexpected 'Ω'", "expected V or no unit"], id="ohms-for-a-supply"),
+    pytest.param("s1.device.beta=150A", ["unexpected 'A'", "expected no unit"], id="unit-on-a-gain"),
+    pytest.param("s1.device.beta=True", ["cannot read 'True'"], id="bool-word"),
+    pytest.param("s1.rc=1n", ["CommonEmitter.rc", ">= 1e-06 Ω", "got 1e-09"], id="below-resistance-range"),
+    pytest.param("s1.device=general", ["s1.device is a whole transistor", "s1.device.beta="], id="whole-device"),
+    pytest.param("s1.rb1=none", ["needs its own base bias"], id="clearing-the-bias"),
+])
+def test_set_refuses(capsys, saturated, setting, expected):
+    status, out, err = run(capsys, "check", str(saturated), "--set", setting)
+    assert status == 2 and out == ""
+    assert err.startswith(f"ampplan: --set {setting}: ")
+    for text in expected:
+        assert text in err, err
+
+
+def test_set_description_shows_in_the_report(capsys, saturated):
+    status, out, err = run(capsys, "check", str(saturated), "--set", "description=bench copy")
+    assert status == 1 and "\n  bench copy\n" in out
+
+
+def test_plan_file_is_read_once(capsys, monkeypatch, saturated):
+    import ampplan.cli
+    calls = []
+    real = ampplan.cli.read_plan_file
+
+    def counting(path):
+        calls.append(path)
+        return real(path)
+    monkeypatch.setattr(ampplan.cli, "read_plan_file", counting)
+    status, out, err = run(capsys, "check", str(saturated))
+    assert status == 1 and calls == [str(saturated)]
+
+
 # ------------------------------------------------------------------------------------------------
 # Bad input: exit 2, a message naming the file and JSON path, no traceback
 # ------------------------------------------------------------------------------------------------
@@ -169,7 +223,7 @@ def test_bad_file_exits_2(capsys, tmp_path, saturated):
     bad.write_text(json.dumps(data), encoding="utf-8")
     status, out, err = run(capsys, "check", str(bad))
     assert status == 2 and out == ""
-    assert err.strip() == f"ampplan: {bad}: stages[0].rc: must be > 0 Ω, got -4700"
+    assert err.strip() == f"ampplan: {bad}: stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got -4700"
 
 
 @pytest.mark.parametrize("content, expected", [

@@ -19,6 +19,7 @@ from hypothesis import assume, given, note
 from hypothesis import strategies as st
 
 import reference as ref
+import ampplan
 from ampplan import errors
 from conftest import MODELS, as_solution, circuits, compare, kcl_imbalance, regions_of
 
@@ -286,3 +287,31 @@ def test_vcb_zero_active_edge_keeps_forward_active_collector_above_base(circuit)
         t = op.transistors[e.name]
         if t.region == "forward-active":
             assert ref.sign(e) * (t.vce - t.vbe) >= -1e-9 * max(1.0, abs(t.vce)), e.name
+
+
+def test_independent_batch_equals_one_by_one_on_a_bistable_circuit():
+    # Issue 2 §5 (batched equals one-by-one) where it is hardest: an emitter-coupled trigger swept
+    # across its hysteresis window has two operating points there. With warm_start=False every
+    # sample starts as a single solve does, so both models must agree sample by sample.
+    q = ampplan.Transistor(beta=100.0)
+    c = ampplan.Circuit()
+    c.voltage_source("VCC", "vcc", "gnd", 12.0)
+    c.voltage_source("VIN", "in", "gnd", 3.0)
+    c.resistor("RS", "in", "b1", 1e3)
+    c.resistor("RC1", "vcc", "c1", 4.7e3)
+    c.resistor("RC2", "vcc", "c2", 2.2e3)
+    c.resistor("R1", "c1", "b2", 10e3)
+    c.resistor("R2", "b2", "gnd", 10e3)
+    c.resistor("RE", "e", "gnd", 1e3)
+    c.bjt("Q1", "c1", "b1", "e", q)
+    c.bjt("Q2", "c2", "b2", "e", q)
+    vin = np.linspace(0.0, 6.0, 25)
+    for model in ("constant-drop", "ebers-moll"):
+        batch = c.solve(model=model, batch={"VIN": vin}, warm_start=False)
+        for k, v in enumerate(vin):
+            one = c.copy()
+            one.remove("VIN")
+            one.voltage_source("VIN", "in", "gnd", float(v))
+            single = one.solve(model=model)
+            assert batch.transistors["Q1"].region[k] == single.transistors["Q1"].region, (model, v)
+            assert math.isclose(batch.v["c2"][k], single.v["c2"], rel_tol=1e-9, abs_tol=1e-9), (model, v)

@@ -198,9 +198,17 @@ def _drop(*path):
 
 MALFORMED = [
     # id, mutation of a valid document, text (or texts) the message must contain
-    ("negative-resistor", _set("stages", 1, "rc", -4700), "stages[1].rc: must be > 0 Ω, got -4700"),
-    ("zero-resistor", _set("stages", 0, "re", 0), "stages[0].re: must be > 0 Ω, got 0"),
-    ("negative-optional-resistor", _set("stages", 4, "rb1", -1.5), "stages[4].rb1: must be > 0 Ω, got -1.5"),
+    ("negative-resistor", _set("stages", 1, "rc", -4700),
+     "stages[1].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got -4700"),
+    ("zero-resistor", _set("stages", 0, "re", 0), "stages[0].re: must be >= 1e-06 Ω and <= 1e+12 Ω, got 0"),
+    ("negative-optional-resistor", _set("stages", 4, "rb1", -1.5),
+     "stages[4].rb1: must be >= 1e-06 Ω and <= 1e+12 Ω, got -1.5"),
+    # Resistances take their bounds from circuit.RESISTANCE_RANGE (1 µΩ to 1 TΩ) everywhere.
+    ("tiny-resistor", _set("stages", 0, "rc", 1e-9), "stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got 1e-09"),
+    ("huge-load", _set("load_resistance", 1e13),
+     "load_resistance: must be >= 1e-06 Ω and <= 1e+12 Ω, got 10000000000000"),
+    ("tiny-source-resistance", _set("source_resistance", 1e-9),
+     "source_resistance: must be 0 (an ideal source) or >= 1e-06 Ω, got 1e-09"),
     ("text-for-number", _set("stages", 0, "rc", "4.7k"), 'stages[0].rc: must be a number, got "4.7k"'),
     ("boolean-for-number", _set("supply", True), "supply: must be a number, got true"),
     ("null-for-required", _set("stages", 0, "rc", None), "stages[0].rc: must be a number, got null"),
@@ -219,9 +227,9 @@ MALFORMED = [
     ("bad-load-coupling", _set("load_coupling", 3), "load_coupling: must be one of"),
     ("negative-beta", _set("stages", 0, "device", "beta", -3), "stages[0].device.beta: must be > 0, got -3"),
     ("bad-infinity-word", _set("stages", 0, "device", "early_voltage", "infinite"),
-     'stages[0].device.early_voltage: must be a number > 0 or "inf", got "infinite"'),
+     'stages[0].device.early_voltage: must be a number > 0 V or "inf", got "infinite"'),
     ("null-early-voltage", _set("stages", 0, "device", "early_voltage", None),
-     "stages[0].device.early_voltage: must be a number > 0 or \"inf\", got null"),
+     "stages[0].device.early_voltage: must be a number > 0 V or \"inf\", got null"),
     ("infinite-resistor", _set("stages", 0, "rc", "inf"), 'stages[0].rc: must be a number, got "inf"'),
     ("temperature-below-absolute-zero", _set("temperature", -300), "temperature: must be > -273.15 °C"),
     ("stages-not-a-list", _set("stages", {"s1": {}}), "stages: must be a list, got an object"),
@@ -240,7 +248,7 @@ MALFORMED = [
     ("custom-node-count", _set("stages", 3, "elements", 7, "nodes", ["a", "b"]),
      "stages[3].elements[7].nodes: must list 3 nodes (collector, base, emitter), got 2"),
     ("custom-negative-resistor", _set("stages", 3, "elements", 0, "value", -5),
-     "stages[3].elements[0].value: resistance must be > 0, got -5"),
+     "stages[3].elements[0].value: must be >= 1e-06 Ω and <= 1e+12 Ω, got -5"),
     ("custom-transistor-without-device", _drop("stages", 3, "elements", 7, "device"),
      "stages[3].elements[7]: missing key 'device'"),
     ("custom-value-on-transistor", _set("stages", 3, "elements", 7, "value", 1.0),
@@ -371,7 +379,7 @@ def test_plan_from_dict_names_its_source(document):
     data = copy.deepcopy(document)
     data["stages"][0]["rc"] = -4700
     message = str(pytest.raises(PlanFileError, plan_from_dict, data, source="pasted plan").value)
-    assert message == "pasted plan: stages[0].rc: must be > 0 Ω, got -4700"
+    assert message == "pasted plan: stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got -4700"
 
 
 def test_read_plan_file_returns_the_validated_dict(tmp_path, document):
@@ -447,3 +455,54 @@ def test_save_refuses_a_non_plan(tmp_path):
     with pytest.raises(TypeError):
         save_plan({"supply": 12}, tmp_path / "p.json")
     assert list(tmp_path.iterdir()) == []
+
+
+# ------------------------------------------------------------------------------------------------
+# Nothing unloadable is written; vbc_on "same as vbe_on" is kept as null
+# ------------------------------------------------------------------------------------------------
+
+def _plan_holding(value) -> Plan:
+    """A plan whose stage holds an rc that skipped validation (as an object patched in memory would)."""
+    plan = Plan()
+    plan.add(CommonEmitter(rb1=47e3, rb2=10e3, rc=4.7e3, re=1e3))
+    object.__setattr__(plan.stage("s1"), "rc", value)
+    return plan
+
+
+@pytest.mark.parametrize("value, expected", [
+    pytest.param(1e-9, "stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got 1e-09", id="below-range"),
+    pytest.param("4.7k", 'stages[0].rc: must be a number, got "4.7k"', id="text"),
+])
+def test_save_refuses_a_plan_that_would_not_load(tmp_path, value, expected):
+    # A new file is not created, and an old one keeps its content (the check comes before writing).
+    for path in (tmp_path / "new.json", _original(tmp_path)[0]):
+        before = path.read_bytes() if path.exists() else None
+        message = str(pytest.raises(PlanFileError, save_plan, _plan_holding(value), path).value)
+        assert str(path) in message and "not written" in message and expected in message
+        assert (path.read_bytes() if path.exists() else None) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["plan.json"]
+
+
+def test_save_refuses_what_only_the_constructors_catch(tmp_path):
+    # The schema allows rb1 = rb2 = null; plan.add does not, for a capacitor-coupled stage.
+    plan = Plan()
+    plan.add(CommonEmitter(rb1=47e3, rb2=10e3, rc=4.7e3, re=1e3))
+    object.__setattr__(plan.stage("s1"), "rb1", None)
+    object.__setattr__(plan.stage("s1"), "rb2", None)
+    path = tmp_path / "p.json"
+    message = str(pytest.raises(PlanFileError, save_plan, plan, path).value)
+    assert str(path) in message and "stages[0]: a capacitor-coupled CommonEmitter needs its own base bias" in message
+    assert not path.exists()
+
+
+def test_vbc_on_same_as_vbe_on_is_stored_as_null(tmp_path):
+    plan = Plan()
+    plan.add(CommonEmitter(rb1=47e3, rb2=10e3, rc=4.7e3, re=1e3, device=Transistor().replace(vbe_on=0.65)))
+    path = tmp_path / "p.json"
+    save_plan(plan, path)
+    data = json.loads(path.read_text(encoding="utf-8"))
+    assert data["stages"][0]["device"]["vbc_on"] is None and data["stages"][0]["device"]["vbe_on"] == 0.65
+    loaded = load_plan(path)
+    assert loaded.get("s1.device.vbc_on") is None
+    loaded.set("s1.device.vbe_on", 0.6)                       # still follows vbe_on after loading
+    assert loaded.compile().circuit.layout().parameters().device["vbc_on"].tolist() == [[0.6]]

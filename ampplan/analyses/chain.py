@@ -16,7 +16,8 @@ from __future__ import annotations
 import math
 
 from ..circuit import Resistor
-from ..devices import REFERENCE_TEMPERATURE
+from ..devices import scaled_to_temperature
+from ..plan import LOAD_RESISTOR, NEGATIVE_SUPPLY, SOURCE_RESISTOR, SUPPLY
 from .dissipation import resistor_cautions, supply_cautions, transistor_cautions
 from .results import LoadLine, LoadLines, PlanResult, StageResult, Swing
 from .smallsignal import incremental_models, solve_incremental
@@ -33,9 +34,16 @@ def analyse_plan(plan, model: str = "constant-drop", active_edge: str = "vce-sat
 
 
 def forward_active_edge(device, model: str, active_edge: str, temperature: float) -> float:
-    """V_CE (transistor frame) where forward-active ends, volts."""
+    """V_CE (transistor frame) where forward-active ends, volts.
+
+    With ``active_edge="vcb-zero"`` (constant-drop) the edge is V_CB = 0, i.e. V_CE = V_BE(on) at
+    ``temperature`` (degrees Celsius), moved by :func:`ampplan.devices.scaled_to_temperature`
+    exactly as the solver moves it; otherwise V_CE(sat).
+    """
     if model == "constant-drop" and active_edge == "vcb-zero":
-        return device.vbe_on + device.vbe_temperature_coefficient * (temperature - REFERENCE_TEMPERATURE)
+        parameters = {k: float(v) for k, v in device.to_dict().items() if k != "polarity" and v is not None}
+        parameters.setdefault("vbc_on", parameters["vbe_on"])  # None means "as vbe_on"
+        return float(scaled_to_temperature(parameters, temperature)["vbe_on"])
     return device.vce_sat
 
 
@@ -101,10 +109,15 @@ def analyse_compiled(plan, compiled, op, active_edge: str = "vce-sat") -> PlanRe
         stage_cautions = transistor_cautions(sid, t, device, edge, plan.min_headroom, op.temperature)
         stage_cautions += resistor_cautions({f"{sid}.{n}": p for n, p in resistor_power.items()},
                                             plan.resistor_power_rating)
+        # A custom stage's other transistors get the region and rating checks; the headroom asked
+        # for is the reported transistor's (a diode-connected one, say, never has it).
         for other in nodes.elements:
             if other in op.transistors and other != nodes.transistor:
-                if op.transistors[other].region != "forward-active":
-                    stage_cautions.append(f"{sid}: transistor {other} is in {op.transistors[other].region}.")
+                other_device = circuit.element(other).device
+                stage_cautions += transistor_cautions(
+                    sid, op.transistors[other], other_device,
+                    forward_active_edge(other_device, op.model, active_edge, op.temperature), None,
+                    op.temperature, name=other)
         cautions += stage_cautions
         stages.append(StageResult(
             id=sid, kind=stage.kind, transistor=t, gain=gain, input_resistance=r_in, output_resistance=r_out,
@@ -118,13 +131,18 @@ def analyse_compiled(plan, compiled, op, active_edge: str = "vce-sat") -> PlanRe
         amplitude, limiting = clipping.positive, clipping.positive_stage
     else:
         amplitude, limiting = clipping.negative, clipping.negative_stage
+    # The plan's own resistors (source and load) are rated like the stages' ones.
+    plan_resistor_power = {name: op.i[name] ** 2 * circuit.element(name).resistance
+                           for name in (SOURCE_RESISTOR, LOAD_RESISTOR) if name in op.i}
+    cautions += resistor_cautions(plan_resistor_power, plan.resistor_power_rating)
     cautions += supply_cautions(plan.supply, plan.negative_supply)
     supplies = [e for e in circuit.elements if getattr(e, "voltage", None) is not None
-                and e.name in ("supply", "negative_supply")]
+                and e.name in (SUPPLY, NEGATIVE_SUPPLY)]
     supply_power = sum(e.voltage * op.i[e.name] for e in supplies)
     return PlanResult(
         model=op.model, stages=tuple(stages), gain=drive.v[compiled.load_node],
         input_resistance=stages[0].input_resistance, output_resistance=stages[-1].output_resistance,
         max_source_amplitude=amplitude, limiting_stage=limiting, clipping=clipping,
-        max_source_amplitude_estimate=estimate, supply_current=op.i["supply"], supply_power=supply_power,
-        cautions=tuple(cautions), operating_point=op, temperature=op.temperature)
+        max_source_amplitude_estimate=estimate, supply_current=op.i[SUPPLY], supply_power=supply_power,
+        cautions=tuple(cautions), operating_point=op, temperature=op.temperature,
+        resistor_power=plan_resistor_power)

@@ -5,12 +5,14 @@ Ratings and thresholds (each a plain parameter, common practice, no source):
 * transistor power rating ``max_power`` is given at 25 °C and derated linearly to zero at a
   150 °C junction limit above 25 °C;
 * every resistor is compared with the plan's ``resistor_power_rating`` (0.25 W by default);
-* a supply span above 60 V DC leaves the safety extra-low-voltage range (the limit IEC 61140
-  usage gives for DC); the caution defers to local codes and licensed practice.
+* a supply span above :data:`SAFETY_EXTRA_LOW_VOLTAGE_DC` (60 V DC) leaves the safety
+  extra-low-voltage range (the limit IEC 61140 usage gives for DC); the caution defers to local
+  codes and licensed practice.
 """
 
 from __future__ import annotations
 
+from ..devices import REFERENCE_TEMPERATURE
 from ..units import format_quantity as fq
 
 __all__ = ["derated_power", "transistor_cautions", "resistor_cautions", "supply_cautions",
@@ -23,15 +25,49 @@ SAFETY_EXTRA_LOW_VOLTAGE_DC = 60.0
 
 
 def derated_power(max_power: float, temperature: float) -> float:
-    """Transistor power rating at ``temperature`` (°C), linear derating above 25 °C, watts."""
-    if temperature <= 25.0:
+    """Transistor power rating at ``temperature``, watts.
+
+    Parameters
+    ----------
+    max_power : float
+        Rating at :data:`~ampplan.devices.REFERENCE_TEMPERATURE` (25 °C), watts.
+    temperature : float
+        Degrees Celsius; the rating falls linearly above 25 °C to zero at :data:`JUNCTION_LIMIT`.
+    """
+    if temperature <= REFERENCE_TEMPERATURE:
         return max_power
-    return max(0.0, max_power * (JUNCTION_LIMIT - temperature) / (JUNCTION_LIMIT - 25.0))
+    return max(0.0, max_power * (JUNCTION_LIMIT - temperature) / (JUNCTION_LIMIT - REFERENCE_TEMPERATURE))
 
 
-def transistor_cautions(sid: str, t, device, edge: float, headroom: float, temperature: float) -> list[str]:
-    """Plain-sentence cautions for one stage transistor (region, headroom, ratings)."""
+def transistor_cautions(sid: str, t, device, edge: float, headroom: float | None, temperature: float,
+                        name: str | None = None) -> list[str]:
+    """Plain-sentence cautions for one transistor (region, headroom, ratings).
+
+    Parameters
+    ----------
+    sid : str
+        Stage id that opens every sentence (``"s1"``).
+    t : TransistorResult
+        The transistor at the operating point (single solve, scalar fields).
+    device : Transistor
+        Its parameters, for beta and the ratings.
+    edge : float
+        V_CE where forward-active ends, volts, in the transistor's own frame (V_EC for a PNP).
+    headroom : float or None
+        Volts of V_CE above ``edge`` asked for; None skips the headroom check.
+    temperature : float
+        Degrees Celsius, for derating the power rating.
+    name : str, optional
+        The transistor's element name, for a stage with more than one; the sentences then say
+        "transistor <name>" instead of "the transistor".
+
+    Returns
+    -------
+    list of str
+        Empty when all is well.
+    """
     out = []
+    who = "the transistor" if name is None else f"transistor {name}"
     frame_vce = device.sign * t.vce
     if t.region != "forward-active":
         detail = ""
@@ -39,34 +75,52 @@ def transistor_cautions(sid: str, t, device, edge: float, headroom: float, tempe
             detail = f" (forced beta {t.beta_forced:.3g} is below beta {device.beta:.3g})"
         elif t.region == "cutoff":
             detail = " (no collector current)"
-        out.append(f"{sid}: the transistor is in {t.region}, not forward-active{detail}.")
-    elif frame_vce - edge < headroom:
-        out.append(f"{sid}: V_CE is only {fq(frame_vce - edge, 'V')} above the forward-active edge, "
+        out.append(f"{sid}: {who} is in {t.region}, not forward-active{detail}.")
+    elif headroom is not None and frame_vce - edge < headroom:
+        where = "" if name is None else f" of transistor {name}"
+        out.append(f"{sid}: V_CE{where} is only {fq(frame_vce - edge, 'V')} above the forward-active edge, "
                    f"less than the {fq(headroom, 'V')} headroom asked for.")
     if device.max_power is not None:
         rating = derated_power(device.max_power, temperature)
         if t.power > rating:
             derate = f" (derated to {fq(rating, 'W')} at {temperature:g} °C)" if rating != device.max_power else ""
-            out.append(f"{sid}: the transistor dissipates {fq(t.power, 'W')}, above its "
+            out.append(f"{sid}: {who} dissipates {fq(t.power, 'W')}, above its "
                        f"{fq(device.max_power, 'W')} rating{derate}; it may overheat.")
+    of = "" if name is None else f" of transistor {name}"
     if device.max_collector_current is not None and abs(t.ic) > device.max_collector_current:
-        out.append(f"{sid}: I_C {fq(abs(t.ic), 'A')} exceeds the {fq(device.max_collector_current, 'A')} rating.")
+        out.append(f"{sid}: I_C{of} {fq(abs(t.ic), 'A')} exceeds the {fq(device.max_collector_current, 'A')} "
+                   "rating.")
     if device.max_vce is not None and abs(t.vce) > device.max_vce:
-        out.append(f"{sid}: |V_CE| {fq(abs(t.vce), 'V')} exceeds the {fq(device.max_vce, 'V')} rating.")
+        out.append(f"{sid}: |V_CE|{of} {fq(abs(t.vce), 'V')} exceeds the {fq(device.max_vce, 'V')} rating.")
     return out
 
 
 def resistor_cautions(powers: dict, rating: float) -> list[str]:
-    """Cautions for resistors (by element name) dissipating more than ``rating`` watts."""
+    """Cautions for resistors dissipating more than ``rating``.
+
+    Parameters
+    ----------
+    powers : dict of str -> float
+        Watts by the name the sentence should use (``"s1.rc"``, ``"load_resistance"``).
+    rating : float
+        Watts.
+    """
     return [f"{name}: dissipates {fq(p, 'W')}, above the {fq(rating, 'W')} resistor rating."
             for name, p in powers.items() if p > rating]
 
 
 def supply_cautions(supply: float, negative_supply: float) -> list[str]:
-    """The safety caution for supplies beyond the safety extra-low-voltage range."""
+    """The safety caution for supplies beyond the safety extra-low-voltage range.
+
+    Parameters
+    ----------
+    supply, negative_supply : float
+        The two rails, volts (``negative_supply`` <= 0).
+    """
     span = supply - negative_supply
     if span > SAFETY_EXTRA_LOW_VOLTAGE_DC or max(abs(supply), abs(negative_supply)) > SAFETY_EXTRA_LOW_VOLTAGE_DC:
-        return [f"The supply spans {fq(span, 'V')} DC, beyond the 60 V DC safety extra-low-voltage range "
+        return [f"The supply spans {fq(span, 'V')} DC, beyond the {fq(SAFETY_EXTRA_LOW_VOLTAGE_DC, 'V')} DC "
+                "safety extra-low-voltage range "
                 "(IEC 61140 usage): touchable parts can be hazardous. Follow local electrical codes and "
                 "have the build checked under licensed practice."]
     return []

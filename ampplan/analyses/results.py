@@ -6,22 +6,29 @@ import html
 import math
 from dataclasses import dataclass, field
 
-from ..solver.result import TransistorResult, _plain
-from ..units import format_quantity
+from ..devices import REFERENCE_TEMPERATURE
+from ..errors import UnknownNameError
+from ..solver.result import TransistorResult, _fmt, _json_safe, _plain
 
 __all__ = ["LoadLine", "LoadLines", "Swing", "Clipping", "StageResult", "PlanResult"]
 
 
-def _q(value, unit=""):
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "—"
-    if isinstance(value, float) and math.isinf(value):
-        return ("-" if value < 0 else "") + "∞" + (f" {unit}" if unit else "")
-    return format_quantity(value, unit)
-
-
 def _gain(value) -> str:
-    return f"{value:.4g}" if value is not None and math.isfinite(value) else _q(value)
+    """A gain (V/V) to four significant digits; zero prints as ``0``, never ``-0``."""
+    if value is None or not math.isfinite(value):
+        return _fmt(value)
+    return "0" if value == 0 else f"{value:.4g}"
+
+
+def _html_table(rows, head=None) -> str:
+    """An HTML table of already-formatted cells, every cell escaped."""
+    e = html.escape
+    thead = "<thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in head) + "</tr></thead>" if head else ""
+    body = "".join("<tr>" + "".join(f"<td>{e(str(c))}</td>" for c in row) + "</tr>" for row in rows)
+    return f"<table>{thead}<tbody>{body}</tbody></table>"
+
+
+_LOAD_LINE_HEAD = ("R", "Q-point V_CE", "Q-point I_C", "V_CE at I_C = 0", "I_C at V_CE = 0")
 
 
 @dataclass(frozen=True)
@@ -35,13 +42,17 @@ class LoadLine:
     Attributes
     ----------
     resistance : float
-        Ohms the collector-emitter port sees (the inverse of minus the slope).
+        Ohms the collector-emitter port sees (the inverse of minus the slope). 0 when the
+        collector and the emitter are both grounded for the signal: the line is then vertical.
     q_vce, q_ic : float
         The Q-point, volts and amperes.
+    slope : float
+        dI_C/dV_CE, siemens: ``-1/resistance``, ``-inf`` for a vertical line.
     vce_at_zero_current : float
         Where the line meets I_C = 0 (volts).
     ic_at_zero_vce : float
-        Where the line meets V_CE = 0 (amperes).
+        Where the line meets V_CE = 0 (amperes); for a vertical line ``±inf`` (the sign of
+        ``q_vce``: it never meets the axis), NaN when it lies on the axis (``q_vce == 0``).
     """
     resistance: float
     q_vce: float
@@ -49,25 +60,44 @@ class LoadLine:
 
     @property
     def slope(self) -> float:
-        """dI_C/dV_CE along the line, siemens (negative)."""
-        return -1.0 / self.resistance
+        """dI_C/dV_CE along the line, siemens (negative; ``-inf`` when ``resistance == 0``)."""
+        r = float(self.resistance)
+        return -math.inf if r == 0 else -1.0 / r
 
     @property
     def vce_at_zero_current(self) -> float:
-        return self.q_vce + self.q_ic * self.resistance
+        # Python floats: inf·0 is NaN without a numpy warning.
+        return float(self.q_vce) + float(self.q_ic) * float(self.resistance)
 
     @property
     def ic_at_zero_vce(self) -> float:
-        return self.q_ic + self.q_vce / self.resistance
+        r, vce = float(self.resistance), float(self.q_vce)
+        if r == 0:
+            return math.copysign(math.inf, vce) if vce != 0 else math.nan
+        return float(self.q_ic) + vce / r
 
     @property
     def endpoints(self) -> tuple:
         """((V_CE, 0), (0, I_C)): the two axis crossings, ready to plot."""
         return ((self.vce_at_zero_current, 0.0), (0.0, self.ic_at_zero_vce))
 
+    def __repr__(self) -> str:
+        return (f"LoadLine({_fmt(self.resistance, 'Ω')} through the Q-point V_CE={_fmt(self.q_vce, 'V')}, "
+                f"I_C={_fmt(self.q_ic, 'A')}; meets the V_CE axis at {_fmt(self.vce_at_zero_current, 'V')}, "
+                f"the I_C axis at {_fmt(self.ic_at_zero_vce, 'A')})")
+
+    def _html_rows(self) -> list:
+        return [_fmt(self.resistance, "Ω"), _fmt(self.q_vce, "V"), _fmt(self.q_ic, "A"),
+                _fmt(self.vce_at_zero_current, "V"), _fmt(self.ic_at_zero_vce, "A")]
+
+    def _repr_html_(self) -> str:
+        return "<div><strong>Load line</strong>" + _html_table([self._html_rows()], _LOAD_LINE_HEAD) + "</div>"
+
     def to_dict(self) -> dict:
-        return {"resistance": self.resistance, "q_vce": self.q_vce, "q_ic": self.q_ic, "slope": self.slope,
-                "vce_at_zero_current": self.vce_at_zero_current, "ic_at_zero_vce": self.ic_at_zero_vce}
+        """Plain, JSON-ready dict; infinities and NaN become None (a vertical line's slope, say)."""
+        return _json_safe({"resistance": self.resistance, "q_vce": self.q_vce, "q_ic": self.q_ic,
+                           "slope": self.slope, "vce_at_zero_current": self.vce_at_zero_current,
+                           "ic_at_zero_vce": self.ic_at_zero_vce})
 
 
 @dataclass(frozen=True)
@@ -76,7 +106,16 @@ class LoadLines:
     dc: LoadLine
     ac: LoadLine
 
+    def __repr__(self) -> str:
+        return (f"LoadLines(DC {_fmt(self.dc.resistance, 'Ω')}, AC {_fmt(self.ac.resistance, 'Ω')}, "
+                f"Q-point V_CE={_fmt(self.dc.q_vce, 'V')}, I_C={_fmt(self.dc.q_ic, 'A')})")
+
+    def _repr_html_(self) -> str:
+        rows = [["DC", *self.dc._html_rows()], ["AC", *self.ac._html_rows()]]
+        return "<div><strong>Load lines</strong>" + _html_table(rows, ("", *_LOAD_LINE_HEAD)) + "</div>"
+
     def to_dict(self) -> dict:
+        """Plain, JSON-ready dict (see :meth:`LoadLine.to_dict`)."""
         return {"dc": self.dc.to_dict(), "ac": self.ac.to_dict()}
 
 
@@ -100,9 +139,19 @@ class Swing:
     def peak(self) -> float:
         return min(self.toward_saturation, self.toward_cutoff)
 
+    def __repr__(self) -> str:
+        return (f"Swing({_fmt(self.peak, 'V')} peak; toward saturation {_fmt(self.toward_saturation, 'V')}, "
+                f"toward cutoff {_fmt(self.toward_cutoff, 'V')})")
+
+    def _repr_html_(self) -> str:
+        rows = [[_fmt(self.peak, "V"), _fmt(self.toward_saturation, "V"), _fmt(self.toward_cutoff, "V")]]
+        return ("<div><strong>Output swing</strong>"
+                + _html_table(rows, ("peak", "toward saturation", "toward cutoff")) + "</div>")
+
     def to_dict(self) -> dict:
-        return {"toward_saturation": self.toward_saturation, "toward_cutoff": self.toward_cutoff,
-                "peak": self.peak}
+        """Plain, JSON-ready dict; NaN becomes None."""
+        return _json_safe({"toward_saturation": self.toward_saturation, "toward_cutoff": self.toward_cutoff,
+                           "peak": self.peak})
 
 
 @dataclass(frozen=True)
@@ -126,9 +175,29 @@ class Clipping:
     positive_region: str | None
     negative_region: str | None
 
+    def _direction(self, sign: str) -> str:
+        name = "positive" if sign == "+" else "negative"
+        amount, sid, region = (getattr(self, f"{name}{suffix}") for suffix in ("", "_stage", "_region"))
+        if sid is None:
+            return f"{sign}: no clipping within the sweep" if not math.isnan(amount) else f"{sign}: not swept"
+        if amount == 0:
+            return f"{sign}: {sid} is already in {region}"
+        return f"{sign}{_fmt(amount, 'V')}: {sid} enters {region}"
+
+    def __repr__(self) -> str:
+        return f"Clipping({self._direction('+')}; {self._direction('-')})"
+
+    def _repr_html_(self) -> str:
+        rows = [[name, _fmt(getattr(self, name), "V"), getattr(self, f"{name}_stage") or "—",
+                 getattr(self, f"{name}_region") or "—"] for name in ("positive", "negative")]
+        return ("<div><strong>Clipping (source EMF excursion)</strong>"
+                + _html_table(rows, ("direction", "EMF", "stage", "enters")) + "</div>")
+
     def to_dict(self) -> dict:
-        return {k: _plain(getattr(self, k)) for k in
-                ("positive", "negative", "positive_stage", "negative_stage", "positive_region", "negative_region")}
+        """Plain, JSON-ready dict; infinities (nothing clips) and NaN become None."""
+        return _json_safe({k: _plain(getattr(self, k)) for k in
+                           ("positive", "negative", "positive_stage", "negative_stage", "positive_region",
+                            "negative_region")})
 
 
 @dataclass(frozen=True)
@@ -180,18 +249,33 @@ class StageResult:
 
     def __repr__(self) -> str:
         t = self.transistor
-        return (f"StageResult({self.id} {self.kind}: {t.region}, I_C={_q(t.ic, 'A')}, V_CE={_q(t.vce, 'V')}, "
-                f"headroom={_q(self.saturation_margin, 'V')}, swing={_q(self.swing.peak, 'V')} peak, "
-                f"gain={self.gain:.4g}, R_in={_q(self.input_resistance, 'Ω')}, "
-                f"R_out={_q(self.output_resistance, 'Ω')})")
+        return (f"StageResult({self.id} {self.kind}: {t.region}, I_C={_fmt(t.ic, 'A')}, V_CE={_fmt(t.vce, 'V')}, "
+                f"headroom={_fmt(self.saturation_margin, 'V')}, swing={_fmt(self.swing.peak, 'V')} peak, "
+                f"gain={_gain(self.gain)}, R_in={_fmt(self.input_resistance, 'Ω')}, "
+                f"R_out={_fmt(self.output_resistance, 'Ω')})")
+
+    def _repr_html_(self) -> str:
+        e, t = html.escape, self.transistor
+        figures = (("region", t.region), ("I_C", _fmt(t.ic, "A")), ("V_CE", _fmt(t.vce, "V")),
+                   ("headroom", _fmt(self.saturation_margin, "V")), ("cutoff margin", _fmt(self.cutoff_margin, "A")),
+                   ("swing", f"{_fmt(self.swing.peak, 'V')} peak"), ("gain", f"{_gain(self.gain)} V/V"),
+                   ("R_in", _fmt(self.input_resistance, "Ω")), ("R_out", _fmt(self.output_resistance, "Ω")),
+                   ("dissipation", _fmt(self.dissipation, "W")))
+        power = [(name, _fmt(p, "W")) for name, p in self.resistor_power.items()]
+        cautions = "".join(f"<li>{e(c)}</li>" for c in self.cautions)
+        return (f"<div><strong>Stage {e(self.id)} ({e(self.kind)})</strong>" + _html_table(figures)
+                + (_html_table(power, ("resistor", "power")) if power else "")
+                + (f"<p>Cautions:</p><ul>{cautions}</ul>" if cautions else "<p>No cautions.</p>") + "</div>")
 
     def to_dict(self) -> dict:
-        return {"id": self.id, "kind": self.kind, "transistor": self.transistor.to_dict(), "gain": self.gain,
-                "input_resistance": self.input_resistance, "output_resistance": self.output_resistance,
-                "swing": self.swing.to_dict(), "load_lines": self.load_lines.to_dict(),
-                "saturation_margin": self.saturation_margin, "cutoff_margin": self.cutoff_margin,
-                "dissipation": self.dissipation, "resistor_power": dict(self.resistor_power),
-                "input_node": self.input_node, "output_node": self.output_node, "cautions": list(self.cautions)}
+        """Plain, JSON-ready dict; infinities and NaN become None (forced beta in cutoff, say)."""
+        return _json_safe({
+            "id": self.id, "kind": self.kind, "transistor": self.transistor.to_dict(), "gain": self.gain,
+            "input_resistance": self.input_resistance, "output_resistance": self.output_resistance,
+            "swing": self.swing.to_dict(), "load_lines": self.load_lines.to_dict(),
+            "saturation_margin": self.saturation_margin, "cutoff_margin": self.cutoff_margin,
+            "dissipation": self.dissipation, "resistor_power": dict(self.resistor_power),
+            "input_node": self.input_node, "output_node": self.output_node, "cautions": list(self.cautions)})
 
 
 @dataclass(frozen=True)
@@ -223,6 +307,12 @@ class PlanResult:
         Plain sentences; empty when all is well.
     operating_point : OperatingPoint
         The solver's answer for the compiled circuit.
+    temperature : float
+        Degrees Celsius.
+    resistor_power : dict of str -> float
+        Watts in the plan's own resistors, by element name (``"source_resistance"``,
+        ``"load_resistance"``; only those the plan has). The stages' resistors are on each
+        :attr:`StageResult.resistor_power`.
     """
     model: str
     stages: tuple
@@ -237,17 +327,20 @@ class PlanResult:
     supply_power: float
     cautions: tuple
     operating_point: object = field(repr=False, compare=False, default=None)
-    temperature: float = 25.0
+    temperature: float = REFERENCE_TEMPERATURE
+    resistor_power: dict = field(default_factory=dict)
 
     @property
     def all_forward_active(self) -> bool:
         return all(s.transistor.region == "forward-active" for s in self.stages)
 
     def stage(self, sid: str) -> StageResult:
+        """The result of stage ``sid`` (``"s1"`` ...); UnknownNameError listing the ids otherwise."""
         for s in self.stages:
             if s.id == sid:
                 return s
-        raise KeyError(sid)
+        raise UnknownNameError(f"the result has no stage {sid!r}; its stages are "
+                               f"{', '.join(s.id for s in self.stages) or 'none'}")
 
     def table(self) -> str:
         """A fixed-width text table a designer reads at a glance; ``!`` marks a stage out of
@@ -257,9 +350,9 @@ class PlanResult:
         for s in self.stages:
             t = s.transistor
             flag = "!" if (t.region != "forward-active" or s.cautions) else " "
-            rows.append((f"{flag}{s.id}", s.kind, t.region, _q(t.ic, "A"), _q(t.vce, "V"),
-                         _q(s.saturation_margin, "V"), _q(s.cutoff_margin, "A"), _q(s.swing.peak, "V"),
-                         _gain(s.gain), _q(s.input_resistance, "Ω"), _q(s.output_resistance, "Ω")))
+            rows.append((f"{flag}{s.id}", s.kind, t.region, _fmt(t.ic, "A"), _fmt(t.vce, "V"),
+                         _fmt(s.saturation_margin, "V"), _fmt(s.cutoff_margin, "A"), _fmt(s.swing.peak, "V"),
+                         _gain(s.gain), _fmt(s.input_resistance, "Ω"), _fmt(s.output_resistance, "Ω")))
         widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
         right = set(range(3, len(widths)))
 
@@ -277,17 +370,17 @@ class PlanResult:
         gain = self.gain
         decibels = f" ({20 * math.log10(abs(gain)):.1f} dB)" if gain and math.isfinite(gain) else ""
         if self.limiting_stage:
-            amplitude = f"{_q(self.max_source_amplitude, 'V')} peak, limited by {self.limiting_stage}"
+            amplitude = f"{_fmt(self.max_source_amplitude, 'V')} peak, limited by {self.limiting_stage}"
         else:
-            amplitude = f"{_q(self.max_source_amplitude, 'V')} (no stage clips)"
+            amplitude = f"{_fmt(self.max_source_amplitude, 'V')} (no stage clips)"
         figures = [
             ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}"),
-            ("input resistance", _q(self.input_resistance, "Ω")),
-            ("output resistance", _q(self.output_resistance, "Ω")),
+            ("input resistance", _fmt(self.input_resistance, "Ω")),
+            ("output resistance", _fmt(self.output_resistance, "Ω")),
             ("largest source amplitude", amplitude),
-            ("  load-line estimate", f"{_q(self.max_source_amplitude_estimate, 'V')} peak"),
-            ("supply current", _q(self.supply_current, "A")),
-            ("supply power", _q(self.supply_power, "W")),
+            ("  load-line estimate", f"{_fmt(self.max_source_amplitude_estimate, 'V')} peak"),
+            ("supply current", _fmt(self.supply_current, "A")),
+            ("supply power", _fmt(self.supply_power, "W")),
         ]
         width = max(len(name) for name, _ in figures)
         return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
@@ -305,9 +398,9 @@ class PlanResult:
         rows = []
         for s in self.stages:
             t = s.transistor
-            cells = (s.id, s.kind, t.region, _q(t.ic, "A"), _q(t.vce, "V"), _q(s.saturation_margin, "V"),
-                     _q(s.swing.peak, "V"), f"{s.gain:.4g}", _q(s.input_resistance, "Ω"),
-                     _q(s.output_resistance, "Ω"))
+            cells = (s.id, s.kind, t.region, _fmt(t.ic, "A"), _fmt(t.vce, "V"), _fmt(s.saturation_margin, "V"),
+                     _fmt(s.swing.peak, "V"), _gain(s.gain), _fmt(s.input_resistance, "Ω"),
+                     _fmt(s.output_resistance, "Ω"))
             style = "" if t.region == "forward-active" else " style='font-weight:bold'"
             rows.append(f"<tr{style}>" + "".join(f"<td>{e(c)}</td>" for c in cells) + "</tr>")
         cautions = "".join(f"<li>{e(c)}</li>" for c in self.cautions)
@@ -330,14 +423,4 @@ class PlanResult:
                 "clipping": self.clipping.to_dict(),
                 "max_source_amplitude_estimate": self.max_source_amplitude_estimate,
                 "supply_current": self.supply_current, "supply_power": self.supply_power,
-                "cautions": list(self.cautions)}
-
-
-def _json_safe(x):
-    if isinstance(x, dict):
-        return {k: _json_safe(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_json_safe(v) for v in x]
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
+                "resistor_power": dict(self.resistor_power), "cautions": list(self.cautions)}

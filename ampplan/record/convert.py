@@ -128,9 +128,7 @@ class _Problem(Exception):
 
 def _device_from(raw: dict, path: tuple) -> Transistor:
     try:
-        # Transistor keeps numbers as given; a whole number in the file becomes a float here.
-        return Transistor(**{name: float(v) if isinstance(v, int) and not isinstance(v, bool) else v
-                             for name, v in ((n, _value(raw[n])) for n in DEVICE_FIELDS)})
+        return Transistor(**{name: _value(raw[name]) for name in DEVICE_FIELDS})
     except AmpplanError as exc:
         raise _Problem(*_relabel(exc, path, ("Transistor",))) from None
 

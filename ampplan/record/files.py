@@ -140,10 +140,15 @@ def save_plan(plan: Plan, path, description: str | None = None) -> None:
     Raises
     ------
     PlanFileError
-        Naming the path, when the file cannot be written.
+        Naming the path, when the file cannot be written; or naming the path and the JSON path
+        of each problem when the plan would not load back (checked as :func:`load_plan` checks a
+        file, before anything is written).
     """
     target = Path(os.fspath(path))
     data = plan_to_dict(plan, description)
+    # The same checks as loading (the schema, then a dry run through the constructors), before the
+    # temporary file exists: nothing unloadable is ever written.
+    plan_from_dict(data, source=f"{target}: not written, the plan would not load back")
     directory = target.parent
     temporary = directory / f".{target.name}.{secrets.token_hex(6)}.tmp"
     try:

@@ -10,9 +10,12 @@ from __future__ import annotations
 
 import difflib
 import json
+import math
 import re
 
 import jsonschema
+
+from ..validation import bounds_text
 
 __all__ = ["MAX_PROBLEMS", "TOP_LEVEL", "path_text", "shown", "messages_for", "problems_text"]
 
@@ -48,16 +51,12 @@ def shown(value) -> str:
 
 
 def _bound_text(schema: dict) -> str:
-    unit = schema.get("unit", "")
-    parts = []
-    if "exclusiveMinimum" in schema:
-        parts.append(f"> {schema['exclusiveMinimum']:g}")
-    if "minimum" in schema:
-        parts.append(f">= {schema['minimum']:g}")
-    if "maximum" in schema:
-        parts.append(f"<= {schema['maximum']:g}")
-    text = " and ".join(parts)
-    return f"{text} {unit}".strip() if text else ""
+    """A number schema's bounds in the words the constructors use (:func:`ampplan.validation.bounds_text`)."""
+    if not any(k in schema for k in ("exclusiveMinimum", "minimum", "maximum")):
+        return ""
+    inclusive = "minimum" in schema
+    return bounds_text(schema.get("minimum", schema.get("exclusiveMinimum", -math.inf)),
+                       schema.get("maximum", math.inf), inclusive, schema.get("unit", ""))
 
 
 def _expectation(schema: dict) -> str:

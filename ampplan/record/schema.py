@@ -3,7 +3,8 @@
 Nothing is retyped here: stage parameters come from each template's :class:`~ampplan.stages.Parameter`
 rows, plan values from :data:`ampplan.plan.PLAN_PARAMETERS`, transistor fields from the
 :class:`~ampplan.devices.Transistor` dataclass (types from its annotations, bounds from the devices
-module), custom-stage elements from the circuit element dataclasses.
+module, units from its DEVICE_UNITS), custom-stage elements from the circuit element dataclasses
+and their VALUE_BOUNDS.
 """
 
 from __future__ import annotations
@@ -14,11 +15,11 @@ import typing
 
 import jsonschema
 
-from ..circuit import Bjt, Capacitor, CurrentSource, Resistor, VoltageSource
+from ..circuit import VALUE_BOUNDS, Bjt, Capacitor, CurrentSource, Resistor, VoltageSource
+from ..devices import DEVICE_UNITS, Transistor
 from ..devices import MAY_BE_INFINITE as DEVICE_MAY_BE_INFINITE
 from ..devices import PARAMETER_BOUNDS as DEVICE_BOUNDS
 from ..devices import FIELDS as DEVICE_FIELDS
-from ..devices import Transistor
 from ..errors import PlanFileError
 from ..plan import COUPLINGS, PLAN_PARAMETERS
 from ..stages import TEMPLATES, CustomStage
@@ -46,7 +47,7 @@ ELEMENT_TYPES: dict[str, tuple[type, str]] = {
 def _number(lower=None, inclusive=False, upper=None, unit="", nullable=False, infinite=False, help_=""):
     """Schema of one number; ``unit`` is our own annotation, read back by the error messages."""
     schema = {"type": "number"}
-    if lower is not None:
+    if lower is not None and math.isfinite(lower):
         schema["minimum" if inclusive else "exclusiveMinimum"] = lower
     if upper is not None and math.isfinite(upper):
         schema["maximum"] = upper
@@ -82,7 +83,8 @@ def _device_schema() -> dict:
             properties[name] = {"enum": list(typing.get_args(base))}
             continue
         low, inclusive = DEVICE_BOUNDS.get(name, (None, False))
-        properties[name] = _number(low, inclusive, nullable=nullable, infinite=name in DEVICE_MAY_BE_INFINITE)
+        properties[name] = _number(low, inclusive, unit=DEVICE_UNITS[name], nullable=nullable,
+                                   infinite=name in DEVICE_MAY_BE_INFINITE)
     return {"type": "object", "properties": properties, "required": list(DEVICE_FIELDS),
             "additionalProperties": False}
 
@@ -90,7 +92,7 @@ def _device_schema() -> dict:
 def _stage_schema(cls) -> dict:
     properties = {"kind": {"const": cls.kind}, "coupling": {"enum": list(COUPLINGS)}}
     for p in cls.PARAMETERS:
-        properties[p.name] = _number(p.minimum, False, p.maximum, p.unit, nullable=p.optional,
+        properties[p.name] = _number(p.minimum, p.minimum_inclusive, p.maximum, p.unit, nullable=p.optional,
                                      help_=f"{p.help} ({p.unit})")
     properties["device"] = {"$ref": "#/$defs/device"}
     return {"type": "object", "properties": properties, "required": list(properties),
@@ -108,7 +110,10 @@ def _element_schema(kind: str, cls: type) -> dict:
         elif base is Transistor:
             properties["device"] = {"$ref": "#/$defs/device"}
         else:
-            properties["value"] = _number(nullable=nullable, help_=f"{name} (SI units)")
+            bounds = VALUE_BOUNDS[cls]
+            properties["value"] = _number(bounds.get("minimum"), bounds.get("minimum_inclusive", False),
+                                          bounds.get("maximum"), bounds["unit"], nullable=nullable,
+                                          help_=f"{name} ({bounds['unit']})")
     properties["nodes"] = {"type": "array", "items": {"type": "string", "minLength": 1},
                            "minItems": len(terminals), "maxItems": len(terminals), "terminals": terminals,
                            "description": "terminal nodes in order: " + ", ".join(terminals)}
@@ -133,8 +138,7 @@ def _custom_stage_schema() -> dict:
 
 def _plan_value_schema(name: str) -> dict:
     p = PLAN_PARAMETERS[name]
-    lower = p.minimum if math.isfinite(p.minimum) else None
-    return _number(lower, p.minimum_inclusive, upper=p.maximum, unit=p.unit, nullable=p.optional, help_=p.help)
+    return _number(p.minimum, p.minimum_inclusive, upper=p.maximum, unit=p.unit, nullable=p.optional, help_=p.help)
 
 
 def _build_schema() -> dict:

@@ -28,7 +28,7 @@ ACTIVE_EDGES: tuple[str, ...] = get_args(ActiveEdge)
 
 
 def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batch: dict | None = None,
-          active_edge: str = "vce-sat", assume: dict | None = None) -> OperatingPoint:
+          active_edge: str = "vce-sat", assume: dict | None = None, warm_start: bool = True) -> OperatingPoint:
     """Solve a circuit's DC operating point.
 
     Parameters
@@ -46,6 +46,13 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
         every transistor named) and only check them, as in hand analysis. No search: where a
         check fails the status is ``"assumption-fails"`` (the numbers are still reported, with the
         failing checks), and a single solve does not raise.
+    warm_start : bool
+        Batches only: start Newton for every sample from one solved sample (fast). A circuit with
+        a unique operating point gives the same answers either way (to Newton's 1e-9 tolerance);
+        one with several (a latch, a trigger) may settle some samples on another of them than a
+        single solve would, unless their regions differ from the solved sample's (those are
+        re-solved from their own start). False solves each sample from its own start, exactly as
+        one-by-one solves do, at several times the cost.
 
     Returns
     -------
@@ -83,11 +90,11 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
     params = layout.parameters(temperature=temperature, batch=batch)
     single = batch is None
     if model == "ebers-moll":
-        return _solve_ebers_moll(circuit, layout, params, single)
+        return _solve_ebers_moll(circuit, layout, params, single, warm_start)
     if assume is not None:
         return _solve_assumed(circuit, layout, params, single, active_edge,
                               [REGIONS.index(assume[q.name]) for q in layout.bjts])
-    return _solve_constant_drop(circuit, layout, params, single, active_edge)
+    return _solve_constant_drop(circuit, layout, params, single, active_edge, warm_start)
 
 
 def _solve_assumed(circuit, layout, params, single, active_edge, codes):
@@ -112,8 +119,9 @@ def _newton_start(layout, params):
     return start
 
 
-def _solve_ebers_moll(circuit, layout, params, single):
-    x, converged, iterations, method = em.solve_newton(layout, params, _newton_start(layout, params))
+def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
+    x, converged, iterations, method = em.solve_newton(layout, params, _newton_start(layout, params),
+                                                      warm_start=warm_start)
     if single and method[0] == "overdriven":
         raise ConvergenceError(
             "no physical operating point: a junction of "
@@ -138,16 +146,16 @@ def _solve_ebers_moll(circuit, layout, params, single):
 
 
 # -- constant-drop --------------------------------------------------------------------------------
-def _em_guess(layout, params, rows):
+def _em_guess(layout, params, rows, warm_start=True):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
     sub = em._take(params, rows)
-    x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub))
+    x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
     regions, _ = em.classify(layout, sub, x)
     regions[~converged] = cd.ACTIVE
     return regions.astype(np.int8), int(iterations.max(initial=0))
 
 
-def _solve_constant_drop(circuit, layout, params, single, active_edge):
+def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_start=True):
     problem = cd.RegionProblem(layout, params, active_edge)
     s_count, n_q = params.size, layout.n_bjt
     chosen = np.full((s_count, n_q), cd.ACTIVE, dtype=np.int8)
@@ -186,7 +194,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge):
     else:
         method = "search from Ebers–Moll guess"
         rows = np.arange(s_count)
-        guess, iterations = _em_guess(layout, params, rows)
+        guess, iterations = _em_guess(layout, params, rows, warm_start)
         x, ok = problem.solve(rows, guess)
         good, _, _ = problem.consistent(rows, guess, x, ok)
         chosen[good], found[good] = guess[good], True

@@ -272,6 +272,8 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
 
     1. in a batch, one sample from its own start, then every other sample from that sample's
        answer (a solved neighbour is a far better start than any guess: a few iterations each);
+       a sample that lands in other regions than that neighbour is solved from its own start
+       too, so that a circuit with several operating points answers as a single solve would;
     2. plain Newton from the sample's own start ``x0``;
     3. the conductance ladder; 4. source stepping.
 
@@ -337,6 +339,16 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
                 unsolved.append(attempt(rows, warm, problem.junctions(warm), "newton",
                                         max_iterations=WARM_ITERATIONS))
             left = np.concatenate(unsolved)
+            # A circuit with several operating points (a latch, a trigger) can lead a warm start
+            # to another one than the sample's own start finds. Where the regions differ from the
+            # solved neighbour's, the sample is solved from its own start as well, and that answer
+            # (the one a single solve gives) is kept when it converges.
+            regions, _ = classify(layout, params, x)
+            moved = np.flatnonzero(converged & np.any(regions != regions[first], axis=1))
+            if moved.size:
+                xs, _, ok, its = problem.newton(moved, *own_start(moved))
+                iterations[moved] += its
+                x[moved[ok]] = xs[ok]
     left = left[~converged[left]]
     if left.size:
         left = attempt(left, *own_start(left), "newton")

@@ -1,0 +1,178 @@
+"""One validator for every number ampplan takes in, one value at a time or a batch of samples.
+
+Transistor parameters, circuit element values, stage-template and plan parameters and batch
+arrays all check their numbers here, so that they agree on what a number is:
+
+* a real scalar: a Python int or float or a numpy number; never a bool, text or a list;
+* None only where the declaration allows it (``optional``), meaning "not fitted" or "same as";
+* never NaN; infinite only where declared (``may_be_infinite``); within the declared bounds.
+
+Messages name the culprit (``where``, e.g. ``"CommonEmitter.rc:"`` or ``"Transistor parameter
+beta"``), then say what was expected and what came, with numbers printed plainly (``1e-09``, not
+``np.float64(1e-09)``); a batch also names the index of the first bad sample.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+
+import numpy as np
+
+from .errors import InvalidValueError
+
+__all__ = ["shown", "bounds_text", "check_number", "check_samples"]
+
+
+def shown(value) -> str:
+    """A value as a message shows it: numbers plainly (whole ones without ".0"), others shortened."""
+    if isinstance(value, np.generic):  # numpy scalars print as the Python values they hold
+        value = value.item()
+    if isinstance(value, bool):
+        return repr(value)
+    if isinstance(value, numbers.Real):
+        try:
+            number = float(value)
+        except OverflowError:  # an int beyond the float range
+            number = math.inf if value > 0 else -math.inf
+        if number.is_integer() and abs(number) < 1e16:
+            return str(int(number))
+        return repr(number)
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def bounds_text(minimum: float = -math.inf, maximum: float = math.inf, minimum_inclusive: bool = False,
+                unit: str = "") -> str:
+    """The allowed range in words: ``"> 0 Ω"``, ``">= 1e-06 Ω and <= 1e+12 Ω"`` or ``"finite"``."""
+    parts = []
+    if math.isfinite(minimum):
+        parts.append(f"{'>=' if minimum_inclusive else '>'} {minimum:g} {unit}".rstrip())
+    if math.isfinite(maximum):
+        parts.append(f"<= {maximum:g} {unit}".rstrip())
+    return " and ".join(parts) or "finite"
+
+
+def _real(value) -> float | None:
+    """``value`` as a float when it is one real scalar, else None (bool, text, None, lists ...)."""
+    if isinstance(value, np.ndarray) and value.ndim == 0 and value.dtype.kind in "iuf":
+        value = value[()]
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, numbers.Real):
+        return None
+    try:
+        return float(value)
+    except OverflowError:  # an int too large for a float counts as infinite
+        return math.inf if value > 0 else -math.inf
+
+
+def _collection(value) -> bool:
+    return isinstance(value, (list, tuple, set, frozenset, dict, np.ndarray))
+
+
+def _out_of_bounds(values: np.ndarray, minimum, maximum, minimum_inclusive, may_be_infinite) -> tuple:
+    """(not finite where it must be, outside the bounds) as boolean arrays of ``values``' shape."""
+    not_finite = np.isnan(values) | (np.isinf(values) & (not may_be_infinite))
+    below = values < minimum if minimum_inclusive else values <= minimum
+    outside = ~not_finite & (below | (values > maximum))
+    return not_finite, outside
+
+
+def _raise_first_bad(values: np.ndarray, where: str, bounds: dict, samples: bool) -> None:
+    not_finite, outside = _out_of_bounds(values, bounds["minimum"], bounds["maximum"],
+                                         bounds["minimum_inclusive"], bounds["may_be_infinite"])
+    bad = not_finite | outside
+    if not np.any(bad):
+        return
+    k = int(np.argmax(bad.reshape(-1)))
+    first = values.reshape(-1)[k]
+    at = f" at sample {k}" if samples and values.ndim == 1 else ""
+    if not_finite.reshape(-1)[k]:
+        raise InvalidValueError(f"{where} must be finite, got {shown(first)}{at}")
+    what = bounds_text(bounds["minimum"], bounds["maximum"], bounds["minimum_inclusive"], bounds["unit"])
+    raise InvalidValueError(f"{where} must be {what}, got {shown(first)}{at}")
+
+
+def check_number(value, where: str, *, minimum: float = -math.inf, maximum: float = math.inf,
+                 minimum_inclusive: bool = False, may_be_infinite: bool = False, unit: str = "",
+                 optional: bool = False, required: str = "") -> float | None:
+    """One number, validated; returned as a float (or None when ``optional`` and None).
+
+    Parameters
+    ----------
+    value : object
+        What the caller was given.
+    where : str
+        The culprit as messages name it, put before "must be" (``"CommonEmitter.rc:"``).
+    minimum, maximum : float
+        Bounds: values must be above ``minimum`` (or equal, when ``minimum_inclusive``) and at
+        most ``maximum``, in the unit ``unit`` (which messages print after each bound).
+    may_be_infinite : bool
+        Whether infinity is allowed (an Early voltage of ``inf`` means none); NaN never is.
+    optional : bool
+        Whether None is allowed; it is returned as None.
+    required : str
+        Said in brackets after "is required" when None is given but not allowed.
+
+    Raises
+    ------
+    InvalidValueError
+        None where not allowed; a bool, text, list or other non-number; NaN; a disallowed
+        infinity; a value out of bounds.
+    """
+    if value is None:
+        if optional:
+            return None
+        raise InvalidValueError(f"{where} is required" + (f" ({required})" if required else ""))
+    number = _real(value)
+    if number is None:
+        kind = "a single number" if _collection(value) else "a number"
+        raise InvalidValueError(f"{where} must be {kind}, got {shown(value)}")
+    _raise_first_bad(np.array(number), where, dict(minimum=minimum, maximum=maximum,
+                                                   minimum_inclusive=minimum_inclusive,
+                                                   may_be_infinite=may_be_infinite, unit=unit), False)
+    return number
+
+
+def check_samples(value, where: str, *, minimum: float = -math.inf, maximum: float = math.inf,
+                  minimum_inclusive: bool = False, may_be_infinite: bool = False, unit: str = "") -> np.ndarray:
+    """A number or a 1-D array of samples (a batch), validated; returned as a float ndarray.
+
+    Parameters are those of :func:`check_number` (None is never allowed in a batch).
+
+    Returns
+    -------
+    ndarray of float, shape () or (S,)
+
+    Raises
+    ------
+    InvalidValueError
+        Naming ``where`` and, for an array, the index of the first bad sample.
+    """
+    if value is None or isinstance(value, (str, bytes, bool, np.bool_, dict, set, frozenset)):
+        raise InvalidValueError(f"{where} must be a number or a 1-D array of numbers, got {shown(value)}")
+    try:
+        arr = np.asarray(value)
+    except (ValueError, TypeError):  # ragged nesting
+        raise InvalidValueError(f"{where} must be a number or a 1-D array of numbers, got {shown(value)}") \
+            from None
+    if arr.ndim > 1:
+        raise InvalidValueError(f"{where} must be a number or a 1-D array of numbers, got shape {arr.shape}")
+    # numpy reads [100.0, True] as [100.0, 1.0]; a list is scanned for bools so that it does not.
+    has_bool = isinstance(value, (list, tuple)) and any(isinstance(x, (bool, np.bool_)) for x in value)
+    if arr.dtype.kind in "iuf" and not has_bool:
+        numbers_ = arr.astype(float)
+    else:
+        # Text, bools, None or mixed objects: find the first element that is not a number, as
+        # given (numpy would have turned every number of a list holding text into text).
+        items = np.asarray(value, dtype=object) if isinstance(value, (list, tuple)) else arr
+        numbers_ = np.empty(arr.shape)
+        flat = numbers_.reshape(-1)
+        for k, item in enumerate(items.reshape(-1)):
+            number = _real(item)
+            if number is None:
+                at = f" at sample {k}" if arr.ndim == 1 else ""
+                raise InvalidValueError(f"{where} must be a number, got {shown(item)}{at}")
+            flat[k] = number
+    _raise_first_bad(numbers_, where, dict(minimum=minimum, maximum=maximum, minimum_inclusive=minimum_inclusive,
+                                           may_be_infinite=may_be_infinite, unit=unit), True)
+    return numbers_
