@@ -83,14 +83,15 @@ def voltage_scale(elements) -> float:
     return max([abs(e.value) for e in elements if e.kind == "V"] + [1.0])
 
 
-def compare(actual: dict, expected: dict, rtol: float, elements, voltage_floor: float = 1e-3) -> list[str]:
+def compare(actual: dict, expected: dict, rtol: float, elements, voltage_floor: float = 1e-3,
+            current_floor: float = 1e-6) -> list[str]:
     """Differences beyond ``rtol`` between two solutions in the reference layout.
 
     A voltage passes when ``|a - e| <= rtol * max(|e|, 1e-3 * V_scale)`` and a current when
     ``|a - e| <= rtol * max(|e|, 1e-6 * I_scale)``: relative to itself, except that values many
     decades below the circuit's largest (a cut-off transistor's leakage) are compared on that floor;
     a resistor's current also gets the voltage floor divided by its resistance. ``voltage_floor``
-    (a fraction of the voltage scale) sets the voltage floor.
+    and ``current_floor`` (fractions of the voltage and current scales) set the floors.
     """
     v_scale = voltage_scale(elements)
     i_scale = ref.current_scale(expected)
@@ -106,11 +107,11 @@ def compare(actual: dict, expected: dict, rtol: float, elements, voltage_floor: 
     resistance = {e.name: e.value for e in elements if e.kind == "R"}
     for name, e in expected["i"].items():
         # A resistor current is a voltage difference over R: the voltage floor carries over.
-        floor = max(1e-6 * i_scale, voltage_floor * v_scale / resistance.get(name, math.inf))
+        floor = max(current_floor * i_scale, voltage_floor * v_scale / resistance.get(name, math.inf))
         check(f"i[{name}]", actual["i"][name], e, floor)
     for name, t in expected["transistors"].items():
         for key in ("ic", "ib", "ie"):
-            check(f"{name}.{key}", actual["transistors"][name][key], t[key], 1e-6 * i_scale)
+            check(f"{name}.{key}", actual["transistors"][name][key], t[key], current_floor * i_scale)
         for key in ("vbe", "vce"):
             check(f"{name}.{key}", actual["transistors"][name][key], t[key], voltage_floor * v_scale)
     return bad
