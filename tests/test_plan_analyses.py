@@ -1070,3 +1070,16 @@ def test_fully_bypassed_ce_from_an_ideal_source_clips_where_the_load_lines_say(p
     assert math.isclose(res.clipping.positive, expected["positive"][0], rel_tol=1e-6)
     assert math.isclose(res.clipping.negative, expected["negative"][0], rel_tol=1e-6)
     assert math.isclose(res.max_source_amplitude, res.max_source_amplitude_estimate, rel_tol=1e-6)
+
+
+@pytest.mark.parametrize("early_voltage", [math.inf, 80.0])
+def test_constant_drop_sweep_agrees_with_the_load_lines_over_a_chain(early_voltage):
+    # Issue 3 §2/§5: the quasi-static sweep of the constant-drop chain (exact: piecewise linear with
+    # the hybrid-π increments) and the load-line figure min over stages of swing peak / |v(out)/EMF|
+    # must give the same first clip, r_o included (it sits across the controlled source on both).
+    q = ampplan.Transistor(beta=180.0, early_voltage=early_voltage)
+    plan = ampplan.Plan(supply=9.0, source_resistance=1e3, load_resistance=22e3)
+    plan.add(ampplan.CommonEmitter(rb1=68e3, rb2=12e3, rc=3.9e3, re=100.0, re_bypassed=680.0, device=q))
+    plan.add(ampplan.CommonCollector(re=2.2e3, device=q), coupling="direct")
+    res = plan.solve()
+    assert math.isclose(res.max_source_amplitude, res.max_source_amplitude_estimate, rel_tol=1e-6)

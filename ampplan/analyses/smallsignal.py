@@ -155,7 +155,10 @@ def solve_incremental(op, models: dict, *, capacitors: str = "short", excite: st
     ground : dict of str -> set of str, optional
         Per element, terminal nodes re-pointed to ground (cuts a port).
     port : (str, float), optional
-        Transistor replaced by a test excitation: I_C = 1 A and I_B = the float (textbook signs).
+        Transistor replaced by a test excitation: its controlled collector current 1 A and
+        I_B = the float (textbook signs), its own output conductance 1/r_o kept across
+        collector and emitter (so the port sees r_o in parallel with the rest, as a load line
+        of the controlled source should).
 
     Returns
     -------
@@ -171,13 +174,17 @@ def solve_incremental(op, models: dict, *, capacitors: str = "short", excite: st
         rb, rc = lay.q_ib[j], lay.q_ic[j]
         b, c, e = lay.q_b[j], lay.q_c[j], lay.q_e[j]
         s = lay.sign[j]
+        m = models[q.name]
         if port is not None and q.name == port[0]:
             matrix[rb, rb] = 1.0
             rhs[rb] = port[1]
+            # I_C = 1 + g_o·V_CE (transistor frame), g_o = -∂I_C/∂V_BC at fixed V_BE.
+            g_o = -m.g[1, 1] if m.kind == "conductance" else 0.0
             matrix[rc, rc] = 1.0
+            matrix[rc, c] -= s * g_o
+            matrix[rc, e] += s * g_o
             rhs[rc] = 1.0
             continue
-        m = models[q.name]
         if m.kind == "held":
             matrix[rb, b] += s
             matrix[rb, e] -= s
