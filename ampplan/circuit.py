@@ -31,7 +31,7 @@ from .errors import (DuplicateNameError, FloatingNodeError, InvalidValueError, U
 from .validation import check_number, check_samples
 
 __all__ = ["GROUND", "Circuit", "Resistor", "VoltageSource", "CurrentSource", "Capacitor", "Bjt",
-           "Layout", "Parameters", "RESISTANCE_RANGE", "VALUE_BOUNDS"]
+           "Layout", "Parameters", "RESISTANCE_RANGE", "VALUE_BOUNDS", "UnionFind", "terminals"]
 
 GROUND = "gnd"
 
@@ -233,7 +233,7 @@ class Circuit:
         """Every node name but ground, in order of first use (no topology check)."""
         seen: dict[str, None] = {}
         for e in self._elements.values():
-            for n in _terminals(e):
+            for n in terminals(e):
                 if n != GROUND:
                     seen.setdefault(n, None)
         return tuple(seen)
@@ -288,7 +288,9 @@ def _did_you_mean(name: str, choices) -> str:
     return f"; did you mean {', '.join(repr(c) for c in close)}?" if close else ""
 
 
-class _UnionFind:
+class UnionFind:
+    """Disjoint sets of node names (which nodes a set of elements ties together)."""
+
     def __init__(self):
         self.parent: dict[str, str] = {}
 
@@ -378,7 +380,7 @@ class Layout:
 
     # -- topology -----------------------------------------------------------------------------
     def _check_topology(self, circuit: Circuit) -> None:
-        loops = _UnionFind()
+        loops = UnionFind()
         for v in self.voltage_sources:
             if not loops.union(v.plus, v.minus):
                 others = [w.name for w in self.voltage_sources if w is not v
@@ -387,11 +389,11 @@ class Layout:
                     f"voltage source {v.name!r} closes a loop of voltage sources with "
                     f"{', '.join(repr(o) for o in others)} between nodes {v.plus!r} and {v.minus!r}; "
                     "their currents would be undetermined")
-        dc = _UnionFind()
+        dc = UnionFind()
         dc.find(GROUND)
         for e in circuit.elements:
             if isinstance(e, (Resistor, VoltageSource)):
-                a, b = _terminals(e)
+                a, b = terminals(e)
                 dc.union(a, b)
             elif isinstance(e, Bjt):
                 dc.union(e.collector, e.base)
@@ -406,7 +408,7 @@ class Layout:
         for e in circuit.elements:
             if isinstance(e, Capacitor):
                 continue
-            for role, n in zip(_roles(e), _terminals(e)):
+            for role, n in zip(_roles(e), terminals(e)):
                 meets.setdefault(n, []).append(f"{e.name}'s {role}" if isinstance(e, Bjt) else e.name)
         for n in self.nodes:
             touching = meets.get(n, [])
@@ -416,7 +418,7 @@ class Layout:
                     f"node {n!r} meets only {touching[0]}" + (f" and capacitor(s) {', '.join(caps)}" if caps else "")
                     + ": nothing sets its DC voltage (a bias resistor missing?)")
         if floating:
-            where = {n: [e.name for e in circuit.elements if n in _terminals(e)] for n in floating}
+            where = {n: [e.name for e in circuit.elements if n in terminals(e)] for n in floating}
             first = floating[0]
             raise FloatingNodeError(
                 f"node {first!r} has no DC path to ground (it meets only "
@@ -625,7 +627,8 @@ def _roles(e: Element) -> tuple[str, ...]:
     return ("collector", "base", "emitter") if isinstance(e, Bjt) else ("", "")
 
 
-def _terminals(e: Element) -> tuple[str, ...]:
+def terminals(e: Element) -> tuple[str, ...]:
+    """The nodes an element connects, in its own order (collector, base, emitter for a transistor)."""
     if isinstance(e, Bjt):
         return (e.collector, e.base, e.emitter)
     if isinstance(e, VoltageSource):

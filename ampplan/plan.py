@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import copy
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Literal, get_args
 
 from .circuit import GROUND, RESISTANCE_RANGE, Circuit, _did_you_mean
@@ -184,7 +184,7 @@ class Plan:
         self._load_coupling = value
 
     # -- stages -------------------------------------------------------------------------------
-    def add(self, stage: Stage, coupling: str = "capacitor") -> str:
+    def add(self, stage: Stage, coupling: Coupling = "capacitor") -> str:
         """Append a stage; returns its id (``"s1"``, ``"s2"`` ...).
 
         ``coupling="direct"`` takes the stage's input straight from the previous stage's output

@@ -18,13 +18,21 @@ which is how a port is cut to measure what lies on one side of it.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Literal, get_args
 
 import numpy as np
 
-from ..circuit import GROUND, Bjt, Capacitor, Circuit, CurrentSource, Resistor, VoltageSource, _terminals, _UnionFind
+from ..circuit import GROUND, Bjt, Capacitor, Circuit, CurrentSource, Resistor, VoltageSource, terminals, UnionFind
 from ..devices import scaled_to_temperature, thermal_voltage
+from ..errors import UnknownModelError
 from ..solver.ebers_moll import device_currents
 from ..solver.linear import solve_batch
+
+#: How an incremental model is written: conductances, or V_BE and V_CE held (saturation).
+ModelKind = Literal["conductance", "held"]
+#: What the capacitors are in an incremental solve: shorts (midband) or opens (DC increments).
+CapacitorTreatment = Literal["short", "open"]
+CAPACITOR_TREATMENTS: tuple[str, ...] = get_args(CapacitorTreatment)
 
 __all__ = ["IncrementalModel", "incremental_models", "solve_incremental", "IncrementalSolution",
            "TEST_CURRENT"]
@@ -47,7 +55,7 @@ class IncrementalModel:
     beta_ac : float
         Incremental current gain ∂I_C/∂I_B at fixed V_BC (NaN when undefined).
     """
-    kind: str
+    kind: ModelKind
     g: np.ndarray
     beta_ac: float
 
@@ -105,11 +113,11 @@ class IncrementalSolution:
         return self.v[node]
 
 
-def _incremental_circuit(circuit: Circuit, capacitors: str, excite: str | None, inject: str | None,
+def _incremental_circuit(circuit: Circuit, capacitors: CapacitorTreatment, excite: str | None, inject: str | None,
                          ground: dict) -> Circuit:
     """The circuit for an incremental solve: sources zeroed, capacitors shorted or opened."""
     ac = Circuit()
-    held = _UnionFind()        # nodes tied by zero-volt sources, to skip shorts that would loop
+    held = UnionFind()        # nodes tied by zero-volt sources, to skip shorts that would loop
     for e in circuit.elements:
         moved = ground.get(e.name, ())
         node = lambda n: GROUND if n in moved else n  # noqa: E731
@@ -135,7 +143,7 @@ def _incremental_circuit(circuit: Circuit, capacitors: str, excite: str | None, 
     return ac
 
 
-def solve_incremental(op, models: dict, *, capacitors: str = "short", excite: str | None = None,
+def solve_incremental(op, models: dict, *, capacitors: CapacitorTreatment = "short", excite: str | None = None,
                       inject: str | None = None, ground: dict | None = None,
                       port: tuple[str, float] | None = None) -> IncrementalSolution:
     """Solve the incremental circuit about ``op``.
@@ -165,6 +173,8 @@ def solve_incremental(op, models: dict, *, capacitors: str = "short", excite: st
     IncrementalSolution
         Node voltages and element currents (NaN when the circuit is singular).
     """
+    if capacitors not in CAPACITOR_TREATMENTS:
+        raise UnknownModelError(f"capacitors must be one of {', '.join(CAPACITOR_TREATMENTS)}, got {capacitors!r}")
     ac = _incremental_circuit(op.circuit, capacitors, excite, inject, ground or {})
     lay = ac.layout()
     params = lay.parameters()
@@ -208,6 +218,6 @@ def solve_incremental(op, models: dict, *, capacitors: str = "short", excite: st
     i.update({src.name: float(-x[lay.vs_row[k]]) for k, src in enumerate(lay.voltage_sources)})
     for j, q in enumerate(lay.bjts):
         i[q.name + ".ib"], i[q.name + ".ic"] = float(x[lay.q_ib[j]]), float(x[lay.q_ic[j]])
-    for node in {n_ for e in op.circuit.elements for n_ in _terminals(e)} - set(v):
+    for node in {n_ for e in op.circuit.elements for n_ in terminals(e)} - set(v):
         v[node] = np.nan   # a node cut away entirely has no defined increment
     return IncrementalSolution(v=v, i=i, ok=bool(ok[0]))

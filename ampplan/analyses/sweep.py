@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..circuit import Bjt, Capacitor, Circuit, VoltageSource, _UnionFind
+from ..circuit import Bjt, Capacitor, Circuit, VoltageSource, UnionFind
 from .results import Clipping
 from .smallsignal import incremental_models
 
@@ -41,7 +41,7 @@ def held_capacitor_circuit(op) -> Circuit:
     """
     circuit = op.circuit
     held = Circuit()
-    ties = _UnionFind()
+    ties = UnionFind()
     for e in circuit.elements:
         if isinstance(e, VoltageSource):
             ties.union(e.plus, e.minus)

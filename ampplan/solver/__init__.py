@@ -113,7 +113,7 @@ def _solve_assumed(circuit, layout, params, single, active_edge, codes):
 def _newton_start(layout, params):
     """Newton's start for given samples: the constant-drop answer with every transistor forward-active."""
     def start(rows):
-        problem = cd.RegionProblem(layout, em._take(params, rows))
+        problem = cd.RegionProblem(layout, em.take_samples(params, rows))
         x0, _ = problem.solve(np.arange(rows.size), np.full((rows.size, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
         return x0
     return start
@@ -148,7 +148,7 @@ def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
 # -- constant-drop --------------------------------------------------------------------------------
 def _em_guess(layout, params, rows, warm_start=True):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
-    sub = em._take(params, rows)
+    sub = em.take_samples(params, rows)
     x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
     regions, _ = em.classify(layout, sub, x)
     regions[~converged] = cd.ACTIVE

@@ -153,7 +153,7 @@ class NewtonProblem:
         lay = self.layout
         every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
         pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
-        params = _take(self.params, rows, device=False) if not every else self.params
+        params = take_samples(self.params, rows, device=False) if not every else self.params
         base, rhs0 = lay.assemble(params, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
         nu = base.shape[1] - 1
         # Drop ground's spare row and column once, so each iteration's matrix is contiguous.
@@ -256,7 +256,7 @@ class NewtonProblem:
 _MODEL_PARAMETERS = ("beta", "beta_reverse", "saturation_current", "early_voltage", "emission_coefficient")
 
 
-def _take(params, rows, device: bool = True):
+def take_samples(params, rows, device: bool = True):
     """Samples ``rows`` of ``params`` (without device parameters when ``device`` is False)."""
     from ..circuit import Parameters
     return Parameters(conductance=params.conductance[rows], voltage=params.voltage[rows],
