@@ -145,22 +145,6 @@ class Plan:
                                     f"{RESISTANCE_RANGE[0]:g} Ω, got {shown(value)}")
         object.__setattr__(self, "_" + name, number)
 
-    supply = property(lambda self: self._supply, lambda self, v: self._set_plan_value("supply", v))
-    negative_supply = property(lambda self: self._negative_supply,
-                               lambda self, v: self._set_plan_value("negative_supply", v))
-    source_resistance = property(lambda self: self._source_resistance,
-                                 lambda self, v: self._set_plan_value("source_resistance", v))
-    load_resistance = property(lambda self: self._load_resistance,
-                               lambda self, v: self._set_plan_value("load_resistance", v))
-    temperature = property(lambda self: self._temperature, lambda self, v: self._set_plan_value("temperature", v))
-    resistor_power_rating = property(lambda self: self._resistor_power_rating,
-                                     lambda self, v: self._set_plan_value("resistor_power_rating", v))
-    min_headroom = property(lambda self: self._min_headroom, lambda self, v: self._set_plan_value("min_headroom", v))
-    coupling_capacitance = property(lambda self: self._coupling_capacitance,
-                                    lambda self, v: self._set_plan_value("coupling_capacitance", v))
-    bypass_capacitance = property(lambda self: self._bypass_capacitance,
-                                  lambda self, v: self._set_plan_value("bypass_capacitance", v))
-
     @property
     def description(self) -> str:
         """Free text about the design (kept in the plan file)."""
@@ -405,3 +389,16 @@ class Plan:
                          for sid, e in zip(self.stage_ids, self._entries))
         return (f"Plan(supply={self.supply:g} V, negative_supply={self.negative_supply:g} V, "
                 f"{len(self._entries)} stage(s): {body})")
+
+
+def _plan_value(name: str) -> property:
+    """The validated property of one declared plan value."""
+    p = PLAN_PARAMETERS[name]
+    return property(lambda self: getattr(self, "_" + name), lambda self, value: self._set_plan_value(name, value),
+                    doc=f"{p.help} ({p.unit}).")
+
+
+# One property per declared plan value, from its declaration (PLAN_PARAMETERS).
+for _name in PLAN_PARAMETERS:
+    setattr(Plan, _name, _plan_value(_name))
+del _name
