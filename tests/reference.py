@@ -434,7 +434,7 @@ def ebers_moll_currents(p, vbe, vbc, v_t):
     return ic, ib, dic, dib
 
 
-def _em_system(elements, v_t, gmin=0.0):
+def _em_system(elements, v_t, shunt_conductance=0.0):
     nodes = nodes_of(elements)
     index = {("v", n): k for k, n in enumerate(nodes)}
     for e in elements:
@@ -460,8 +460,8 @@ def _em_system(elements, v_t, gmin=0.0):
 
         for node in nodes:
             r = index[("v", node)]
-            f[r] += gmin * x[r]
-            jac[r, r] += gmin
+            f[r] += shunt_conductance * x[r]
+            jac[r, r] += shunt_conductance
         for e in elements:
             if e.kind == "R":
                 a, b = e.nodes
@@ -602,8 +602,8 @@ def ebers_moll_root(elements, temperature=25.0, start=None):
         if not _residual_ok(fun, x, elements, index):
             # Our own continuation: a conductance from every node to ground, stepped down to zero.
             x = x0
-            for gmin in [1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 1e-12, 0.0]:
-                x = _root(_em_system(elements, v_t, gmin)[2], x)
+            for shunt_conductance in [1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 1e-12, 0.0]:
+                x = _root(_em_system(elements, v_t, shunt_conductance)[2], x)
         if _residual_ok(fun, x, elements, index):
             out = _em_solution(elements, index, x, v_t)
             out.update(start=label, converged=True)
