@@ -23,7 +23,6 @@ from __future__ import annotations
 import argparse
 import importlib.resources
 import json
-import math
 import os
 import sys
 import textwrap
@@ -98,12 +97,6 @@ def _apply_settings(plan, settings) -> None:
 # The report
 # ------------------------------------------------------------------------------------------------
 
-def _q(value, unit: str = "") -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "—"
-    return format_quantity(value, unit)
-
-
 def _verdict(result) -> tuple[int, str]:
     out_of_region = [s.id for s in result.stages if s.transistor.region != "forward-active"]
     if result.all_forward_active and not result.cautions:
@@ -120,13 +113,13 @@ def _verdict(result) -> tuple[int, str]:
 def _report(plan, result, label: str, description: str) -> tuple[int, str]:
     status, verdict = _verdict(result)
     load = ("no load" if plan.load_resistance is None
-            else f"load {_q(plan.load_resistance, 'Ω')} ({plan.load_coupling}-coupled)")
+            else f"load {format_quantity(plan.load_resistance, 'Ω')} ({plan.load_coupling}-coupled)")
     lines = [f"ampplan check: {label} ({result.model} model)"]
     if description:
         lines += textwrap.wrap(description, width=96, initial_indent="  ", subsequent_indent="  ",
                                break_on_hyphens=False)
-    lines += [f"  supply {_q(plan.supply, 'V')}, lower rail {_q(plan.negative_supply, 'V')}, "
-              f"source {_q(plan.source_resistance, 'Ω')}, {load}, {plan.temperature:g} °C", ""]
+    lines += [f"  supply {format_quantity(plan.supply, 'V')}, lower rail {format_quantity(plan.negative_supply, 'V')}, "
+              f"source {format_quantity(plan.source_resistance, 'Ω')}, {load}, {plan.temperature:g} °C", ""]
     lines += [result.table(), "", "chain", result.summary(), "", "cautions"]
     lines += [f"  - {c}" for c in result.cautions] or ["  none"]
     lines += ["", f"{verdict} (exit status {status})"]

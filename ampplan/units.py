@@ -42,13 +42,19 @@ def parse_quantity(text, unit: str = "") -> float:
 
 
 def format_quantity(value: float, unit: str = "", digits: int = 4) -> str:
-    """Format a float with an SI prefix: ``format_quantity(4700, "Ω") == "4.7 kΩ"``."""
+    """Format a float with an SI prefix: ``format_quantity(4700, "Ω") == "4.7 kΩ"``.
+
+    None and NaN print as ``"—"`` (no value), infinities as ``"∞"`` with the unit.
+    """
     if value is None:
         return "—"
     if isinstance(value, str):
         return value
-    if not math.isfinite(value):
-        return f"{value} {unit}".strip()
+    value = float(value)
+    if math.isnan(value):
+        return "—"
+    if math.isinf(value):
+        return (("-" if value < 0 else "") + "∞ " + unit).strip()
     if value == 0:
         return f"0 {unit}".strip()
     return Quantity(value, unit or None).render(prec=digits - 1, strip_zeros=True)

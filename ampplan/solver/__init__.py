@@ -8,6 +8,8 @@ sample gets a status and NaN fields and the others carry on.
 
 from __future__ import annotations
 
+import dataclasses
+
 from typing import Literal, get_args
 
 import numpy as np
@@ -253,7 +255,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
             checks = (problem.check_names(reg),) + problem.checks(np.array([0]), reg, xk)
             alts.append(_build(circuit, layout, params, xk, reg, checks,
                                np.array(["ok"]), "constant-drop", method, iterations, True))
-        result = _replace(result, alternatives=tuple(alts))
+        result = dataclasses.replace(result, alternatives=tuple(alts))
     return result
 
 
@@ -324,11 +326,6 @@ def _distinct_others(x, candidates, pick, layout):
             kept.append(x[k, :n])
             out.append(k)
     return out
-
-
-def _replace(result, **changes):
-    import dataclasses
-    return dataclasses.replace(result, **changes)
 
 
 # -- results --------------------------------------------------------------------------------------

@@ -46,12 +46,7 @@ def _fmt(x, unit: str = "") -> str:
     if x is None:
         return "—"
     if np.ndim(x) == 0:
-        value = float(x)
-        if math.isnan(value):
-            return "—"
-        if math.isinf(value):
-            return ("-" if value < 0 else "") + "∞" + (f" {unit}" if unit else "")
-        return format_quantity(value, unit)
+        return format_quantity(float(x), unit)
     arr = np.asarray(x)
     if arr.dtype.kind in "US":
         values, counts = np.unique(arr, return_counts=True)
