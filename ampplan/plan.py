@@ -11,7 +11,7 @@ import math
 from dataclasses import dataclass
 from typing import Literal, get_args
 
-from .circuit import GROUND, RESISTANCE_RANGE, Circuit, _did_you_mean
+from .circuit import GROUND, RESISTANCE_RANGE, Circuit, did_you_mean
 from .devices import ABSOLUTE_ZERO, DEVICE_UNITS
 from .devices import FIELDS as DEVICE_FIELDS
 from .errors import InvalidValueError, UnknownModelError, UnknownNameError
@@ -222,7 +222,7 @@ class Plan:
             if head in PLAN_PARAMETERS or head in _PLAN_WORDS:
                 return ("plan", head)
             raise UnknownNameError(f"no plan parameter {address!r}"
-                                   + _did_you_mean(head, (*PLAN_PARAMETERS, *_PLAN_WORDS)))
+                                   + did_you_mean(head, (*PLAN_PARAMETERS, *_PLAN_WORDS)))
         k = self._index(head)
         if rest in ("coupling", "device"):
             return (rest, k)
@@ -230,7 +230,7 @@ class Plan:
             pname = rest[len("device."):]
             if pname not in DEVICE_FIELDS:
                 raise UnknownNameError(f"{address}: transistors have no parameter {pname!r}"
-                                       + _did_you_mean(pname, DEVICE_FIELDS))
+                                       + did_you_mean(pname, DEVICE_FIELDS))
             return ("device-parameter", k, pname)
         stage = self._entries[k].stage
         values = stage.parameters()

@@ -25,6 +25,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
+from ampplan.solver.assembly import layout_of
 from ampplan.circuit import Circuit
 from ampplan.devices import FIELDS as DEVICE_FIELDS
 from ampplan.devices import PRESETS, Transistor
@@ -505,4 +506,4 @@ def test_vbc_on_same_as_vbe_on_is_stored_as_null(tmp_path):
     loaded = load_plan(path)
     assert loaded.get("s1.device.vbc_on") is None
     loaded.set("s1.device.vbe_on", 0.6)                       # still follows vbe_on after loading
-    assert loaded.compile().circuit.layout().parameters().device["vbc_on"].tolist() == [[0.6]]
+    assert layout_of(loaded.compile().circuit).parameters().device["vbc_on"].tolist() == [[0.6]]

@@ -19,6 +19,7 @@ import typing
 import numpy as np
 import pytest
 
+from ampplan.solver.assembly import layout_of
 import ampplan
 import reference as ref
 from ampplan import errors
@@ -209,7 +210,7 @@ def test_vbc_on_follows_a_batch_of_vbe_on_unless_the_batch_sets_it():
     op = c.solve(assume={"Q1": "reverse-active"}, batch={"Q1.vbe_on": [0.55, 0.65], "Q1.vbc_on": 0.5})
     assert op.v["b"].tolist() == pytest.approx([0.5, 0.5], abs=1e-12)
     # An explicit vbc_on in the device wins over vbe_on as well.
-    params = _reverse_active_circuit(Transistor(vbc_on=0.45)).layout().parameters(batch={"Q1.vbe_on": [0.6]})
+    params = layout_of(_reverse_active_circuit(Transistor(vbc_on=0.45))).parameters(batch={"Q1.vbe_on": [0.6]})
     assert params.device["vbc_on"].tolist() == [[0.45]]
 
 
@@ -218,7 +219,7 @@ def test_vbc_on_follows_vbe_on_set_through_the_plan():
     plan.add(CommonEmitter(rb1=47e3, rb2=10e3, rc=4.7e3, re=1e3))
     plan.set("s1.device.vbe_on", 0.6)
     assert plan.get("s1.device.vbc_on") is None
-    params = plan.compile().circuit.layout().parameters()
+    params = layout_of(plan.compile().circuit).parameters()
     assert params.device["vbc_on"].tolist() == params.device["vbe_on"].tolist() == [[0.6]]
 
 

@@ -22,6 +22,7 @@ from typing import Literal, get_args
 
 import numpy as np
 
+from ..solver.assembly import layout_of
 from ..circuit import GROUND, Bjt, Capacitor, Circuit, CurrentSource, Resistor, VoltageSource, terminals, UnionFind
 from ..devices import scaled_to_temperature, thermal_voltage
 from ..errors import UnknownModelError
@@ -68,7 +69,7 @@ def incremental_models(op) -> dict:
     dict of str -> IncrementalModel
     """
     circuit = op.circuit
-    layout = circuit.layout()
+    layout = layout_of(circuit)
     params = layout.parameters(temperature=op.temperature)
     dev = scaled_to_temperature(params.device, params.temperature[:, None])
     v_t = thermal_voltage(op.temperature)
@@ -176,7 +177,7 @@ def solve_incremental(op, models: dict, *, capacitors: CapacitorTreatment = "sho
     if capacitors not in CAPACITOR_TREATMENTS:
         raise UnknownModelError(f"capacitors must be one of {', '.join(CAPACITOR_TREATMENTS)}, got {capacitors!r}")
     ac = _incremental_circuit(op.circuit, capacitors, excite, inject, ground or {})
-    lay = ac.layout()
+    lay = layout_of(ac)
     params = lay.parameters()
     matrix, rhs = lay.assemble(params)
     matrix, rhs = matrix[0], rhs[0]

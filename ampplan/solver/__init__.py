@@ -17,6 +17,7 @@ import numpy as np
 from ..errors import (ConvergenceError, InvalidValueError, NoConsistentRegionError, UnknownModelError,
                       UnknownNameError)
 from . import constant_drop as cd
+from .assembly import layout_of, take_samples
 from . import ebers_moll as em
 from .result import REGIONS, UNSOLVED, Check, OperatingPoint, TransistorResult
 
@@ -75,7 +76,7 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
         raise UnknownModelError(f"unknown active_edge {active_edge!r}; choose one of {', '.join(ACTIVE_EDGES)}")
     if not circuit.elements:
         raise InvalidValueError("the circuit is empty: add a source and the elements it drives")
-    layout = circuit.layout()
+    layout = layout_of(circuit)
     if assume is not None:
         if model != "constant-drop":
             raise UnknownModelError("assume= applies to the constant-drop model only")
@@ -115,7 +116,7 @@ def _solve_assumed(circuit, layout, params, single, active_edge, codes):
 def _newton_start(layout, params):
     """Newton's start for given samples: the constant-drop answer with every transistor forward-active."""
     def start(rows):
-        problem = cd.RegionProblem(layout, em.take_samples(params, rows))
+        problem = cd.RegionProblem(layout, take_samples(params, rows))
         x0, _ = problem.solve(np.arange(rows.size), np.full((rows.size, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
         return x0
     return start
@@ -150,7 +151,7 @@ def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
 # -- constant-drop --------------------------------------------------------------------------------
 def _em_guess(layout, params, rows, warm_start=True):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
-    sub = em.take_samples(params, rows)
+    sub = take_samples(params, rows)
     x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
     regions, _ = em.classify(layout, sub, x)
     regions[~converged] = cd.ACTIVE

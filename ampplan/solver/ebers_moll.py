@@ -27,6 +27,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..devices import scaled_to_temperature, thermal_voltage
+from .assembly import take_samples
 from .linear import solve_batch
 
 #: Exponent beyond which exp() continues as a straight line (keeps far iterates finite).
@@ -256,15 +257,6 @@ class NewtonProblem:
 _MODEL_PARAMETERS = ("beta", "beta_reverse", "saturation_current", "early_voltage", "emission_coefficient")
 
 
-def take_samples(params, rows, device: bool = True):
-    """Samples ``rows`` of ``params`` (without device parameters when ``device`` is False)."""
-    from ..circuit import Parameters
-    return Parameters(conductance=params.conductance[rows], voltage=params.voltage[rows],
-                      current=params.current[rows],
-                      device={k: v[rows] for k, v in params.device.items()} if device else {},
-                      temperature=params.temperature[rows])
-
-
 def solve_newton(layout, params, start=None, warm_start: bool = True):
     """Solve the Ebers–Moll equations for every sample.
 
@@ -279,8 +271,8 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
 
     Parameters
     ----------
-    layout : ampplan.circuit.Layout
-    params : ampplan.circuit.Parameters
+    layout : ampplan.solver.assembly.Layout
+    params : ampplan.solver.assembly.Parameters
         S samples.
     start : callable, optional
         ``start(rows) -> ndarray (len(rows), size + 1)``: starting unknowns of those samples (the

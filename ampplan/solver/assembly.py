@@ -1,0 +1,315 @@
+"""Assembly of a circuit's linear (modified nodal) equations, for S samples at once.
+
+Unknowns, in this order (the *layout*, see :class:`Layout`):
+
+* the voltage of every node but ``gnd``, volts, in order of first use;
+* the current into the plus terminal of every voltage source, amperes;
+* per transistor, its base current I_B and collector current I_C with textbook signs
+  (positive in forward-active for NPN and PNP alike), amperes.
+
+Rows are Kirchhoff's current law at every node, one constraint per voltage source, and two rows
+per transistor that the device model fills in (its region's equations for the constant-drop model,
+its linearised Ebers–Moll equations for Newton's method).
+"""
+
+from __future__ import annotations
+
+import weakref
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..circuit import (GROUND, VALUE_BOUNDS, VALUE_FIELD, Bjt, Capacitor, Circuit, CurrentSource, Resistor,
+                       VoltageSource, did_you_mean)
+from ..devices import ABSOLUTE_ZERO, check_parameter
+from ..devices import PARAMETERS as DEVICE_PARAMETERS
+from ..errors import InvalidValueError, UnknownNameError
+from ..validation import check_number, check_samples
+
+__all__ = ["Layout", "Parameters", "layout_of", "take_samples"]
+
+_LAYOUTS: "weakref.WeakKeyDictionary[Circuit, tuple[int, Layout]]" = weakref.WeakKeyDictionary()
+
+
+def layout_of(circuit: Circuit) -> "Layout":
+    """The compiled layout of ``circuit`` (cached until the circuit changes; checks its topology)."""
+    cached = _LAYOUTS.get(circuit)
+    if cached is None or cached[0] != circuit.revision:
+        cached = _LAYOUTS[circuit] = (circuit.revision, Layout(circuit))
+    return cached[1]
+
+
+@dataclass(frozen=True)
+class Parameters:
+    """Numeric values of a circuit for S samples (the batch axis leads).
+
+    Attributes
+    ----------
+    conductance : ndarray, shape (S, n_resistors)
+        1/R per resistor, siemens.
+    voltage : ndarray, shape (S, n_voltage_sources)
+    current : ndarray, shape (S, n_current_sources)
+    device : dict of str -> ndarray of shape (S, n_transistors)
+        Every numeric transistor parameter, at 25 °C.
+    temperature : ndarray, shape (S,)
+        Degrees Celsius.
+    """
+    conductance: np.ndarray
+    voltage: np.ndarray
+    current: np.ndarray
+    device: dict
+    temperature: np.ndarray
+
+    @property
+    def size(self) -> int:
+        return self.temperature.shape[0]
+
+
+class Layout:
+    """Index arrays of one circuit's unknowns and rows, and assembly of its linear equations.
+
+    Built by :func:`layout_of`; checks the topology on construction (every node has a DC path
+    to ground, no loop of voltage sources).
+    """
+
+    def __init__(self, circuit: Circuit):
+        self.resistors = circuit.of_kind(Resistor)
+        self.voltage_sources = circuit.of_kind(VoltageSource)
+        self.current_sources = circuit.of_kind(CurrentSource)
+        self.capacitors = circuit.of_kind(Capacitor)
+        self.bjts = circuit.of_kind(Bjt)
+        self.nodes: tuple[str, ...] = circuit.nodes
+        self.n_nodes = len(self.nodes)
+        self.n_vs = len(self.voltage_sources)
+        self.n_bjt = len(self.bjts)
+        self.size = self.n_nodes + self.n_vs + 2 * self.n_bjt
+        # Ground maps to index `size`, one past the end: stamps land in a spare row and column that
+        # are dropped before solving, which spares a branch per terminal.
+        index = {n: i for i, n in enumerate(self.nodes)}
+        index[GROUND] = self.size
+        self.index = index
+        circuit.check_topology()
+
+        ix = lambda names: np.array([index[n] for n in names], dtype=np.intp)  # noqa: E731
+        self.r_a = ix([r.a for r in self.resistors])
+        self.r_b = ix([r.b for r in self.resistors])
+        self.vs_plus = ix([v.plus for v in self.voltage_sources])
+        self.vs_minus = ix([v.minus for v in self.voltage_sources])
+        self.vs_row = self.n_nodes + np.arange(self.n_vs, dtype=np.intp)
+        self.cs_from = ix([s.from_node for s in self.current_sources])
+        self.cs_to = ix([s.to_node for s in self.current_sources])
+        self.q_c = ix([q.collector for q in self.bjts])
+        self.q_b = ix([q.base for q in self.bjts])
+        self.q_e = ix([q.emitter for q in self.bjts])
+        self.q_ib = self.n_nodes + self.n_vs + 2 * np.arange(self.n_bjt, dtype=np.intp)
+        self.q_ic = self.q_ib + 1
+        self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
+        self.structure = self._structure()
+        self._pattern_cache: dict = {}
+        self._parameter_cache: dict = {}
+
+    # -- assembly -----------------------------------------------------------------------------
+    def _structure(self) -> np.ndarray:
+        """The parameter-free entries: voltage-source incidence and transistor terminal currents."""
+        n = self.size + 1
+        a = np.zeros((n, n))
+        a[self.vs_plus, self.vs_row] += 1.0   # source current leaves its plus node into the source
+        a[self.vs_minus, self.vs_row] -= 1.0
+        a[self.vs_row, self.vs_plus] += 1.0   # V(plus) - V(minus) = voltage
+        a[self.vs_row, self.vs_minus] -= 1.0
+        # Textbook currents: I_B into the base and I_C into the collector (NPN), I_E = I_B + I_C out
+        # of the emitter; a PNP reverses all three, hence the sign.
+        s = self.sign
+        np.add.at(a, (self.q_b, self.q_ib), s)
+        np.add.at(a, (self.q_c, self.q_ic), s)
+        np.add.at(a, (self.q_e, self.q_ib), -s)
+        np.add.at(a, (self.q_e, self.q_ic), -s)
+        return a
+
+    def assemble(self, params: Parameters, source_scale=1.0, ladder_conductance=0.0, reduced: bool = False):
+        """Linear part of the equations for every sample.
+
+        Parameters
+        ----------
+        params : Parameters
+            S samples of element values.
+        source_scale : float or ndarray of shape (S,)
+            Multiplies every independent source (source stepping).
+        ladder_conductance : float or ndarray of shape (S,)
+            Conductance from every node to ground, siemens (the conductance ladder).
+        reduced : bool
+            Leave out the transistor-current unknowns and their rows (for a device model that
+            stamps its currents straight into the node rows).
+
+        Returns
+        -------
+        matrix : ndarray, shape (S, m + 1, m + 1)
+            m = ``size`` (or ``n_nodes + n_vs`` reduced). The transistor rows are left empty for the
+            device model; the last row and column belong to ground and are dropped before solving.
+        rhs : ndarray, shape (S, m + 1)
+        """
+        structure, resistors, volts, amps = self._patterns(reduced)
+        s_count = params.size
+        n = structure.shape[0]
+        # Every stamp for every sample at once: values (S, elements) times stamp patterns
+        # (elements, n·n) replace loops over elements and samples.
+        matrix = (params.conductance @ resistors).reshape(s_count, n, n)
+        matrix += structure
+        if np.any(ladder_conductance):
+            diag = np.arange(self.n_nodes)
+            matrix[:, diag, diag] += np.reshape(ladder_conductance, (-1, 1))
+        scale = np.reshape(np.asarray(source_scale, dtype=float), (-1, 1))
+        rhs = (params.voltage * scale) @ volts + (params.current * scale) @ amps
+        return matrix, rhs
+
+    def _patterns(self, reduced: bool):
+        """Stamp patterns over the kept unknowns (cached): structure, resistors, V and I sources."""
+        if reduced not in self._pattern_cache:
+            n_full = self.size + 1
+            keep = (np.concatenate([np.arange(self.n_nodes + self.n_vs), [self.size]]) if reduced
+                    else np.arange(n_full))
+            n = keep.size
+            resistors = np.zeros((len(self.resistors), n_full, n_full))
+            for k, (a, b) in enumerate(zip(self.r_a, self.r_b)):
+                resistors[k, a, a] += 1.0
+                resistors[k, b, b] += 1.0
+                resistors[k, a, b] -= 1.0
+                resistors[k, b, a] -= 1.0
+            volts = np.zeros((self.n_vs, n_full))
+            volts[np.arange(self.n_vs), self.vs_row] = 1.0
+            amps = np.zeros((len(self.current_sources), n_full))
+            for k, (f, t) in enumerate(zip(self.cs_from, self.cs_to)):
+                amps[k, f] -= 1.0
+                amps[k, t] += 1.0
+            self._pattern_cache[reduced] = (
+                self.structure[np.ix_(keep, keep)],
+                resistors[:, keep][:, :, keep].reshape(len(self.resistors), n * n),
+                volts[:, keep], amps[:, keep])
+        return self._pattern_cache[reduced]
+
+    # -- parameters ---------------------------------------------------------------------------
+    def parameters(self, temperature=25.0, batch: dict | None = None) -> Parameters:
+        """Element and device values for S samples, with ``batch`` overriding the circuit's own.
+
+        Parameters
+        ----------
+        temperature : float
+            Degrees Celsius, one value (the batch key ``"temperature"`` varies it per sample).
+        batch : dict of str -> array_like of shape (S,), optional
+            Keys and values as for :meth:`Circuit.solve`; scalars broadcast.
+
+        Returns
+        -------
+        Parameters
+            A transistor parameter given as None is NaN, but for ``vbc_on``: None there means
+            "same as vbe_on" and takes ``vbe_on``'s values, after the batch's overrides (a batch
+            of ``"Q1.vbe_on"`` moves it too, unless the batch sets ``"Q1.vbc_on"`` as well).
+
+        Raises
+        ------
+        InvalidValueError
+            A batch that is not a dict, a key that is not text, a parameter a batch cannot vary
+            (``polarity``), arrays of different lengths, or a bad value (naming the key and the
+            index of the first bad sample); a bad ``temperature``.
+        UnknownNameError
+            A batch key that names no element or transistor parameter.
+        """
+        temperature = check_number(temperature, "temperature", minimum=ABSOLUTE_ZERO, unit="°C")
+        if batch is not None and not isinstance(batch, Mapping):
+            raise InvalidValueError(f"batch must be a dict of name -> values, got {type(batch).__name__}")
+        if not batch:
+            # A single solve of an unchanged circuit reuses its parameters (they are never mutated).
+            cached = self._parameter_cache.get(temperature)
+            if cached is None:
+                cached = self._parameter_cache[temperature] = self._parameters(temperature, {})
+            return cached
+        return self._parameters(temperature, batch)
+
+    def _batch_targets(self, batch: Mapping) -> dict:
+        """What each batch key varies: ``"temperature"``, an element, or ``(transistor index, parameter)``.
+
+        Every key is checked here, before any value is read.
+        """
+        by_name = {e.name: e for group in (self.resistors, self.voltage_sources, self.current_sources,
+                                           self.capacitors) for e in group}
+        q_index = {q.name: j for j, q in enumerate(self.bjts)}
+        targets = {}
+        for key in batch:
+            if not isinstance(key, str):
+                raise InvalidValueError(f"batch keys must be names (text), got {key!r}")
+            if key == "temperature":
+                targets[key] = key
+            elif "." in key:
+                qname, _, pname = key.partition(".")
+                if qname not in q_index:
+                    raise UnknownNameError(f"batch key {key!r}: the circuit has no transistor named {qname!r}"
+                                           + did_you_mean(qname, q_index))
+                if pname == "polarity":
+                    raise InvalidValueError(f"batch key {key!r}: polarity cannot vary in a batch (it sets the "
+                                            "orientation of the equations); solve each polarity on its own")
+                if pname not in DEVICE_PARAMETERS:
+                    raise UnknownNameError(f"batch key {key!r}: transistors have no parameter {pname!r}"
+                                           + did_you_mean(pname, DEVICE_PARAMETERS))
+                targets[key] = (q_index[qname], pname)
+            elif key in by_name:
+                targets[key] = by_name[key]
+            else:
+                raise UnknownNameError(f"batch key {key!r} names no resistor, source or capacitor"
+                                       + did_you_mean(key, by_name))
+        return targets
+
+    def _parameters(self, temperature: float, batch: Mapping) -> Parameters:
+        targets = self._batch_targets(batch)
+        arrays: dict[str, np.ndarray] = {}
+        for key, value in batch.items():
+            target = targets[key]
+            if target == "temperature":
+                arrays[key] = check_samples(value, f"batch[{key!r}]:", minimum=ABSOLUTE_ZERO, unit="°C")
+            elif isinstance(target, tuple):
+                arrays[key] = check_parameter(target[1], value, where=f"batch[{key!r}]:", samples=True)
+            else:
+                kind = type(target)
+                arrays[key] = check_samples(value, f"batch[{key!r}]: {VALUE_FIELD[kind]}", **VALUE_BOUNDS[kind])
+        sizes = {k: a.shape[0] for k, a in arrays.items() if a.ndim == 1}
+        if len(set(sizes.values())) > 1:
+            raise InvalidValueError("batch arrays differ in length: "
+                                    + ", ".join(f"{k}: {n}" for k, n in sizes.items()))
+        s_count = next(iter(sizes.values()), 1)
+        if s_count == 0:
+            raise InvalidValueError("batch arrays are empty")
+        full = lambda arr: np.broadcast_to(arr, (s_count,)).copy()  # noqa: E731
+        temp = full(arrays["temperature"]) if "temperature" in arrays else np.full(s_count, temperature)
+        overrides = {key: full(arr) for key, arr in arrays.items() if not isinstance(targets[key], (str, tuple))}
+        device_overrides = {targets[key]: full(arr) for key, arr in arrays.items() if isinstance(targets[key], tuple)}
+
+        def column(elements, field, transform=lambda x: x):
+            out = np.empty((s_count, len(elements)))
+            for k, e in enumerate(elements):
+                out[:, k] = transform(overrides[e.name]) if e.name in overrides else transform(getattr(e, field))
+            return out
+
+        device = {}
+        for pname in DEVICE_PARAMETERS:
+            col = np.empty((s_count, self.n_bjt))
+            for j, q in enumerate(self.bjts):
+                v = getattr(q.device, pname)
+                col[:, j] = device_overrides.get((j, pname), np.nan if v is None else v)
+            device[pname] = col
+        # vbc_on None means "same as vbe_on"; resolved here, after the batch's overrides of either.
+        device["vbc_on"] = np.where(np.isnan(device["vbc_on"]), device["vbe_on"], device["vbc_on"])
+        return Parameters(
+            conductance=column(self.resistors, "resistance", lambda r: 1.0 / np.asarray(r, dtype=float)),
+            voltage=column(self.voltage_sources, "voltage"),
+            current=column(self.current_sources, "current"),
+            device=device,
+            temperature=temp,
+        )
+
+
+def take_samples(params, rows, device: bool = True):
+    """Samples ``rows`` of ``params`` (without device parameters when ``device`` is False)."""
+    return Parameters(conductance=params.conductance[rows], voltage=params.voltage[rows],
+                      current=params.current[rows],
+                      device={k: v[rows] for k, v in params.device.items()} if device else {},
+                      temperature=params.temperature[rows])
