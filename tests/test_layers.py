@@ -1,19 +1,60 @@
-"""The core stays light: importing ampplan, solving, planning, plan files and the command line
-load no notebook library.
+"""The layers stay one-way, and the core stays light.
 
-Source: issue 2 §7 and STYLE.md (one-way layers; core never imports ipywidgets, bokeh,
-jupyter_bokeh or IPython); checked in a fresh interpreter so that nothing else the test session has
-imported can hide an import.
+Sources: DESIGN §3 (data flows one way; a lower layer never imports a higher one) and STYLE.md
+(the core never imports ipywidgets, bokeh, jupyter_bokeh or IPython; checked in a fresh
+interpreter so that nothing else the test session has imported can hide an import).
+
+Two checks, because they see different things:
+
+* the import graph, read statically by import-linter against the contracts in ``.importlinter``
+  (every ``import`` in every module, deferred ones included, against the layer order);
+* a fresh interpreter that really imports and uses the core (solves, plans, plan files, the
+  command line) and then looks at ``sys.modules``, which also catches an import made indirectly
+  through a third-party package.
 """
 
 from __future__ import annotations
 
 import json
+import re
+import shutil
 import subprocess
 import sys
 from pathlib import Path
 
-NOTEBOOK_MODULES = ["ipywidgets", "bokeh", "jupyter_bokeh", "IPython"]
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+NOTEBOOK_MODULES = ["ipywidgets", "bokeh", "jupyter_bokeh", "IPython", "matplotlib"]
+
+
+def _lint_imports(config: Path) -> subprocess.CompletedProcess:
+    exe = shutil.which("lint-imports", path=str(Path(sys.executable).parent))
+    if exe is None:
+        pytest.fail("lint-imports (import-linter) is not installed in this environment; "
+                    "it is part of the test extra in pyproject.toml")
+    return subprocess.run([exe, "--no-cache", str(config)], cwd=ROOT, capture_output=True, text=True,
+                          timeout=300)
+
+
+def test_import_graph_keeps_the_layer_order():
+    done = _lint_imports(ROOT / ".importlinter")
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert re.search(r"Contracts: (\d+) kept, 0 broken", done.stdout), done.stdout
+
+
+def test_layer_contract_can_fail(tmp_path):
+    # A contract whose order is turned upside down must break: the check above really reads the
+    # import graph and is not trivially satisfied.
+    text = (ROOT / ".importlinter").read_text(encoding="utf-8")
+    upside_down = text.replace("    ampplan.circuit\n    ampplan.devices\n", "    ampplan.devices\n    ampplan.circuit\n")
+    assert upside_down != text
+    config = tmp_path / "upside_down.ini"
+    config.write_text(upside_down, encoding="utf-8")
+    done = _lint_imports(config)
+    assert done.returncode != 0
+    assert "ampplan.circuit -> ampplan.devices" in done.stdout
+
 
 SCRIPT = r"""
 import json, sys
@@ -48,8 +89,7 @@ print(json.dumps({"regions": regions, "loaded": loaded}))
 
 
 def test_core_imports_no_notebook_library():
-    root = Path(__file__).resolve().parents[1]
-    done = subprocess.run([sys.executable, "-W", "error", "-c", SCRIPT % {"modules": NOTEBOOK_MODULES}], cwd=root,
+    done = subprocess.run([sys.executable, "-W", "error", "-c", SCRIPT % {"modules": NOTEBOOK_MODULES}], cwd=ROOT,
                           capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr
     report = json.loads(done.stdout.strip().splitlines()[-1])
