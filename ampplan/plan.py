@@ -8,13 +8,15 @@ from __future__ import annotations
 
 import copy
 import math
+import numbers
+import re
 from dataclasses import dataclass
 from typing import Literal, get_args
 
 from .circuit import GROUND, RESISTANCE_RANGE, Circuit, did_you_mean
 from .devices import ABSOLUTE_ZERO, DEVICE_UNITS
 from .devices import FIELDS as DEVICE_FIELDS
-from .errors import InvalidValueError, UnknownModelError, UnknownNameError
+from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
 from .stages import Parameter, Rails, Stage, StageNodes
 from .validation import shown
 
@@ -63,9 +65,57 @@ def _check_base_bias(sid: str, stage: Stage, coupling: str) -> None:
 
 @dataclass
 class StageEntry:
-    """One stage in a plan with how it couples to what comes before it."""
+    """One stage in a plan: its id, the stage, and how it couples to what comes before it."""
+    id: str
     stage: Stage
     coupling: str = "capacitor"
+
+
+#: Longest stage id accepted (it prefixes every element and node name of the stage).
+MAX_STAGE_ID_LENGTH = 32
+#: Most stages a plan may hold; a plan file with more is refused before it is read further.
+MAX_STAGES = 64
+_ID_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]*\Z")
+#: Names of the plan's own: its values, words, elements and nodes. A stage id may be none of
+#: them, nor one of them followed by "_" and more, since the id prefixes the stage's element
+#: and node names ("<id>_rc", "<id>_in") and its addresses ("<id>.rc").
+_RESERVED_NAMES = (*PLAN_PARAMETERS, *_PLAN_WORDS, SUPPLY, NEGATIVE_SUPPLY, SOURCE, SOURCE_RESISTOR,
+                   LOAD_RESISTOR, LOAD_CAPACITOR, EMF_NODE, SOURCE_NODE, LOAD_NODE, GROUND, "vcc", "vee")
+
+
+def _prefixes(a: str, b: str) -> bool:
+    """True when one name is the other followed by "_" (so their element names could meet)."""
+    return a.startswith(b + "_") or b.startswith(a + "_")
+
+
+def check_stage_id(sid, taken=()) -> str:
+    """A user's stage id, checked: text, a safe identifier, no plan name, unique among ``taken``.
+
+    Raises
+    ------
+    InvalidValueError
+        Not text, empty, too long, not an identifier (a letter, then letters, digits or ``_``),
+        or a plan-level name (``supply``, ``load`` ...) or one followed by ``_``.
+    DuplicateNameError
+        Another stage has this id, or one that is this id followed by ``_`` (or the other way
+        round), whose element names could meet this stage's.
+    """
+    if not isinstance(sid, str):
+        raise InvalidValueError(f"a stage id is text such as 'input', got {shown(sid)}")
+    if not sid or len(sid) > MAX_STAGE_ID_LENGTH or not _ID_PATTERN.match(sid):
+        raise InvalidValueError(f"stage id {shown(sid)}: must be a letter followed by letters, digits or '_' "
+                                f"(at most {MAX_STAGE_ID_LENGTH} characters), since it prefixes the names of "
+                                "the stage's elements and nodes")
+    clash = sid if sid in _RESERVED_NAMES else next((n for n in _RESERVED_NAMES if _prefixes(sid, n)), None)
+    if clash is not None:
+        raise InvalidValueError(f"stage id {sid!r}: clashes with the plan's own name {clash!r}; choose another")
+    other = next((t for t in taken if t == sid or _prefixes(sid, t)), None)
+    if other == sid:
+        raise DuplicateNameError(f"stage id {sid!r}: the plan already has a stage with this id")
+    if other is not None:
+        raise DuplicateNameError(f"stage id {sid!r}: too close to the stage id {other!r} (one is the other "
+                                 "followed by '_', so their element names could meet); choose another")
+    return sid
 
 
 @dataclass(frozen=True)
@@ -126,6 +176,8 @@ class Plan:
                  min_headroom: float = 1.0, coupling_capacitance: float | None = None,
                  bypass_capacitance: float | None = None, description: str = ""):
         self._entries: list[StageEntry] = []
+        #: Number of the next automatic id ("s<n>"); it only grows, so no id comes back.
+        self._next_number = 1
         self.description = description
         for name, value in (("supply", supply), ("negative_supply", negative_supply),
                             ("source_resistance", source_resistance), ("load_resistance", load_resistance),
@@ -168,25 +220,70 @@ class Plan:
         self._load_coupling = value
 
     # -- stages -------------------------------------------------------------------------------
-    def add(self, stage: Stage, coupling: Coupling = "capacitor") -> str:
-        """Append a stage; returns its id (``"s1"``, ``"s2"`` ...).
+    def add(self, stage: Stage, coupling: Coupling = "capacitor", *, id: str | None = None) -> str:
+        """Append a stage; returns its id.
 
-        ``coupling="direct"`` takes the stage's input straight from the previous stage's output
-        (or the source), so the stage may omit its own base bias.
+        Parameters
+        ----------
+        stage : Stage
+        coupling : {"capacitor", "direct"}
+            ``"direct"`` takes the stage's input straight from the previous stage's output (or
+            the source), so the stage may omit its own base bias.
+        id : str, optional
+            A name of your own (``"input"``): a letter, then letters, digits or ``_``, unique in
+            the plan and none of the plan's own names (see :func:`check_stage_id`). Without it the
+            stage gets the next of ``"s1"``, ``"s2"`` ..., a number never given before in this
+            plan: they continue after the highest ``"s<n>"`` the plan has held, so a removed
+            stage's id does not come back.
+
+        The id stays with the stage when others are removed or moved; it prefixes the stage's
+        element names in the compiled circuit (``"input_rc"``) and its addresses (``"input.rc"``).
         """
-        if coupling not in COUPLINGS:
-            raise UnknownModelError(f"coupling must be one of {', '.join(COUPLINGS)}, got {coupling!r}")
+        if not isinstance(coupling, str) or coupling not in COUPLINGS:
+            raise UnknownModelError(f"coupling must be one of {', '.join(COUPLINGS)}, got {shown(coupling)}")
         if not isinstance(stage, Stage):
             raise InvalidValueError(f"plan.add expects a stage template, got {type(stage).__name__}")
-        sid = f"s{len(self._entries) + 1}"
+        if len(self._entries) >= MAX_STAGES:
+            raise InvalidValueError(f"plan.add: the plan already holds {MAX_STAGES} stages, the most a plan may hold")
+        taken = self.stage_ids
+        if id is None:
+            while any(f"s{self._next_number}" == t or _prefixes(f"s{self._next_number}", t) for t in taken):
+                self._next_number += 1
+            sid = f"s{self._next_number}"
+        else:
+            sid = check_stage_id(id, taken)
         _check_base_bias(sid, stage, coupling)
-        self._entries.append(StageEntry(stage, coupling))
+        number = re.fullmatch(r"s([1-9][0-9]{0,8})", sid)
+        if number:  # automatic ids continue after the highest "s<n>", given or automatic
+            self._next_number = max(self._next_number, int(number.group(1)) + 1)
+        self._entries.append(StageEntry(sid, stage, coupling))
         return sid
 
     def remove(self, sid: str) -> Stage:
-        """Remove stage ``sid``; later stages are renumbered."""
+        """Remove stage ``sid`` and return it; every other stage keeps its id."""
         k = self._index(sid)
         return self._entries.pop(k).stage
+
+    def move(self, sid: str, position: int) -> None:
+        """Move stage ``sid`` to ``position`` in the chain (0 is first, -1 is last); ids stay as they are.
+
+        Raises
+        ------
+        UnknownNameError
+            No stage ``sid``.
+        InvalidValueError
+            ``position`` is not a whole number, or is outside the chain.
+        """
+        k = self._index(sid)
+        n = len(self._entries)
+        if isinstance(position, bool) or not isinstance(position, numbers.Integral):
+            raise InvalidValueError(f"plan.move({sid!r}, ...): the position must be a whole number, "
+                                    f"got {shown(position)}")
+        if not -n <= position < n:
+            raise InvalidValueError(f"plan.move({sid!r}, {position}): the plan has {n} stage(s), so the position "
+                                    f"runs from 0 to {n - 1} (or -{n} to -1 from the end)")
+        entry = self._entries.pop(k)
+        self._entries.insert(int(position) % n, entry)
 
     @property
     def stages(self) -> tuple:
@@ -200,15 +297,18 @@ class Plan:
 
     @property
     def stage_ids(self) -> tuple:
-        return tuple(f"s{k + 1}" for k in range(len(self._entries)))
+        """The stages' ids, in chain order."""
+        return tuple(e.id for e in self._entries)
 
     def stage(self, sid: str) -> Stage:
+        """The stage with id ``sid``."""
         return self._entries[self._index(sid)].stage
 
     def _index(self, sid: str) -> int:
         ids = self.stage_ids
-        if sid not in ids:
-            raise UnknownNameError(f"the plan has no stage {sid!r}; its stages are {', '.join(ids) or 'none'}")
+        if not isinstance(sid, str) or sid not in ids:
+            raise UnknownNameError(f"the plan has no stage {shown(sid)}; its stages are {', '.join(ids) or 'none'}"
+                                   + (did_you_mean(sid, ids) if isinstance(sid, str) else ""))
         return ids.index(sid)
 
     # -- dotted addresses ---------------------------------------------------------------------
@@ -336,7 +436,7 @@ class Plan:
             previous = SOURCE_NODE
         nodes = []
         for k, entry in enumerate(self._entries, start=1):
-            sid = f"s{k}"
+            sid = entry.id
             if entry.coupling == "capacitor":
                 input_node = f"{sid}_in"
                 c.capacitor(f"{sid}_coupling", previous, input_node, self.coupling_capacitance)

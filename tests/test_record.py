@@ -29,7 +29,7 @@ from ampplan.solver.assembly import layout_of
 from ampplan.circuit import Circuit
 from ampplan.devices import FIELDS as DEVICE_FIELDS
 from ampplan.devices import PRESETS, Transistor
-from ampplan.errors import PlanFileError
+from ampplan.errors import InvalidValueError, PlanFileError
 from ampplan.plan import PLAN_PARAMETERS, Plan
 from ampplan.record import (FORMAT, MAX_FILE_BYTES, MAX_PROBLEMS, PLAN_SCHEMA, VERSION, load_plan,
                             plan_from_dict, plan_to_dict, read_plan_file, save_plan)
@@ -453,7 +453,7 @@ def test_save_replaces_and_keeps_permissions(tmp_path):
 
 
 def test_save_refuses_a_non_plan(tmp_path):
-    with pytest.raises(TypeError):
+    with pytest.raises(InvalidValueError, match="expects an ampplan Plan, got dict"):
         save_plan({"supply": 12}, tmp_path / "p.json")
     assert list(tmp_path.iterdir()) == []
 

@@ -59,11 +59,12 @@ def analyse_compiled(plan, compiled, op, active_edge: str = "vce-sat") -> PlanRe
     owner = compiled.owner
     stages, cautions, estimate = [], [], math.inf
     transistor_stage = {}
+    ids = plan.stage_ids
     for name, tag in owner.items():
         if name in op.transistors:
-            transistor_stage[name] = f"s{int(round(tag))}"
+            transistor_stage[name] = ids[int(round(tag)) - 1]
     for k, (nodes, stage) in enumerate(zip(compiled.stages, plan.stages), start=1):
-        sid = f"s{k}"
+        sid = ids[k - 1]
         t = op.transistors[nodes.transistor]
         q = circuit.element(nodes.transistor)
         device = q.device

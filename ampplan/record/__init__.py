@@ -2,12 +2,12 @@
 
 A plan file is one JSON object::
 
-    {"format": "ampplan-plan", "version": 1, "description": "...",
+    {"format": "ampplan-plan", "version": 2, "description": "...",
      "supply": 12.0, "negative_supply": 0.0, ..., "load_coupling": "capacitor",
-     "stages": [{"kind": "common-emitter", "coupling": "capacitor", "rb1": 47000.0, ...,
+     "stages": [{"id": "s1", "kind": "common-emitter", "coupling": "capacitor", "rb1": 47000.0, ...,
                  "device": {"polarity": "npn", "beta": 150.0, ..., "early_voltage": "inf"}}]}
 
-Rules of the format (version 1):
+Rules of the format (version 2):
 
 * Every value is in SI base units (ohms, farads, volts, amperes, watts); ``temperature`` is in
   degrees Celsius, as in :class:`ampplan.plan.Plan`.
@@ -19,6 +19,9 @@ Rules of the format (version 1):
 * JSON has no infinity, so an infinite transistor value (``early_voltage`` of a device without the
   Early effect, say) is written as the string ``"inf"``. NaN and the non-standard literals
   ``NaN``/``Infinity`` are refused.
+* Each stage has its ``id`` (``"s1"``, or a name of the user's such as ``"input"``; see
+  :meth:`ampplan.plan.Plan.add`), in chain order. Version 1 had no ids: a version-1 file still
+  loads, its stages get ``"s1"``, ``"s2"`` ... by position, and a save writes it as version 2.
 * A custom stage lists its circuit elements: ``{"type": "resistor", "name": "r1",
   "nodes": ["supply", "out"], "value": 4700.0}``; a transistor has ``"device"`` in place of
   ``"value"`` and its nodes are collector, base, emitter.

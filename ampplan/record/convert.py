@@ -9,7 +9,7 @@ import re
 from ..circuit import Circuit
 from ..devices import FIELDS as DEVICE_FIELDS
 from ..devices import Transistor
-from ..errors import AmpplanError, PlanFileError
+from ..errors import AmpplanError, InvalidValueError, PlanFileError
 from ..plan import PLAN_PARAMETERS, Plan
 from ..stages import TEMPLATES, CustomStage
 from .messages import problems_text
@@ -51,8 +51,8 @@ def _element_to_dict(element) -> dict:
     return out
 
 
-def _stage_to_dict(stage, coupling: str) -> dict:
-    out = {"kind": stage.kind, "coupling": coupling}
+def _stage_to_dict(sid: str, stage, coupling: str) -> dict:
+    out = {"id": sid, "kind": stage.kind, "coupling": coupling}
     if isinstance(stage, CustomStage):
         out.update(input=stage.input, output=stage.output, transistor=stage.transistor,
                    elements=[_element_to_dict(e) for e in stage.circuit.elements])
@@ -63,7 +63,7 @@ def _stage_to_dict(stage, coupling: str) -> dict:
 
 
 def plan_to_dict(plan: Plan, description: str | None = None) -> dict:
-    """The plan as a plain, JSON-ready dict in the plan-file layout (format version 1).
+    """The plan as a plain, JSON-ready dict in the plan-file layout (format version :data:`VERSION`).
 
     Parameters
     ----------
@@ -78,7 +78,7 @@ def plan_to_dict(plan: Plan, description: str | None = None) -> dict:
         Floats in SI units, ``"inf"`` for infinity, None for "not fitted".
     """
     if not isinstance(plan, Plan):
-        raise TypeError(f"plan_to_dict expects an ampplan Plan, got {type(plan).__name__}")
+        raise InvalidValueError(f"plan_to_dict expects an ampplan Plan, got {type(plan).__name__}")
     out = {"format": FORMAT, "version": VERSION}
     description = plan.description if description is None else description
     if description:
@@ -86,7 +86,8 @@ def plan_to_dict(plan: Plan, description: str | None = None) -> dict:
     for name in PLAN_PARAMETERS:
         out[name] = _out(getattr(plan, name))
     out["load_coupling"] = plan.load_coupling
-    out["stages"] = [_stage_to_dict(stage, coupling) for stage, coupling in zip(plan.stages, plan.couplings)]
+    out["stages"] = [_stage_to_dict(sid, stage, coupling)
+                     for sid, stage, coupling in zip(plan.stage_ids, plan.stages, plan.couplings)]
     return out
 
 
@@ -207,11 +208,15 @@ def plan_from_dict(data, source: str = "<plan>") -> Plan:
                     description=data.get("description", ""))
     except AmpplanError as exc:
         raise PlanFileError(f"{source}: {exc}") from None
-    for k, (stage, raw) in enumerate(zip(stages, data["stages"])):
+    # A version-1 file has no ids: its stages get "s1", "s2" ... by position, as they had then.
+    ids = [raw.get("id", f"s{k + 1}") for k, raw in enumerate(data["stages"])]
+    for k, (stage, raw, sid) in enumerate(zip(stages, data["stages"], ids)):
         try:
-            plan.add(stage, coupling=raw["coupling"])
+            plan.add(stage, coupling=raw["coupling"], id=sid)
         except AmpplanError as exc:
-            problems.append(_relabel(exc, ("stages", k), (f"s{k + 1}",)))
+            owner = f"stage id {sid!r}"
+            path = ("stages", k, "id") if str(exc).startswith(owner) else ("stages", k)
+            problems.append(_relabel(exc, path, (owner, sid)))
     if problems:
         raise PlanFileError(problems_text(source, problems, data))
     return plan

@@ -21,16 +21,18 @@ from ..devices import MAY_BE_INFINITE as DEVICE_MAY_BE_INFINITE
 from ..devices import PARAMETER_BOUNDS as DEVICE_BOUNDS
 from ..devices import FIELDS as DEVICE_FIELDS
 from ..errors import PlanFileError
-from ..plan import COUPLINGS, PLAN_PARAMETERS
+from ..plan import COUPLINGS, MAX_STAGE_ID_LENGTH, PLAN_PARAMETERS
 from ..stages import TEMPLATES, CustomStage
 from .messages import messages_for, problems_text, shown
 
-__all__ = ["FORMAT", "VERSION", "INFINITY", "ELEMENT_TYPES", "PLAN_SCHEMA", "field_kinds", "validate_plan_dict"]
+__all__ = ["FORMAT", "VERSION", "INFINITY", "ELEMENT_TYPES", "PLAN_SCHEMA", "PLAN_SCHEMAS", "field_kinds",
+           "validate_plan_dict"]
 
 #: Value of the ``format`` field of every plan file.
 FORMAT = "ampplan-plan"
-#: Newest format version this ampplan writes and reads.
-VERSION = 1
+#: Newest format version this ampplan writes and reads. Version 2 gives every stage an ``id``;
+#: version 1 (no ids: a stage's id followed its position) is still read, see :mod:`.convert`.
+VERSION = 2
 #: How an infinite value is spelt in a plan file (JSON has no infinity).
 INFINITY = "inf"
 
@@ -89,8 +91,18 @@ def _device_schema() -> dict:
             "additionalProperties": False}
 
 
-def _stage_schema(cls) -> dict:
-    properties = {"kind": {"const": cls.kind}, "coupling": {"enum": list(COUPLINGS)}}
+def _stage_header(kind: str, version: int) -> dict:
+    """The keys every stage starts with: its id (from version 2), kind and coupling."""
+    properties = {}
+    if version >= 2:
+        properties["id"] = {"type": "string", "minLength": 1, "maxLength": MAX_STAGE_ID_LENGTH,
+                            "description": "the stage's id: a letter, then letters, digits or '_'"}
+    properties.update(kind={"const": kind}, coupling={"enum": list(COUPLINGS)})
+    return properties
+
+
+def _stage_schema(cls, version: int) -> dict:
+    properties = _stage_header(cls.kind, version)
     for p in cls.PARAMETERS:
         properties[p.name] = _number(p.minimum, p.minimum_inclusive, p.maximum, p.unit, nullable=p.optional,
                                      help_=f"{p.help} ({p.unit})")
@@ -121,13 +133,13 @@ def _element_schema(kind: str, cls: type) -> dict:
             "additionalProperties": False}
 
 
-def _custom_stage_schema() -> dict:
+def _custom_stage_schema(version: int) -> dict:
     dispatch = [{"if": {"properties": {"type": {"const": kind}}, "required": ["type"]},
                  "then": {"$ref": f"#/$defs/element.{kind}"}} for kind in ELEMENT_TYPES]
     element = {"type": "object", "required": ["type"],
                "properties": {"type": {"enum": list(ELEMENT_TYPES)}}, "allOf": dispatch}
     names = {f.name for f in dataclasses.fields(CustomStage)}
-    properties = {"kind": {"const": CustomStage.kind}, "coupling": {"enum": list(COUPLINGS)}}
+    properties = _stage_header(CustomStage.kind, version)
     for name in ("input", "output", "transistor"):
         if name in names:
             properties[name] = {"type": "string", "minLength": 1}
@@ -141,18 +153,18 @@ def _plan_value_schema(name: str) -> dict:
     return _number(p.minimum, p.minimum_inclusive, upper=p.maximum, unit=p.unit, nullable=p.optional, help_=p.help)
 
 
-def _build_schema() -> dict:
+def _build_schema(version: int = VERSION) -> dict:
     defs = {"device": _device_schema()}
     stage_dispatch = []
     for kind, cls in TEMPLATES.items():
-        defs[f"stage.{kind}"] = _custom_stage_schema() if cls is CustomStage else _stage_schema(cls)
+        defs[f"stage.{kind}"] = _custom_stage_schema(version) if cls is CustomStage else _stage_schema(cls, version)
         stage_dispatch.append({"if": {"properties": {"kind": {"const": kind}}, "required": ["kind"]},
                                "then": {"$ref": f"#/$defs/stage.{kind}"}})
     for kind, (cls, _method) in ELEMENT_TYPES.items():
         defs[f"element.{kind}"] = _element_schema(kind, cls)
     properties = {
         "format": {"const": FORMAT},
-        "version": {"type": "integer", "minimum": 1, "maximum": VERSION},
+        "version": {"const": version},
         "description": {"type": "string", "description": "free text about the plan"},
     }
     for name in PLAN_PARAMETERS:
@@ -163,7 +175,7 @@ def _build_schema() -> dict:
         "allOf": stage_dispatch}}
     return {
         "$schema": "https://json-schema.org/draft/2020-12/schema",
-        "title": f"ampplan plan file, format version {VERSION}",
+        "title": f"ampplan plan file, format version {version}",
         "type": "object",
         "properties": properties,
         "required": [name for name in properties if name != "description"],
@@ -172,10 +184,12 @@ def _build_schema() -> dict:
     }
 
 
-#: JSON Schema (draft 2020-12) of a version-1 plan file, generated from the declarations.
-PLAN_SCHEMA: dict = _build_schema()
-jsonschema.Draft202012Validator.check_schema(PLAN_SCHEMA)
-_VALIDATOR = jsonschema.Draft202012Validator(PLAN_SCHEMA)
+#: JSON Schema (draft 2020-12) of each plan-file version this ampplan reads, generated from the
+#: declarations; version 1 differs only in having no stage ids.
+PLAN_SCHEMAS: dict[int, dict] = {version: _build_schema(version) for version in range(1, VERSION + 1)}
+#: The schema of the version this ampplan writes.
+PLAN_SCHEMA: dict = PLAN_SCHEMAS[VERSION]
+_VALIDATORS = {version: jsonschema.Draft202012Validator(schema) for version, schema in PLAN_SCHEMAS.items()}
 
 
 def _walk_numbers(value, path=()):
@@ -236,7 +250,7 @@ def validate_plan_dict(data, source: str = "<plan>") -> None:
     _check_header(data, source)
     try:
         problems = list(_walk_numbers(data))
-        for error in _VALIDATOR.iter_errors(data):
+        for error in _VALIDATORS[data["version"]].iter_errors(data):
             problems += messages_for(error)
     except RecursionError:
         raise PlanFileError(f"{source}: values are nested too deeply to be a plan file") from None
