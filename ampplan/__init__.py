@@ -4,13 +4,13 @@ The core (devices, circuit, solver, stages, plan, analyses, plan files) imports 
 only; notebook widgets and the canvas load when first used.
 """
 
-from . import errors
+from . import errors, eseries
 from .circuit import Circuit
 from .devices import PRESETS, Transistor, preset, thermal_voltage
 from .plan import Plan
 from .solver import Check, OperatingPoint, TransistorResult
 from .stages import CommonBase, CommonCollector, CommonEmitter, CustomStage
 
-__all__ = ["errors", "Circuit", "Transistor", "thermal_voltage", "preset", "PRESETS", "OperatingPoint",
+__all__ = ["errors", "eseries", "Circuit", "Transistor", "thermal_voltage", "preset", "PRESETS", "OperatingPoint",
            "TransistorResult", "Check", "Plan", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage"]
 __version__ = "0.1.0"
