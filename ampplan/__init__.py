@@ -14,3 +14,13 @@ from .stages import CommonBase, CommonCollector, CommonEmitter, CustomStage
 __all__ = ["errors", "eseries", "Circuit", "Transistor", "thermal_voltage", "preset", "PRESETS", "OperatingPoint",
            "TransistorResult", "Check", "Plan", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage"]
 __version__ = "0.1.0"
+
+
+def load_ipython_extension(ipython) -> None:
+    """``%load_ext ampplan``: BokehJS from the local Jupyter server and the display hooks.
+
+    Imports the notebook layer only when IPython calls it, so ``import ampplan`` stays light.
+    """
+    from .notebook.extension import load_ipython_extension as load
+
+    load(ipython)
