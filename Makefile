@@ -4,7 +4,7 @@ PYTHON ?= python3
 VENV   := .venv
 BIN    := $(VENV)/bin
 
-.PHONY: lab test bench screenshot clean
+.PHONY: lab test bench clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -33,7 +33,6 @@ test: $(VENV)/.stamp-test $(SERVER_CONFIG)
 
 bench: $(VENV)/.stamp-test $(SERVER_CONFIG)
 	$(BIN)/python tests/benchmarks/bench_solver.py
-	$(BIN)/python tests/benchmarks/bench_browser.py
 
 # JupyterLab listens on this machine only; root (a container, say) needs --allow-root.
 ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)
@@ -49,11 +48,6 @@ $(LAB_OVERRIDES): jupyter-config/lab-settings/overrides.json | $(BIN)/python
 
 lab: $(VENV)/.stamp-lab $(SERVER_CONFIG) $(LAB_OVERRIDES)
 	$(BIN)/jupyter lab --notebook-dir=notebooks --ServerApp.ip=127.0.0.1 $(ROOT_FLAG)
-
-# Regenerates docs/canvas.png (README "In the notebook") from real JupyterLab in headless Chromium.
-screenshot: $(VENV)/.stamp-test $(SERVER_CONFIG)
-	$(BIN)/python -m pytest tests/browser/test_lab.py -k screenshot -p no:cacheprovider \
-		--screenshot-to=docs/canvas.png
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .hypothesis

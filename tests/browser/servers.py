@@ -124,7 +124,8 @@ def start_server(folder: pathlib.Path, root_dir: pathlib.Path, *, lab: bool = Tr
 
     ``enable`` says how ampplan's server extension is enabled: ``"config"`` (the packaged
     jupyter_server_config.d file in the server's config folder, as ``pip install`` places it),
-    ``"option"`` (``--ServerApp.jpserver_extensions=ampplan.serverext=True``) or ``"none"``.
+    ``"option"`` (``--ServerApp.jpserver_extensions=ampplan.serverext=True``) or ``"none"`` (disabled
+on the command line, which wins over every config file).
     """
     env = isolated_env(folder)
     config = pathlib.Path(env["JUPYTER_CONFIG_DIR"])
@@ -134,7 +135,10 @@ def start_server(folder: pathlib.Path, root_dir: pathlib.Path, *, lab: bool = Tr
         shutil.copy(CONFIG_FILE, config / "jupyter_server_config.d" / "ampplan.json")
     elif enable == "option":
         extra.append("--ServerApp.jpserver_extensions=ampplan.serverext=True")
-    elif enable != "none":
+    elif enable == "none":
+        # The environment's own config (a `pip install`, or the Makefile's copy) enables it: turn it off.
+        extra.append("--ServerApp.jpserver_extensions=ampplan.serverext=False")
+    else:
         raise ValueError(f"enable={enable!r}")
     if lab:
         settings = pathlib.Path(env["JUPYTERLAB_SETTINGS_DIR"])
