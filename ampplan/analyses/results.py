@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 
 from ..devices import REFERENCE_TEMPERATURE
 from ..errors import UnknownNameError
+from .addresses import read_result
 from ..solver.result import TransistorResult, _fmt, _json_safe, _plain
 
 __all__ = ["LoadLine", "LoadLines", "Swing", "Clipping", "StageResult", "PlanResult"]
@@ -333,6 +334,10 @@ class PlanResult:
     @property
     def all_forward_active(self) -> bool:
         return all(s.transistor.region == "forward-active" for s in self.stages)
+
+    def __getitem__(self, address: str):
+        """The figure at a result address (``"s1.vce"``, ``"gain"``; see :mod:`.addresses`)."""
+        return read_result(self, address)
 
     def stage(self, sid: str) -> StageResult:
         """The result of stage ``sid`` (``"s1"`` ...); UnknownNameError listing the ids otherwise."""
