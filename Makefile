@@ -4,7 +4,7 @@ PYTHON ?= python3
 VENV   := .venv
 BIN    := $(VENV)/bin
 
-.PHONY: lab test bench clean
+.PHONY: lab test bench screenshot clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -33,6 +33,7 @@ test: $(VENV)/.stamp-test $(SERVER_CONFIG)
 
 bench: $(VENV)/.stamp-test $(SERVER_CONFIG)
 	$(BIN)/python tests/benchmarks/bench_solver.py
+	$(BIN)/python tests/benchmarks/bench_browser.py
 
 # JupyterLab listens on this machine only; root (a container, say) needs --allow-root.
 ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)
@@ -48,6 +49,12 @@ $(LAB_OVERRIDES): jupyter-config/lab-settings/overrides.json | $(BIN)/python
 
 lab: $(VENV)/.stamp-lab $(SERVER_CONFIG) $(LAB_OVERRIDES)
 	$(BIN)/jupyter lab --notebook-dir=notebooks --ServerApp.ip=127.0.0.1 $(ROOT_FLAG)
+
+# Regenerates docs/canvas.png, the README's picture of the canvas: captured from real JupyterLab in
+# headless Chromium by the browser test's screenshot helper (needs Debian's chromium).
+screenshot: $(VENV)/.stamp-test $(SERVER_CONFIG)
+	AMPPLAN_REQUIRE_BROWSER=1 $(BIN)/python -m pytest -q -p no:cacheprovider \
+		tests/browser/test_lab.py::test_walkthrough_live_in_jupyterlab --screenshot-to=docs/canvas.png
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .hypothesis

@@ -26,7 +26,8 @@ from jupyter_bokeh import BokehModel
 import ampplan
 
 plan = ampplan.Plan.load(files("ampplan") / "data" / "demo_plan.json")
-result = plan.solve()
+MODEL = "constant-drop"
+result = plan.solve(model=MODEL)
 ids = [s.id for s in result.stages]
 
 def qpoints(res):
@@ -82,7 +83,7 @@ rc.add_class("ampplan-control-s1-rc")
 
 def on_rc(change):
     plan.set("s1.rc", change["new"])
-    refresh(plan.solve())
+    refresh(plan.solve(model=MODEL))
 
 rc.observe(on_rc, names="value")
 refresh(result)''',
@@ -103,8 +104,9 @@ picture_handle = display(Image(data=picture(result), format="png"), display_id=T
 ]
 
 
-def build() -> nbformat.NotebookNode:
-    """The notebook, without outputs, with the python3 kernel."""
-    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell(source) for source in CELLS])
+def build(model: str = "constant-drop") -> nbformat.NotebookNode:
+    """The notebook, without outputs, with the python3 kernel, solving with device ``model``."""
+    cells = [c.replace('MODEL = "constant-drop"', f"MODEL = {model!r}") for c in CELLS]
+    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell(source) for source in cells])
     nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
     return nb

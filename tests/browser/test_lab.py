@@ -103,7 +103,7 @@ def test_walkthrough_live_in_jupyterlab(lab, browser, request):
         size = (lab.root_dir / NOTEBOOK_NAME).stat().st_size
         assert size < MAX_RECORD_BYTES, f"saved notebook is {size} bytes"
 
-        shot = request.config.getoption("--screenshot-to")
+        shot = request.config.getoption("--screenshot-to", default=None)
         if shot:
             pathlib.Path(shot).parent.mkdir(parents=True, exist_ok=True)
             lab_page.screenshot_element(page, CANVAS, shot)
