@@ -30,14 +30,13 @@ import sys
 import tempfile
 
 HERE = pathlib.Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent / "browser"))
+sys.path.insert(0, str(HERE.parent))
 
 import nbformat  # noqa: E402
 
-import fixture_notebook  # noqa: E402
-import lab_page  # noqa: E402
-from conftest import CHROMIUM_ARGS, find_chromium  # noqa: E402
-from servers import isolated_env, start_server  # noqa: E402
+from browser import fixture_notebook, lab_page  # noqa: E402
+from browser.chromium import CHROMIUM_ARGS, find_chromium  # noqa: E402
+from browser.servers import isolated_env, start_server  # noqa: E402
 
 PRESSES = 24
 TARGETS_MS = {"constant-drop": 100.0, "ebers-moll": 250.0}

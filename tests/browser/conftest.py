@@ -9,27 +9,11 @@ the reason, unless ``AMPPLAN_REQUIRE_BROWSER=1`` (set by .ci/run), where they fa
 from __future__ import annotations
 
 import os
-import shutil
 
 import pytest
 
-from servers import ROOT, isolated_env, start_server  # noqa: F401  (ROOT re-exported for tests)
-
-#: Chromium switches: headless, no background traffic, no name resolves except the local server.
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                 "--disable-dev-shm-usage",
-                 "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE 127.0.0.1, EXCLUDE localhost"]
-
-
-def find_chromium() -> str | None:
-    """Path of a Chromium executable, or None."""
-    explicit = os.environ.get("AMPPLAN_CHROMIUM")
-    if explicit:
-        return explicit if os.access(explicit, os.X_OK) else None
-    if os.access("/usr/bin/chromium", os.X_OK):
-        return "/usr/bin/chromium"
-    return shutil.which("chromium") or shutil.which("chromium-browser")
+from .chromium import CHROMIUM_ARGS, find_chromium
+from .servers import isolated_env, start_server
 
 
 def browser_required() -> bool:

@@ -14,16 +14,13 @@ from __future__ import annotations
 
 import json
 import pathlib
-import shutil
 import subprocess
 import sys
 
 import pytest
 
-from servers import ROOT, isolated_env
-
-import fixture_notebook
-import lab_page
+from . import fixture_notebook, lab_page
+from .servers import isolated_env
 
 nbformat = pytest.importorskip("nbformat")
 

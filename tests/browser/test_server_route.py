@@ -15,7 +15,7 @@ import pytest
 pytest.importorskip("jupyter_server")
 pytest.importorskip("bokeh")
 
-from servers import start_server  # noqa: E402
+from .servers import start_server  # noqa: E402
 
 from ampplan import serverext  # noqa: E402
 
