@@ -17,10 +17,10 @@ import numpy as np
 from .devices import Transistor
 from .errors import (DuplicateNameError, FloatingNodeError, InvalidValueError, UnknownNameError,
                      VoltageSourceLoopError)
-from .validation import check_number
+from .validation import check_number, check_text, shown
 
 __all__ = ["GROUND", "Circuit", "Resistor", "VoltageSource", "CurrentSource", "Capacitor", "Bjt",
-           "Element", "RESISTANCE_RANGE", "VALUE_BOUNDS", "VALUE_FIELD", "UnionFind", "terminals", "did_you_mean"]
+           "Element", "RESISTANCE_RANGE", "VOLTAGE_LIMIT", "CURRENT_LIMIT", "VALUE_BOUNDS", "VALUE_FIELD", "UnionFind", "terminals", "did_you_mean"]
 
 GROUND = "gnd"
 
@@ -81,12 +81,22 @@ VALUE_FIELD = {Resistor: "resistance", VoltageSource: "voltage", CurrentSource: 
 #: in double arithmetic, so a short or an open should be drawn as one.
 RESISTANCE_RANGE = (1e-6, 1e12)
 
+#: Largest source voltage accepted, volts, either sign: 10 kV is beyond the rating of any bipolar
+#: transistor (high-voltage parts stop near 1.5 kV; common practice, no source), and with it the
+#: products the analyses form stay far inside the float range (V²/R ≤ 1e8 V² / 1e-6 Ω = 1e14 W),
+#: so an absurd value (1e160 V) is refused by name instead of overflowing in a power sum.
+VOLTAGE_LIMIT = 1e4
+#: Largest source current accepted, amperes, either sign: 1 kA is beyond any bipolar transistor's
+#: collector rating (power parts stop near 100 A; common practice, no source); I²R through the
+#: largest resistance stays finite (1e6 A² · 1e12 Ω = 1e18 W).
+CURRENT_LIMIT = 1e3
+
 #: Bounds and unit of each element kind's value, declared once: the element methods, batches,
 #: the stage templates (through RESISTANCE_RANGE) and the plan-file schema follow them.
 VALUE_BOUNDS: dict[type, dict] = {
     Resistor: dict(minimum=RESISTANCE_RANGE[0], minimum_inclusive=True, maximum=RESISTANCE_RANGE[1], unit="Ω"),
-    VoltageSource: dict(unit="V"),
-    CurrentSource: dict(unit="A"),
+    VoltageSource: dict(minimum=-VOLTAGE_LIMIT, minimum_inclusive=True, maximum=VOLTAGE_LIMIT, unit="V"),
+    CurrentSource: dict(minimum=-CURRENT_LIMIT, minimum_inclusive=True, maximum=CURRENT_LIMIT, unit="A"),
     Capacitor: dict(minimum=0.0, unit="F"),
 }
 
@@ -97,7 +107,8 @@ _ADD_METHOD = {Resistor: "resistor", VoltageSource: "voltage_source", CurrentSou
 
 def _check_name(kind: str, name) -> str:
     if not isinstance(name, str) or not name.strip():
-        raise InvalidValueError(f"{kind} name must be a non-empty string, got {name!r}")
+        raise InvalidValueError(f"{kind} name must be a non-empty string, got {shown(name)}")
+    check_text(name, f"{kind} name {name[:40]!r}")
     if "." in name:
         raise InvalidValueError(f"{kind} name {name!r} must not contain '.' (it separates parameters)")
     return name
@@ -105,8 +116,8 @@ def _check_name(kind: str, name) -> str:
 
 def _check_node(element: str, terminal: str, node) -> str:
     if not isinstance(node, str) or not node.strip():
-        raise InvalidValueError(f"{element}: {terminal} node must be a non-empty string, got {node!r}")
-    return node
+        raise InvalidValueError(f"{element}: {terminal} node must be a non-empty string, got {shown(node)}")
+    return check_text(node, f"{element}: {terminal} node")
 
 
 def _value(kind: type, element: str, value, optional: bool = False) -> float | None:
@@ -208,6 +219,8 @@ class Circuit:
 
     def element(self, name: str) -> Element:
         """The element called ``name`` (UnknownNameError, with a suggestion, when there is none)."""
+        if not isinstance(name, str):
+            raise UnknownNameError(f"an element name is text, got {shown(name)}")
         try:
             return self._elements[name]
         except KeyError:
@@ -216,6 +229,8 @@ class Circuit:
 
     def of_kind(self, kind: type) -> list:
         """Elements of one class (``Resistor``, ``Bjt`` ...), in the order added."""
+        if not (isinstance(kind, type) or (isinstance(kind, tuple) and all(isinstance(k, type) for k in kind))):
+            raise InvalidValueError(f"of_kind expects an element class such as Resistor, got {shown(kind)}")
         return [e for e in self._elements.values() if isinstance(e, kind)]
 
     @property
@@ -234,6 +249,8 @@ class Circuit:
 
         Raises
         ------
+        InvalidValueError
+            Elements, but no node besides ground.
         VoltageSourceLoopError
             Voltage sources close a loop (their currents would be undetermined).
         FloatingNodeError
@@ -241,6 +258,12 @@ class Circuit:
             else but capacitors (a bias resistor missing).
         """
         circuit = self
+        if self._elements and not self.nodes:
+            # No unknowns at all (a resistor from ground to ground, say): nothing to solve, and
+            # numpy's reductions over zero unknowns would fail.
+            names = ", ".join(repr(e.name) for e in self.elements[:5])
+            raise InvalidValueError(f"every element of the circuit ({names}) has all its terminals on 'gnd', so "
+                                    "there is nothing to solve; connect them to other nodes")
         voltage_sources = self.of_kind(VoltageSource)
         capacitors = self.of_kind(Capacitor)
         nodes = self.nodes

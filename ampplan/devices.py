@@ -180,9 +180,21 @@ PARAMETER_BOUNDS = {
     "early_voltage": (0.0, False),
     "emission_coefficient": (0.0, False),
     "bandgap_energy": (0.0, True),
+    "vbe_temperature_coefficient": (-0.1, True),
     "max_power": (0.0, False),
     "max_collector_current": (0.0, False),
     "max_vce": (0.0, False),
+}
+#: Upper bound (inclusive) of the parameters that have one; the others are bounded below only.
+#: Junction and saturation drops of silicon bipolar transistors stay below about 2 V (a
+#: Darlington's two drops, a power part's V_CE(sat); common practice, no source): 10 V leaves
+#: room for any part and keeps absurd values (1e300 V) from overflowing the analyses. The drift
+#: of those drops is about -2 mV/K; 0.1 V/K either way is far beyond any junction.
+PARAMETER_MAXIMA = {
+    "vbe_on": 10.0,
+    "vbc_on": 10.0,
+    "vce_sat": 10.0,
+    "vbe_temperature_coefficient": 0.1,
 }
 #: Parameters that may be infinite (no Early effect, no rating).
 MAY_BE_INFINITE = {"early_voltage", "max_power", "max_collector_current", "max_vce"}
@@ -209,8 +221,8 @@ def check_parameter(name: str, value, where: str = "Transistor", samples: bool =
         Naming ``where`` and ``name`` (and the first bad sample of a batch).
     """
     low, inclusive = PARAMETER_BOUNDS.get(name, (-math.inf, False))
-    bounds = dict(minimum=low, minimum_inclusive=inclusive, may_be_infinite=name in MAY_BE_INFINITE,
-                  unit=DEVICE_UNITS[name])
+    bounds = dict(minimum=low, minimum_inclusive=inclusive, maximum=PARAMETER_MAXIMA.get(name, math.inf),
+                  may_be_infinite=name in MAY_BE_INFINITE, unit=DEVICE_UNITS[name])
     if samples:
         return check_samples(value, f"{where} parameter {name}", **bounds)
     nullable = ", ".join(f for f in FIELDS if f in OPTIONAL_PARAMETERS)

@@ -13,7 +13,7 @@ import re
 from dataclasses import dataclass
 from typing import Literal, get_args
 
-from .circuit import GROUND, RESISTANCE_RANGE, Circuit, did_you_mean
+from .circuit import GROUND, RESISTANCE_RANGE, VOLTAGE_LIMIT, Circuit, did_you_mean
 from .devices import ABSOLUTE_ZERO, DEVICE_UNITS
 from .devices import FIELDS as DEVICE_FIELDS
 from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
@@ -33,9 +33,11 @@ EMF_NODE, SOURCE_NODE, LOAD_NODE = "emf", "source_out", "load"
 
 #: Plan-level numbers, declared once: validation, the plan-file schema and docs come from here.
 PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
-    Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, optional=False, scale="linear"),
+    # Rails within the circuit's VOLTAGE_LIMIT, so that the plan never holds a value its circuit refuses.
+    Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, maximum=VOLTAGE_LIMIT,
+              optional=False, scale="linear"),
     Parameter("negative_supply", "V", 0.0, "lower rail (0 for ground, negative for a split supply), volts",
-              minimum=-math.inf, maximum=0.0, optional=False, scale="linear"),
+              minimum=-VOLTAGE_LIMIT, minimum_inclusive=True, maximum=0.0, optional=False, scale="linear"),
     # 0 or within RESISTANCE_RANGE; the gap below its lower end is refused by Plan itself.
     Parameter("source_resistance", "Ω", 0.0, "signal source resistance, ohms (0 for an ideal source)",
               minimum=0.0, minimum_inclusive=True, maximum=RESISTANCE_RANGE[1], optional=False),
@@ -46,7 +48,7 @@ PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
     Parameter("resistor_power_rating", "W", 0.25, "power rating of every resistor, watts (common practice)",
               optional=False),
     Parameter("min_headroom", "V", 1.0, "caution when V_CE is closer than this to the forward-active edge, volts",
-              minimum=0.0, minimum_inclusive=True, optional=False, scale="linear"),
+              minimum=0.0, minimum_inclusive=True, maximum=VOLTAGE_LIMIT, optional=False, scale="linear"),
     Parameter("coupling_capacitance", "F", None, "value of every coupling capacitor, farads (None: not chosen)"),
     Parameter("bypass_capacitance", "F", None, "default bypass capacitor value, farads (None: not chosen)"),
 )}

@@ -22,7 +22,7 @@ from .circuit import (GROUND, RESISTANCE_RANGE, VALUE_BOUNDS, Bjt, Capacitor, Ci
                       VoltageSource)
 from .devices import Transistor
 from .errors import InvalidValueError, UnknownNameError
-from .validation import bounds_text, check_number
+from .validation import bounds_text, check_number, check_text
 
 __all__ = ["Parameter", "Stage", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage",
            "StageNodes", "Rails", "TEMPLATES", "SUPPLY_NODE", "LOWER_NODE"]
@@ -329,6 +329,8 @@ class CustomStage(Stage):
             raise InvalidValueError("CustomStage.circuit must be an ampplan.Circuit")
         nodes = set(self.circuit.nodes) | {GROUND}
         rails = (SUPPLY_NODE, LOWER_NODE, GROUND)
+        for what in ("input", "output", "transistor"):
+            check_text(getattr(self, what), f"CustomStage.{what}")
         for what in ("input", "output"):
             node = getattr(self, what)
             if node in rails:

@@ -21,7 +21,14 @@ import numpy as np
 
 from .errors import InvalidValueError
 
-__all__ = ["shown", "bounds_text", "check_number", "check_samples"]
+__all__ = ["shown", "bounds_text", "check_number", "check_samples", "check_text", "unencodable",
+           "MAX_NAME_LENGTH", "MAX_TEXT_LENGTH"]
+
+#: Longest name accepted (an element, a node, a stage id ...): a name is a label, not prose.
+MAX_NAME_LENGTH = 200
+#: Longest free text accepted (a plan's description): room for pages of notes, and a plan file
+#: holding it stays far below the plan-file size limit even when every character takes 4 bytes.
+MAX_TEXT_LENGTH = 20_000
 
 
 def shown(value) -> str:
@@ -176,3 +183,49 @@ def check_samples(value, where: str, *, minimum: float = -math.inf, maximum: flo
     _raise_first_bad(numbers_, where, dict(minimum=minimum, maximum=maximum, minimum_inclusive=minimum_inclusive,
                                            may_be_infinite=may_be_infinite, unit=unit), True)
     return numbers_
+
+
+def unencodable(text: str) -> int | None:
+    """Index of the first character of ``text`` that UTF-8 cannot encode (a lone surrogate), or None.
+
+    Such characters come from a JSON escape such as ``"\\ud800"`` or from undecodable bytes in
+    a command line; they cannot be written to a file or a terminal, so they are refused.
+    """
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError as exc:
+        return exc.start
+    return None
+
+
+def check_text(value, where: str, *, maximum_length: int = MAX_NAME_LENGTH, empty: bool = False) -> str:
+    """Text, validated: a ``str`` of at most ``maximum_length`` characters that UTF-8 can encode.
+
+    Parameters
+    ----------
+    value : object
+    where : str
+        The culprit as messages name it (``"Plan.description"``, ``"resistor name"``).
+    maximum_length : int
+    empty : bool
+        Whether the empty (or all-blank) text is allowed.
+
+    Raises
+    ------
+    InvalidValueError
+        Not text; empty where not allowed; too long; holds a character UTF-8 cannot encode (named
+        by its code point and position, with the text shown escaped).
+    """
+    if not isinstance(value, str):
+        raise InvalidValueError(f"{where} must be text, got {shown(value)}")
+    if not empty and not value.strip():
+        raise InvalidValueError(f"{where} must not be empty, got {value!r}")
+    if len(value) > maximum_length:
+        raise InvalidValueError(f"{where} must be at most {maximum_length} characters long, got {len(value)}")
+    bad = unencodable(value)
+    if bad is not None:
+        escaped = value.encode("utf-8", "backslashreplace").decode("ascii", "backslashreplace")
+        raise InvalidValueError(f"{where} holds a character that cannot be written as UTF-8 text "
+                                f"(U+{ord(value[bad]):04X} at position {bad}, a lone surrogate): "
+                                f"{escaped[:60]}")
+    return value

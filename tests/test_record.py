@@ -237,7 +237,7 @@ MALFORMED = [
     ("stage-not-an-object", _set("stages", 2, 7), "stages[2]: must be an object, got 7"),
     ("description-not-text", _set("description", 5), "description: must be text, got 5"),
     # Found by the constructors, re-addressed to the JSON path.
-    ("positive-lower-rail", _set("negative_supply", 5), ("negative_supply: must be <= 0 V", "got 5")),
+    ("positive-lower-rail", _set("negative_supply", 5), ("negative_supply: must be >= -10000 V and <= 0 V, got 5", "got 5")),
     ("zero-supply", _set("supply", 0), ("supply: must be > 0 V", "got 0")),
     ("negative-source-resistance", _set("source_resistance", -50), ("source_resistance: must be ", "got -50")),
     ("capacitor-coupled-without-bias", _set("stages", 1, "coupling", "capacitor"),

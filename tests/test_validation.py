@@ -133,7 +133,7 @@ def test_transistor_refuses_a_polarity_that_is_not_a_word():
 
 
 def test_transistor_units_in_messages():
-    _raises(errors.InvalidValueError, ["vbe_on", "must be > 0 V, got -0.5"], lambda: Transistor(vbe_on=-0.5))
+    _raises(errors.InvalidValueError, ["vbe_on", "must be > 0 V and <= 10 V, got -0.5"], lambda: Transistor(vbe_on=-0.5))
 
 
 def test_none_only_on_fields_annotated_optional():

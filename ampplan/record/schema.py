@@ -19,6 +19,7 @@ from ..circuit import VALUE_BOUNDS, Bjt, Capacitor, CurrentSource, Resistor, Vol
 from ..devices import DEVICE_UNITS, Transistor
 from ..devices import MAY_BE_INFINITE as DEVICE_MAY_BE_INFINITE
 from ..devices import PARAMETER_BOUNDS as DEVICE_BOUNDS
+from ..devices import PARAMETER_MAXIMA as DEVICE_MAXIMA
 from ..devices import FIELDS as DEVICE_FIELDS
 from ..errors import PlanFileError
 from ..plan import COUPLINGS, MAX_STAGE_ID_LENGTH, PLAN_PARAMETERS
@@ -85,7 +86,7 @@ def _device_schema() -> dict:
             properties[name] = {"enum": list(typing.get_args(base))}
             continue
         low, inclusive = DEVICE_BOUNDS.get(name, (None, False))
-        properties[name] = _number(low, inclusive, unit=DEVICE_UNITS[name], nullable=nullable,
+        properties[name] = _number(low, inclusive, DEVICE_MAXIMA.get(name), unit=DEVICE_UNITS[name], nullable=nullable,
                                    infinite=name in DEVICE_MAY_BE_INFINITE)
     return {"type": "object", "properties": properties, "required": list(DEVICE_FIELDS),
             "additionalProperties": False}

@@ -9,11 +9,12 @@ sample gets a status and NaN fields and the others carry on.
 from __future__ import annotations
 
 import dataclasses
-
+from collections.abc import Mapping
 from typing import Literal, get_args
 
 import numpy as np
 
+from ..circuit import Circuit
 from ..errors import (ConvergenceError, InvalidValueError, NoConsistentRegionError, UnknownModelError,
                       UnknownNameError)
 from . import constant_drop as cd
@@ -74,8 +75,13 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
         raise UnknownModelError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
     if active_edge not in ACTIVE_EDGES:
         raise UnknownModelError(f"unknown active_edge {active_edge!r}; choose one of {', '.join(ACTIVE_EDGES)}")
+    if not isinstance(circuit, Circuit):
+        raise InvalidValueError(f"solve expects an ampplan Circuit, got {type(circuit).__name__}")
     if not circuit.elements:
         raise InvalidValueError("the circuit is empty: add a source and the elements it drives")
+    if assume is not None and not isinstance(assume, Mapping):
+        raise InvalidValueError(f"assume must map each transistor's name to a region, e.g. "
+                                f"{{'Q1': 'forward-active'}}, got {type(assume).__name__}")
     layout = layout_of(circuit)
     if assume is not None:
         if model != "constant-drop":
