@@ -81,11 +81,12 @@ VALUE_FIELD = {Resistor: "resistance", VoltageSource: "voltage", CurrentSource: 
 #: in double arithmetic, so a short or an open should be drawn as one.
 RESISTANCE_RANGE = (1e-6, 1e12)
 
-#: Largest source voltage accepted, volts, either sign: 10 kV is beyond the rating of any bipolar
-#: transistor (high-voltage parts stop near 1.5 kV; common practice, no source), and with it the
-#: products the analyses form stay far inside the float range (V²/R ≤ 1e8 V² / 1e-6 Ω = 1e14 W),
-#: so an absurd value (1e160 V) is refused by name instead of overflowing in a power sum.
-VOLTAGE_LIMIT = 1e4
+#: Largest source voltage accepted, volts, either sign. A plan's rails stop at 10 kV
+#: (:data:`ampplan.plan.SUPPLY_LIMIT`); the analyses drive sources beyond the rails (the clipping
+#: sweep reaches ten times the largest rail), so the circuit allows 1 MV. Products the analyses
+#: form stay far inside the float range (V²/R ≤ 1e12 V² / 1e-6 Ω = 1e18 W), so an absurd value
+#: (1e160 V) is refused by name instead of overflowing in a power sum.
+VOLTAGE_LIMIT = 1e6
 #: Largest source current accepted, amperes, either sign: 1 kA is beyond any bipolar transistor's
 #: collector rating (power parts stop near 100 A; common practice, no source); I²R through the
 #: largest resistance stays finite (1e6 A² · 1e12 Ω = 1e18 W).

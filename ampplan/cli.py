@@ -33,6 +33,7 @@ from .devices import Transistor
 from .record import plan_from_dict, read_plan_file
 from .solver import MODELS
 from .units import format_quantity, parse_quantity
+from .validation import MAX_TEXT_LENGTH
 
 __all__ = ["main", "DEMO_PLAN"]
 
@@ -44,6 +45,14 @@ EXIT_OK, EXIT_NOT_OK, EXIT_BAD_INPUT = 0, 1, 2
 
 #: What ``--set name=none`` means: the parameter is not fitted.
 _NONE_WORDS = ("none", "null")
+#: Longest ``--set`` item read (an address and a value; the description is the long one).
+MAX_SETTING_LENGTH = MAX_TEXT_LENGTH + 100
+
+
+def _printable(text: str) -> str:
+    """``text`` with what UTF-8 cannot encode (a lone surrogate from undecodable bytes in the command
+    line, say) written as a backslash escape, so that printing it can never fail."""
+    return text.encode("utf-8", "backslashreplace").decode("utf-8")
 
 
 class _BadInput(Exception):
@@ -73,6 +82,9 @@ def _apply_settings(plan, settings) -> None:
     read by :func:`~ampplan.units.parse_quantity`; any other unit is refused.
     """
     for item in settings or ():
+        if len(item) > MAX_SETTING_LENGTH:
+            raise _BadInput(f"--set {item[:40]}...: {len(item)} characters, more than the {MAX_SETTING_LENGTH} "
+                            "a setting may have")
         address, sep, text = item.partition("=")
         address, text = address.strip(), text.strip()
         if not sep or not address or not text:
@@ -144,15 +156,16 @@ def _check(args, out, err) -> int:
         return _fail(args, err, out, EXIT_BAD_INPUT, f"{label}: {exc}")
     if args.json:
         status, _ = _verdict(result)
-        print(json.dumps({**result.to_dict(), "exit_status": status}, indent=2, ensure_ascii=False,
-                         allow_nan=False), file=out)
+        print(_printable(json.dumps({**result.to_dict(), "exit_status": status}, indent=2, ensure_ascii=False,
+                                    allow_nan=False)), file=out)
         return status
     status, text = _report(plan, result, label, plan.description)
-    print(text, file=out)
+    print(_printable(text), file=out)
     return status
 
 
 def _fail(args, err, out, status: int, message: str) -> int:
+    message = _printable(message)
     print(f"ampplan: {message}", file=err)
     if getattr(args, "json", False):
         print(json.dumps({"error": message, "exit_status": status}, ensure_ascii=False), file=out)

@@ -16,7 +16,7 @@ import numpy as np
 from scipy import constants
 
 from .errors import UnknownModelError, UnknownNameError
-from .validation import check_number, check_samples
+from .validation import check_number, check_samples, shown
 
 __all__ = [
     "Polarity",
@@ -255,9 +255,9 @@ def preset(role: str) -> Transistor:
     """The preset transistor for a role, e.g. ``preset("general-purpose small-signal NPN")``."""
     try:
         return PRESETS[role]
-    except KeyError:
+    except (KeyError, TypeError):  # TypeError: a list or dict given as the role
         raise UnknownNameError(
-            f"no device preset named {role!r}; presets are: {', '.join(PRESETS)}") from None
+            f"no device preset named {shown(role)}; presets are: {', '.join(PRESETS)}") from None
 
 
 def scaled_to_temperature(devices: dict, temperature):

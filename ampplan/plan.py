@@ -18,7 +18,7 @@ from .devices import ABSOLUTE_ZERO, DEVICE_UNITS
 from .devices import FIELDS as DEVICE_FIELDS
 from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
 from .stages import Parameter, Rails, Stage, StageNodes
-from .validation import shown
+from .validation import MAX_TEXT_LENGTH, check_text, shown
 
 __all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PLAN_PARAMETERS"]
 
@@ -31,13 +31,17 @@ SUPPLY, NEGATIVE_SUPPLY, SOURCE, SOURCE_RESISTOR, LOAD_RESISTOR, LOAD_CAPACITOR 
 #: Nodes of the plan's own: source EMF, source output, load.
 EMF_NODE, SOURCE_NODE, LOAD_NODE = "emf", "source_out", "load"
 
+#: Largest rail magnitude, volts: 10 kV is beyond the rating of any bipolar transistor (high-voltage
+#: parts stop near 1.5 kV; common practice, no source), and a tenth of the circuit's
+#: VOLTAGE_LIMIT, which leaves the analyses room to drive the source beyond the rails.
+SUPPLY_LIMIT = VOLTAGE_LIMIT / 100
+
 #: Plan-level numbers, declared once: validation, the plan-file schema and docs come from here.
 PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
-    # Rails within the circuit's VOLTAGE_LIMIT, so that the plan never holds a value its circuit refuses.
-    Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, maximum=VOLTAGE_LIMIT,
+    Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, maximum=SUPPLY_LIMIT,
               optional=False, scale="linear"),
     Parameter("negative_supply", "V", 0.0, "lower rail (0 for ground, negative for a split supply), volts",
-              minimum=-VOLTAGE_LIMIT, minimum_inclusive=True, maximum=0.0, optional=False, scale="linear"),
+              minimum=-SUPPLY_LIMIT, minimum_inclusive=True, maximum=0.0, optional=False, scale="linear"),
     # 0 or within RESISTANCE_RANGE; the gap below its lower end is refused by Plan itself.
     Parameter("source_resistance", "Ω", 0.0, "signal source resistance, ohms (0 for an ideal source)",
               minimum=0.0, minimum_inclusive=True, maximum=RESISTANCE_RANGE[1], optional=False),
@@ -48,7 +52,7 @@ PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
     Parameter("resistor_power_rating", "W", 0.25, "power rating of every resistor, watts (common practice)",
               optional=False),
     Parameter("min_headroom", "V", 1.0, "caution when V_CE is closer than this to the forward-active edge, volts",
-              minimum=0.0, minimum_inclusive=True, maximum=VOLTAGE_LIMIT, optional=False, scale="linear"),
+              minimum=0.0, minimum_inclusive=True, maximum=SUPPLY_LIMIT, optional=False, scale="linear"),
     Parameter("coupling_capacitance", "F", None, "value of every coupling capacitor, farads (None: not chosen)"),
     Parameter("bypass_capacitance", "F", None, "default bypass capacitor value, farads (None: not chosen)"),
 )}
@@ -208,7 +212,7 @@ class Plan:
     def description(self, value: str):
         if not isinstance(value, str):
             raise InvalidValueError(f"Plan.description must be text, got {type(value).__name__}")
-        self._description = value
+        self._description = check_text(value, "Plan.description", maximum_length=MAX_TEXT_LENGTH, empty=True)
 
     @property
     def load_coupling(self) -> str:
@@ -217,8 +221,8 @@ class Plan:
 
     @load_coupling.setter
     def load_coupling(self, value: str):
-        if value not in COUPLINGS:
-            raise UnknownModelError(f"Plan.load_coupling must be one of {', '.join(COUPLINGS)}, got {value!r}")
+        if not isinstance(value, str) or value not in COUPLINGS:
+            raise UnknownModelError(f"Plan.load_coupling must be one of {', '.join(COUPLINGS)}, got {shown(value)}")
         self._load_coupling = value
 
     # -- stages -------------------------------------------------------------------------------

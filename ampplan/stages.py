@@ -22,7 +22,7 @@ from .circuit import (GROUND, RESISTANCE_RANGE, VALUE_BOUNDS, Bjt, Capacitor, Ci
                       VoltageSource)
 from .devices import Transistor
 from .errors import InvalidValueError, UnknownNameError
-from .validation import bounds_text, check_number, check_text
+from .validation import bounds_text, check_number, check_text, shown
 
 __all__ = ["Parameter", "Stage", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage",
            "StageNodes", "Rails", "TEMPLATES", "SUPPLY_NODE", "LOWER_NODE"]
@@ -138,9 +138,9 @@ class Stage:
     def unit(self, name: str) -> str:
         """SI unit symbol of parameter ``name`` (``"Ω"``, ``"F"``), from its declaration."""
         for p in self.PARAMETERS:
-            if p.name == name:
+            if isinstance(name, str) and p.name == name:
                 return p.unit
-        raise UnknownNameError(f"{type(self).__name__} has no parameter {name!r}; "
+        raise UnknownNameError(f"{type(self).__name__} has no parameter {shown(name)}; "
                                f"it has {', '.join(p.name for p in self.PARAMETERS)}")
 
     def replace(self, **changes) -> "Stage":

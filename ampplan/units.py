@@ -12,10 +12,14 @@ from quantiphy import InvalidNumber, Quantity
 
 from .errors import InvalidValueError
 
-__all__ = ["parse_quantity", "format_quantity"]
+__all__ = ["parse_quantity", "format_quantity", "MAX_QUANTITY_LENGTH"]
 
 # Plain-ASCII spellings accepted for unit symbols.
 _ASCII_UNITS = {"Ω": "Ohm", "°C": "C"}
+#: Longest text read as a quantity: a float needs at most 17 significant digits, an exponent, a
+#: prefix and a unit, so 40 characters are room to spare; longer text is refused before parsing
+#: (the parser's time grows with the length, to minutes for 20,000 digits).
+MAX_QUANTITY_LENGTH = 40
 
 
 def parse_quantity(text, unit: str = "") -> float:
@@ -27,6 +31,11 @@ def parse_quantity(text, unit: str = "") -> float:
     """
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         return float(text)
+    if not isinstance(text, str):
+        raise InvalidValueError(f"cannot read a {type(text).__name__} as a quantity; give text such as '4.7k'")
+    if len(text.strip()) > MAX_QUANTITY_LENGTH:
+        raise InvalidValueError(f"cannot read {text.strip()[:20]!r}... as a quantity: {len(text.strip())} characters, "
+                                f"more than the {MAX_QUANTITY_LENGTH} a number needs")
     try:
         quantity = Quantity(str(text).strip())
     except (InvalidNumber, ValueError) as exc:
@@ -50,7 +59,10 @@ def format_quantity(value: float, unit: str = "", digits: int = 4) -> str:
         return "—"
     if isinstance(value, str):
         return value
-    value = float(value)
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        raise InvalidValueError(f"format_quantity expects a number, got {type(value).__name__}") from None
     if math.isnan(value):
         return "—"
     if math.isinf(value):

@@ -12,6 +12,7 @@ from ..devices import Transistor
 from ..errors import AmpplanError, InvalidValueError, PlanFileError
 from ..plan import PLAN_PARAMETERS, Plan
 from ..stages import TEMPLATES, CustomStage
+from ..validation import MAX_TEXT_LENGTH, check_text
 from .messages import problems_text
 from .schema import ELEMENT_TYPES, FORMAT, INFINITY, VERSION, field_kinds, validate_plan_dict
 
@@ -81,8 +82,9 @@ def plan_to_dict(plan: Plan, description: str | None = None) -> dict:
         raise InvalidValueError(f"plan_to_dict expects an ampplan Plan, got {type(plan).__name__}")
     out = {"format": FORMAT, "version": VERSION}
     description = plan.description if description is None else description
+    check_text(description, "description", maximum_length=MAX_TEXT_LENGTH, empty=True)
     if description:
-        out["description"] = str(description)
+        out["description"] = description
     for name in PLAN_PARAMETERS:
         out[name] = _out(getattr(plan, name))
     out["load_coupling"] = plan.load_coupling

@@ -46,7 +46,10 @@ def shown(value) -> str:
         return "a list"
     if isinstance(value, float) and value.is_integer() and abs(value) < 1e16:
         return str(int(value))
-    text = json.dumps(value, ensure_ascii=False)
+    try:
+        text = json.dumps(value, ensure_ascii=False)
+    except (TypeError, ValueError):  # not a JSON value at all (given to plan_from_dict by a caller)
+        text = f"a {type(value).__name__}"
     return text if len(text) <= 60 else text[:57] + "..."
 
 

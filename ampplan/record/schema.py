@@ -22,12 +22,13 @@ from ..devices import PARAMETER_BOUNDS as DEVICE_BOUNDS
 from ..devices import PARAMETER_MAXIMA as DEVICE_MAXIMA
 from ..devices import FIELDS as DEVICE_FIELDS
 from ..errors import PlanFileError
-from ..plan import COUPLINGS, MAX_STAGE_ID_LENGTH, PLAN_PARAMETERS
+from ..plan import COUPLINGS, MAX_STAGE_ID_LENGTH, MAX_STAGES, PLAN_PARAMETERS
+from ..validation import MAX_NAME_LENGTH, MAX_TEXT_LENGTH, unencodable
 from ..stages import TEMPLATES, CustomStage
 from .messages import messages_for, problems_text, shown
 
 __all__ = ["FORMAT", "VERSION", "INFINITY", "ELEMENT_TYPES", "PLAN_SCHEMA", "PLAN_SCHEMAS", "field_kinds",
-           "validate_plan_dict"]
+           "validate_plan_dict", "LongNumber", "MAX_LIST_LENGTH", "MAX_NUMBER_LENGTH"]
 
 #: Value of the ``format`` field of every plan file.
 FORMAT = "ampplan-plan"
@@ -193,6 +194,55 @@ PLAN_SCHEMA: dict = PLAN_SCHEMAS[VERSION]
 _VALIDATORS = {version: jsonschema.Draft202012Validator(schema) for version, schema in PLAN_SCHEMAS.items()}
 
 
+#: Longest list a plan file may hold anywhere but ``stages``: a custom stage's elements (a stage
+#: is a handful of parts; hundreds are room to spare).
+MAX_LIST_LENGTH = 500
+#: Most characters a number may be written with: a float needs at most 17 significant digits
+#: and an exponent, so 40 is room to spare; longer ones are refused before they are converted
+#: (Python's int() takes time quadratic in the digits and refuses beyond 4300 of them).
+MAX_NUMBER_LENGTH = 40
+
+
+class LongNumber(str):
+    """A number too long to convert, kept as its text by the parser so that its path can be named."""
+
+
+def _early_problems(value, path=()):
+    """(path, message) for what must be refused before the schema looks at it.
+
+    Long lists, long text and long numbers, so that a file of 100,000 stages or a 5,000-digit
+    integer is refused at once (and by its JSON path) instead of after a long validation; and text
+    UTF-8 cannot encode (a JSON escape such as ``"\\ud800"`` gives a lone surrogate, which no file
+    or terminal can hold), so that no later message repeats it. Does not descend into a list that
+    is too long.
+    """
+    if isinstance(value, LongNumber):
+        yield path, (f"a number written with {len(value)} characters; a plan file's numbers have at most "
+                     f"{MAX_NUMBER_LENGTH}")
+    elif isinstance(value, str):
+        limit = MAX_TEXT_LENGTH if path == ("description",) else MAX_NAME_LENGTH
+        if len(value) > limit:
+            yield path, f"text of {len(value)} characters; at most {limit} are allowed here"
+        elif unencodable(value) is not None:
+            yield path, _unencodable_text("text", value)
+    elif isinstance(value, dict):
+        for key, item in value.items():
+            if len(key) > MAX_NAME_LENGTH:
+                yield path, f"a key of {len(key)} characters; keys have at most {MAX_NAME_LENGTH}"
+            elif unencodable(key) is not None:
+                yield path, _unencodable_text("a key", key)
+            else:
+                yield from _early_problems(item, path + (key,))
+    elif isinstance(value, list):
+        limit = MAX_STAGES if path == ("stages",) else MAX_LIST_LENGTH
+        if len(value) > limit:
+            what = "stages" if path == ("stages",) else "items"
+            yield path, f"{len(value)} {what}; a plan file holds at most {limit} here"
+            return
+        for k, item in enumerate(value):
+            yield from _early_problems(item, path + (k,))
+
+
 def _walk_numbers(value, path=()):
     """(path, message) for duplicate keys and numbers that are not finite floats.
 
@@ -214,6 +264,14 @@ def _walk_numbers(value, path=()):
             finite = False
         if not finite:
             yield path, "number too large (beyond the ±1.8e308 range of a float)"
+
+
+def _unencodable_text(what: str, text: str) -> str:
+    bad = unencodable(text)
+    escaped = text.encode("utf-8", "backslashreplace").decode("ascii", "backslashreplace")
+    shown_text = escaped if len(escaped) <= 40 else escaped[:37] + "..."
+    return (f"{what} holding a character that cannot be written as UTF-8 (U+{ord(text[bad]):04X}, a lone "
+            f"surrogate, at position {bad}): \"{shown_text}\"")
 
 
 def _check_header(data, source: str) -> None:
@@ -249,6 +307,9 @@ def validate_plan_dict(data, source: str = "<plan>") -> None:
         Naming ``source`` and the JSON path of every bad value (the first :data:`~.messages.MAX_PROBLEMS`).
     """
     _check_header(data, source)
+    problems = list(_early_problems(data))
+    if problems:  # too big, or unprintable: not validated further
+        raise PlanFileError(problems_text(source, problems, data))
     try:
         problems = list(_walk_numbers(data))
         for error in _VALIDATORS[data["version"]].iter_errors(data):

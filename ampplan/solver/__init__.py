@@ -15,6 +15,7 @@ from typing import Literal, get_args
 import numpy as np
 
 from ..circuit import Circuit
+from ..validation import shown
 from ..errors import (ConvergenceError, InvalidValueError, NoConsistentRegionError, UnknownModelError,
                       UnknownNameError)
 from . import constant_drop as cd
@@ -71,10 +72,12 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
     NoConsistentRegionError, ConvergenceError
         A single solve that fails (a batch records a status instead).
     """
-    if model not in MODELS:
-        raise UnknownModelError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
-    if active_edge not in ACTIVE_EDGES:
-        raise UnknownModelError(f"unknown active_edge {active_edge!r}; choose one of {', '.join(ACTIVE_EDGES)}")
+    if not isinstance(model, str) or model not in MODELS:
+        raise UnknownModelError(f"unknown model {shown(model)}; choose one of {', '.join(MODELS)}")
+    if not isinstance(active_edge, str) or active_edge not in ACTIVE_EDGES:
+        raise UnknownModelError(f"unknown active_edge {shown(active_edge)}; choose one of {', '.join(ACTIVE_EDGES)}")
+    if not isinstance(warm_start, (bool, np.bool_)):
+        raise InvalidValueError(f"warm_start must be True or False, got {shown(warm_start)}")
     if not isinstance(circuit, Circuit):
         raise InvalidValueError(f"solve expects an ampplan Circuit, got {type(circuit).__name__}")
     if not circuit.elements:
@@ -93,7 +96,7 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
             raise UnknownNameError("assume must name every transistor exactly once"
                                    + (f"; missing {', '.join(missing)}" if missing else "")
                                    + (f"; no transistor named {', '.join(extra)}" if extra else ""))
-        bad = {n: r for n, r in assume.items() if r not in REGIONS}
+        bad = {n: r for n, r in assume.items() if not isinstance(r, str) or r not in REGIONS}
         if bad:
             raise UnknownModelError(f"assume: unknown region(s) {bad}; regions are {', '.join(REGIONS)}")
     params = layout.parameters(temperature=temperature, batch=batch)
