@@ -34,6 +34,7 @@ test: $(VENV)/.stamp-test $(SERVER_CONFIG)
 bench: $(VENV)/.stamp-test $(SERVER_CONFIG)
 	$(BIN)/python tests/benchmarks/bench_solver.py
 	$(BIN)/python tests/benchmarks/bench_browser.py
+	$(BIN)/python tests/benchmarks/bench_plan.py
 
 # JupyterLab listens on this machine only; root (a container, say) needs --allow-root.
 ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)

@@ -10,17 +10,21 @@ import copy
 import math
 import numbers
 import re
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import Literal, get_args
 
-from .circuit import GROUND, RESISTANCE_RANGE, VOLTAGE_LIMIT, Circuit, did_you_mean
-from .devices import ABSOLUTE_ZERO, DEVICE_UNITS
+import numpy as np
+
+from .circuit import GROUND, RESISTANCE_RANGE, VALUE_BOUNDS, VOLTAGE_LIMIT, Bjt, Circuit, Resistor, did_you_mean
+from .devices import ABSOLUTE_ZERO, DEVICE_UNITS, MAY_BE_INFINITE, PARAMETER_BOUNDS, PARAMETER_MAXIMA
 from .devices import FIELDS as DEVICE_FIELDS
+from .devices import PARAMETERS as DEVICE_PARAMETERS
 from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
 from .stages import Parameter, Rails, Stage, StageNodes
-from .validation import MAX_TEXT_LENGTH, check_text, shown
+from .validation import MAX_TEXT_LENGTH, check_samples, check_text, shown
 
-__all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PLAN_PARAMETERS"]
+__all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PlanAddress", "PLAN_PARAMETERS"]
 
 Coupling = Literal["capacitor", "direct"]
 COUPLINGS: tuple[str, ...] = get_args(Coupling)
@@ -125,6 +129,37 @@ def check_stage_id(sid, taken=()) -> str:
 
 
 @dataclass(frozen=True)
+class PlanAddress:
+    """Where a plan address lands in the compiled circuit.
+
+    Attributes
+    ----------
+    address : str
+        The plan address (``"s1.rc"``, ``"s2.device.beta"``, ``"supply"``, ``"temperature"``).
+    element : str or None
+        The circuit element holding the value (``"s1_rc"``; the transistor ``"s2_q"`` for a
+        device parameter); None for a value that is not an element's (temperature, the
+        analysis values ``min_headroom`` and ``resistor_power_rating``).
+    key : str or None
+        The key that varies it in a circuit batch (``"s1_rc"``, ``"s2_q.beta"``,
+        ``"temperature"``); None for a value the analyses read themselves.
+    unit : str
+    bounds : dict
+        The bounds a batch value is checked against (those of the value's own declaration), as
+        keyword arguments of :func:`ampplan.validation.check_samples`.
+    """
+    address: str
+    element: str | None
+    key: str | None
+    unit: str
+    bounds: dict = field(default_factory=dict, repr=False, compare=False)
+
+
+#: Plan values the analyses read themselves (no circuit element): a batch varies them per sample.
+ANALYSIS_VALUES = ("min_headroom", "resistor_power_rating")
+
+
+@dataclass(frozen=True)
 class CompiledPlan:
     """The circuit a plan compiles to and where each stage landed in it.
 
@@ -141,12 +176,96 @@ class CompiledPlan:
         Position of each element along the chain: 0 for the source side, k for stage k, k - 0.5
         for the coupling capacitor into stage k, n + 0.5 and n + 1 for the load coupling and load.
         Rails have no owner.
+    stage_ids, kinds : tuple of str
+        Each stage's id and template kind, in order.
+    transistor_stage : dict of str -> str
+        Stage id of every transistor of the circuit.
+    supplies : tuple of str
+        The rail sources (the positive supply first).
+    plan_resistors : tuple of str
+        The plan's own resistors (source and load), those it has.
+    temperature, supply, negative_supply, min_headroom, resistor_power_rating : float
+        The plan values the analyses read (degrees Celsius, volts, volts, volts, watts).
+    addresses : dict of str -> PlanAddress
+        Every plan address a batch can vary, with its element and batch key
+        (see :meth:`batch_keys`).
+    cache : dict
+        Work the analyses keep with the compiled circuit (its incremental equations).
     """
     circuit: Circuit
     stages: tuple
     source: str
     load_node: str
     owner: dict
+    stage_ids: tuple = ()
+    kinds: tuple = ()
+    transistor_stage: dict = field(default_factory=dict)
+    supplies: tuple = (SUPPLY,)
+    plan_resistors: tuple = ()
+    temperature: float = 25.0
+    supply: float = 12.0
+    negative_supply: float = 0.0
+    min_headroom: float = 1.0
+    resistor_power_rating: float = 0.25
+    addresses: dict = field(default_factory=dict)
+    cache: dict = field(default_factory=dict, compare=False, repr=False)
+
+    def batch_keys(self, batch) -> tuple[dict, dict]:
+        """Split a batch of plan addresses into a circuit batch and the analysis values.
+
+        Parameters
+        ----------
+        batch : dict of str -> array_like of shape (S,)
+            Plan addresses (keys of :attr:`addresses`) to values, validated against the address's
+            own declaration (bounds, unit).
+
+        Returns
+        -------
+        circuit_batch : dict of str -> ndarray
+            Batch keys of :func:`ampplan.solver.solve`.
+        plan_values : dict of str -> ndarray
+            ``"min_headroom"`` / ``"resistor_power_rating"`` when varied.
+
+        Raises
+        ------
+        InvalidValueError
+            ``batch`` is not a mapping; an address that holds no number or would change the
+            circuit's topology (a coupling, a part that is not fitted); a bad value (naming the
+            address and the first bad sample); arrays of different lengths or empty ones.
+        UnknownNameError
+            An address the plan does not have.
+        """
+        if not isinstance(batch, Mapping):
+            raise InvalidValueError(f"batch must be a dict of plan address -> values, got {type(batch).__name__}")
+        circuit_batch, plan_values, sizes = {}, {}, {}
+        for address, value in batch.items():
+            where = self.addresses.get(address) if isinstance(address, str) else None
+            if where is None:
+                raise self._not_batchable(address)
+            checked = check_samples(value, address, **where.bounds)
+            if np.ndim(checked):
+                sizes[address] = checked.shape[0]
+            if where.key is None:
+                plan_values[address] = checked
+            else:
+                circuit_batch[where.key] = checked
+        if len(set(sizes.values())) > 1:
+            raise InvalidValueError("batch arrays differ in length: " + ", ".join(f"{k}: {n}" for k, n in sizes.items()))
+        if any(n == 0 for n in sizes.values()):
+            raise InvalidValueError("batch arrays are empty")
+        return circuit_batch, plan_values
+
+    def _not_batchable(self, address):
+        if not isinstance(address, str):
+            return InvalidValueError(f"batch keys are plan addresses such as 's1.rc', got {address!r}")
+        head, _, rest = address.partition(".")
+        if head in PLAN_PARAMETERS or head in _PLAN_WORDS or (head in self.stage_ids and rest):
+            return InvalidValueError(
+                f"batch[{address!r}]: {address} cannot vary in a batch (it holds no number, or changing it "
+                "changes the circuit: a coupling, a part that is not fitted, a capacitor value); "
+                "set it on the plan instead")
+        return UnknownNameError(f"batch[{address!r}]: the plan has no address {address!r}"
+                                + did_you_mean(address, self.addresses))
 
 
 class Plan:
@@ -440,9 +559,10 @@ class Plan:
             c.resistor(SOURCE_RESISTOR, EMF_NODE, SOURCE_NODE, self.source_resistance)
             owner[SOURCE_RESISTOR] = 0.0
             previous = SOURCE_NODE
-        nodes = []
+        nodes, sids = [], []
         for k, entry in enumerate(self._entries, start=1):
             sid = entry.id
+            sids.append(sid)
             if entry.coupling == "capacitor":
                 input_node = f"{sid}_in"
                 c.capacitor(f"{sid}_coupling", previous, input_node, self.coupling_capacitance)
@@ -466,17 +586,43 @@ class Plan:
                 load_node = LOAD_NODE
             c.resistor(LOAD_RESISTOR, load_node, GROUND, self.load_resistance)
             owner[LOAD_RESISTOR] = n + 1.0
-        return CompiledPlan(circuit=c, stages=tuple(nodes), source=SOURCE, load_node=load_node, owner=owner)
+        ids = tuple(sids)
+        have = {e.name for e in c.elements}
+        transistor_stage = {name: ids[int(round(tag)) - 1] for name, tag in owner.items()
+                            if isinstance(c.element(name), Bjt) and 1 <= round(tag) <= n}
+        return CompiledPlan(
+            circuit=c, stages=tuple(nodes), source=SOURCE, load_node=load_node, owner=owner, stage_ids=ids,
+            kinds=tuple(e.stage.kind for e in self._entries), transistor_stage=transistor_stage,
+            supplies=tuple(name for name in (SUPPLY, NEGATIVE_SUPPLY) if name in have),
+            plan_resistors=tuple(name for name in (SOURCE_RESISTOR, LOAD_RESISTOR) if name in have),
+            temperature=self.temperature, supply=self.supply, negative_supply=self.negative_supply,
+            min_headroom=self.min_headroom, resistor_power_rating=self.resistor_power_rating,
+            addresses=_addresses(c, ids, [e.stage for e in self._entries], nodes))
 
-    def solve(self, model: str = "constant-drop", active_edge: str = "vce-sat"):
+    def solve(self, model: str = "constant-drop", active_edge: str = "vce-sat", batch: dict | None = None):
         """Solve the plan: bias, midband small-signal, load lines, swing, dissipation, cautions.
+
+        Parameters
+        ----------
+        model : {"constant-drop", "ebers-moll"}
+        active_edge : {"vce-sat", "vcb-zero"}
+            Constant-drop model only: where forward-active meets saturation.
+        batch : dict of str -> array_like of shape (S,), optional
+            Plan addresses to values per sample: ``{"s1.rc": [...], "s2.device.beta": [...],
+            "supply": [...], "temperature": [...]}`` (scalars broadcast). The addresses a batch can
+            vary are those of ``plan.compile().addresses``: numbers held by a circuit element, a
+            transistor parameter, the temperature, ``min_headroom`` and ``resistor_power_rating``;
+            not a coupling, a part that is not fitted or a capacitor value (those change the
+            circuit, or nothing DC).
 
         Returns
         -------
         ampplan.analyses.PlanResult
+            Floats for a single solve; for a batch, every figure an array of shape (S,) and a
+            ``status`` per sample (a failed sample gets NaN figures, the others are unaffected).
         """
         from .analyses.chain import analyse_plan
-        return analyse_plan(self, model=model, active_edge=active_edge)
+        return analyse_plan(self, model=model, active_edge=active_edge, batch=batch)
 
     # -- files --------------------------------------------------------------------------------
     def save(self, path) -> None:
@@ -495,6 +641,47 @@ class Plan:
                          for sid, e in zip(self.stage_ids, self._entries))
         return (f"Plan(supply={self.supply:g} V, negative_supply={self.negative_supply:g} V, "
                 f"{len(self._entries)} stage(s): {body})")
+
+
+def _addresses(circuit: Circuit, ids, stages, built) -> dict:
+    """Every plan address a batch can vary: its element, batch key, unit and bounds."""
+    out = {}
+    have = {e.name for e in circuit.elements}
+
+    def add(address, element, key, unit, **bounds):
+        out[address] = PlanAddress(address, element, key, unit, dict(bounds, unit=unit))
+
+    resistor = VALUE_BOUNDS[Resistor]
+    for name in (SUPPLY, NEGATIVE_SUPPLY):
+        if name in have:
+            p = PLAN_PARAMETERS[name]
+            add(name, name, name, p.unit, minimum=p.minimum, maximum=p.maximum, minimum_inclusive=p.minimum_inclusive)
+    for name in (SOURCE_RESISTOR, LOAD_RESISTOR):
+        if name in have:
+            add(name, name, name, **resistor)
+    p = PLAN_PARAMETERS["temperature"]
+    add("temperature", None, "temperature", p.unit, minimum=p.minimum)
+    for name in ANALYSIS_VALUES:
+        p = PLAN_PARAMETERS[name]
+        add(name, None, None, p.unit, minimum=p.minimum, maximum=p.maximum, minimum_inclusive=p.minimum_inclusive)
+    for sid, stage, nodes in zip(ids, stages, built):
+        declared = {p.name: p for p in stage.PARAMETERS}
+        for pname in stage.parameters():
+            element = f"{sid}_{pname}"
+            if element not in have or isinstance(circuit.element(element), Bjt):
+                continue        # not fitted (None) or not an element's value
+            kind = type(circuit.element(element))
+            bounds = dict(VALUE_BOUNDS[kind])
+            if pname in declared:
+                d = declared[pname]
+                bounds.update(minimum=d.minimum, maximum=d.maximum, minimum_inclusive=d.minimum_inclusive, unit=d.unit)
+            add(f"{sid}.{pname}", element, element, **bounds)
+        for pname in DEVICE_PARAMETERS:
+            low, inclusive = PARAMETER_BOUNDS.get(pname, (-math.inf, False))
+            add(f"{sid}.device.{pname}", nodes.transistor, f"{nodes.transistor}.{pname}", DEVICE_UNITS[pname],
+                minimum=low, minimum_inclusive=inclusive, maximum=PARAMETER_MAXIMA.get(pname, math.inf),
+                may_be_infinite=pname in MAY_BE_INFINITE)
+    return out
 
 
 def _plan_value(name: str) -> property:

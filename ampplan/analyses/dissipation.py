@@ -12,10 +12,13 @@ Ratings and thresholds (each a plain parameter, common practice, no source):
 
 from __future__ import annotations
 
+import numpy as np
+
 from ..devices import REFERENCE_TEMPERATURE
 from ..units import format_quantity as fq
 
-__all__ = ["derated_power", "transistor_cautions", "resistor_cautions", "supply_cautions",
+__all__ = ["derated_power", "derated_powers", "transistor_cautions", "resistor_cautions", "supply_cautions",
+           "transistor_flags", "BatchCautions",
            "JUNCTION_LIMIT", "SAFETY_EXTRA_LOW_VOLTAGE_DC"]
 
 #: Junction temperature (°C) at which the derated power reaches zero.
@@ -124,3 +127,87 @@ def supply_cautions(supply: float, negative_supply: float) -> list[str]:
                 "(IEC 61140 usage): touchable parts can be hazardous. Follow local electrical codes and "
                 "have the build checked under licensed practice."]
     return []
+
+
+def derated_powers(max_power, temperature):
+    """:func:`derated_power` for arrays (NaN ratings stay NaN), watts."""
+    max_power = np.asarray(max_power, dtype=float)
+    t = np.asarray(temperature, dtype=float)
+    return np.where(t <= REFERENCE_TEMPERATURE, max_power,
+                    np.maximum(0.0, max_power * (JUNCTION_LIMIT - t) / (JUNCTION_LIMIT - REFERENCE_TEMPERATURE)))
+
+
+def transistor_flags(key: str, region, frame_vce, edge, headroom, power, ic, vce, device: dict, temperature) -> dict:
+    """Which of :func:`transistor_cautions`' sentences fire, per sample, as boolean arrays.
+
+    Parameters
+    ----------
+    key : str
+        Prefix of the flag names (``"s1"``, or ``"s1.s1_q2"`` for a custom stage's other transistor).
+    region : ndarray of str, shape (S,)
+    frame_vce, edge : ndarray, shape (S,)
+        V_CE in the transistor's frame and the forward-active edge, volts.
+    headroom : ndarray of shape (S,), or None
+        Volts asked for above the edge; None skips the check.
+    power, ic, vce : ndarray, shape (S,)
+        Watts, amperes (textbook sign), volts (signed).
+    device : dict of str -> ndarray (S,)
+        ``max_power``, ``max_collector_current``, ``max_vce`` at 25 °C (NaN: no rating).
+    temperature : ndarray, shape (S,)
+
+    Returns
+    -------
+    dict of str -> ndarray of bool
+        ``"<key>.region"``, ``"<key>.headroom"``, ``"<key>.power"``, ``"<key>.collector_current"``, ``"<key>.vce"``.
+    """
+    solved = region != "unsolved"
+    with np.errstate(invalid="ignore"):
+        out = {f"{key}.region": solved & (region != "forward-active")}
+        if headroom is not None:
+            out[f"{key}.headroom"] = (region == "forward-active") & (frame_vce - edge < headroom)
+        out[f"{key}.power"] = power > derated_powers(device["max_power"], temperature)
+        out[f"{key}.collector_current"] = np.abs(ic) > device["max_collector_current"]
+        out[f"{key}.vce"] = np.abs(vce) > device["max_vce"]
+    return out
+
+
+class BatchCautions:
+    """The cautions of a batch: which fire in each sample (vectorised flags) and, on demand, the
+    sentences of one sample (the same as a single solve of that sample gives).
+
+    Attributes
+    ----------
+    flags : dict of str -> ndarray of bool, shape (S,)
+        One flag per caution that can fire (``"s1.region"``, ``"s1.headroom"``, ``"s1.rc.power"``,
+        ``"load_resistance.power"``, ``"supply.safety"`` ...).
+    """
+
+    def __init__(self, flags: dict, size: int, render):
+        self.flags = dict(flags)
+        self._size = size
+        self._render = render
+
+    @property
+    def any(self) -> np.ndarray:
+        """True where at least one caution fires, shape (S,)."""
+        out = np.zeros(self._size, dtype=bool)
+        for flag in self.flags.values():
+            out |= flag
+        return out
+
+    def __len__(self) -> int:
+        return self._size
+
+    def __getitem__(self, i: int) -> tuple:
+        """The sentences of sample ``i``."""
+        if not -self._size <= i < self._size:
+            raise IndexError(f"sample {i} is out of range for a batch of {self._size}")
+        return self._render(int(i) % self._size)
+
+    def __iter__(self):
+        return (self[i] for i in range(self._size))
+
+    def __repr__(self) -> str:
+        fired = {k: int(v.sum()) for k, v in self.flags.items() if v.any()}
+        body = ", ".join(f"{k}: {n}" for k, n in fired.items()) or "none"
+        return f"BatchCautions({self._size} samples; samples per caution: {body})"

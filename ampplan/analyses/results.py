@@ -6,6 +6,8 @@ import html
 import math
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from ..devices import REFERENCE_TEMPERATURE
 from ..errors import UnknownNameError
 from .addresses import read_result
@@ -19,6 +21,16 @@ def _gain(value) -> str:
     if value is None or not math.isfinite(value):
         return _fmt(value)
     return "0" if value == 0 else f"{value:.4g}"
+
+
+#: Shown for a small-signal figure of a stage that is not forward-active.
+NOT_APPLICABLE = "n/a"
+
+
+def _small_signal(stage, text: str) -> str:
+    """``text``, or "n/a" where the stage's transistor is not forward-active (its small-signal
+    figures describe no amplifier)."""
+    return text if stage.transistor.region == "forward-active" else NOT_APPLICABLE
 
 
 def _html_table(rows, head=None) -> str:
@@ -314,6 +326,13 @@ class PlanResult:
         Watts in the plan's own resistors, by element name (``"source_resistance"``,
         ``"load_resistance"``; only those the plan has). The stages' resistors are on each
         :attr:`StageResult.resistor_power`.
+    status : str or ndarray of str
+        ``"ok"``, or per sample of a batch the solver's status (a failed sample has NaN figures).
+
+    A batch (``plan.solve(batch=...)``) gives the same fields as arrays of shape (S,) over the
+    samples (stage ids and regions as arrays of str, ``None`` where nothing clips), and the
+    cautions as a :class:`~ampplan.analyses.dissipation.BatchCautions` (flags per sample, the
+    sentences of one sample on demand).
     """
     model: str
     stages: tuple
@@ -330,10 +349,18 @@ class PlanResult:
     operating_point: object = field(repr=False, compare=False, default=None)
     temperature: float = REFERENCE_TEMPERATURE
     resistor_power: dict = field(default_factory=dict)
+    status: object = "ok"
 
     @property
-    def all_forward_active(self) -> bool:
-        return all(s.transistor.region == "forward-active" for s in self.stages)
+    def batch_size(self) -> int | None:
+        """Number of samples of a batch; None for a single solve."""
+        return None if np.ndim(self.gain) == 0 else int(np.shape(self.gain)[0])
+
+    @property
+    def all_forward_active(self):
+        """Every stage forward-active (a bool array over the samples of a batch)."""
+        out = np.all([np.asarray(s.transistor.region) == "forward-active" for s in self.stages], axis=0)
+        return bool(out) if self.batch_size is None else out
 
     def __getitem__(self, address: str):
         """The figure at a result address (``"s1.vce"``, ``"gain"``; see :mod:`.addresses`)."""
@@ -357,7 +384,8 @@ class PlanResult:
             flag = "!" if (t.region != "forward-active" or s.cautions) else " "
             rows.append((f"{flag}{s.id}", s.kind, t.region, _fmt(t.ic, "A"), _fmt(t.vce, "V"),
                          _fmt(s.saturation_margin, "V"), _fmt(s.cutoff_margin, "A"), _fmt(s.swing.peak, "V"),
-                         _gain(s.gain), _fmt(s.input_resistance, "Ω"), _fmt(s.output_resistance, "Ω")))
+                         _small_signal(s, _gain(s.gain)), _small_signal(s, _fmt(s.input_resistance, "Ω")),
+                         _small_signal(s, _fmt(s.output_resistance, "Ω"))))
         widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
         right = set(range(3, len(widths)))
 
@@ -372,25 +400,59 @@ class PlanResult:
 
     def summary(self) -> str:
         """The chain figures, one per line."""
+        if self.batch_size is not None:
+            return self._batch_summary()
         gain = self.gain
         decibels = f" ({20 * math.log10(abs(gain)):.1f} dB)" if gain and math.isfinite(gain) else ""
-        if self.limiting_stage:
+        out = [s for s in self.stages if s.transistor.region != "forward-active"]
+        estimate = f"{_fmt(self.max_source_amplitude_estimate, 'V')} peak"
+        if out:
+            # A stage already out of forward-active passes no signal unclipped: both figures say so.
+            gain_text = f"{NOT_APPLICABLE} ({', '.join(s.id for s in out)} not forward-active)"
+            amplitude = (f"0 V: {out[0].id} is already in {out[0].transistor.region}, "
+                         "so no signal passes unclipped")
+            estimate = "0 V (likewise, from the load lines)"
+        elif self.limiting_stage:
+            gain_text = f"{_gain(gain)} V/V{decibels}"
             amplitude = f"{_fmt(self.max_source_amplitude, 'V')} peak, limited by {self.limiting_stage}"
         else:
+            gain_text = f"{_gain(gain)} V/V{decibels}"
             amplitude = f"{_fmt(self.max_source_amplitude, 'V')} (no stage clips)"
+        first, last = self.stages[0], self.stages[-1]
         figures = [
-            ("gain (load / source EMF)", f"{_gain(gain)} V/V{decibels}"),
-            ("input resistance", _fmt(self.input_resistance, "Ω")),
-            ("output resistance", _fmt(self.output_resistance, "Ω")),
+            ("gain (load / source EMF)", gain_text),
+            ("input resistance", _small_signal(first, _fmt(self.input_resistance, "Ω"))),
+            ("output resistance", _small_signal(last, _fmt(self.output_resistance, "Ω"))),
             ("largest source amplitude", amplitude),
-            ("  load-line estimate", f"{_fmt(self.max_source_amplitude_estimate, 'V')} peak"),
+            ("  load-line estimate", estimate),
             ("supply current", _fmt(self.supply_current, "A")),
             ("supply power", _fmt(self.supply_power, "W")),
         ]
         width = max(len(name) for name, _ in figures)
         return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
 
+    def _batch_summary(self) -> str:
+        """The chain figures of a batch: each as its range over the samples."""
+        status = np.asarray(self.status)
+        figures = [
+            ("samples", f"{status.size} ({int(np.sum(status == 'ok'))} solved, "
+                        f"{int(np.sum(self.all_forward_active))} all forward-active)"),
+            ("gain (load / source EMF)", f"{_fmt(self.gain)} V/V"),
+            ("input resistance", _fmt(self.input_resistance, "Ω")),
+            ("output resistance", _fmt(self.output_resistance, "Ω")),
+            ("largest source amplitude", _fmt(self.max_source_amplitude, "V")),
+            ("  limited by", _fmt(np.asarray([str(s) for s in self.limiting_stage]))),
+            ("supply current", _fmt(self.supply_current, "A")),
+            ("supply power", _fmt(self.supply_power, "W")),
+            ("samples with cautions", str(int(np.sum(self.cautions.any)))),
+        ]
+        width = max(len(name) for name, _ in figures)
+        return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
+
     def __repr__(self) -> str:
+        if self.batch_size is not None:
+            return (f"PlanResult({self.model}, batch of {self.batch_size}, {len(self.stages)} stage(s))\n"
+                    + self.summary())
         out = [f"PlanResult({self.model}, {len(self.stages)} stage(s), "
                f"{'all forward-active' if self.all_forward_active else 'NOT all forward-active'})",
                self.table(), "chain", self.summary(), "cautions"]
@@ -404,8 +466,8 @@ class PlanResult:
         for s in self.stages:
             t = s.transistor
             cells = (s.id, s.kind, t.region, _fmt(t.ic, "A"), _fmt(t.vce, "V"), _fmt(s.saturation_margin, "V"),
-                     _fmt(s.swing.peak, "V"), _gain(s.gain), _fmt(s.input_resistance, "Ω"),
-                     _fmt(s.output_resistance, "Ω"))
+                     _fmt(s.swing.peak, "V"), _small_signal(s, _gain(s.gain)),
+                     _small_signal(s, _fmt(s.input_resistance, "Ω")), _small_signal(s, _fmt(s.output_resistance, "Ω")))
             style = "" if t.region == "forward-active" else " style='font-weight:bold'"
             rows.append(f"<tr{style}>" + "".join(f"<td>{e(c)}</td>" for c in cells) + "</tr>")
         cautions = "".join(f"<li>{e(c)}</li>" for c in self.cautions)
