@@ -14,6 +14,16 @@ from .errors import InvalidValueError
 
 __all__ = ["parse_quantity", "format_quantity", "MAX_QUANTITY_LENGTH"]
 
+
+class _Shown(Quantity):
+    """quantiphy with ampplan's display preferences, kept on a subclass so that other users of
+    quantiphy in the same process are untouched: the micro sign µ (not an ASCII u), and prefixes
+    from tera down to femto only, so that anything smaller prints in one style (``3.4e-21 A``)
+    instead of a mix of rare prefixes (atto, zepto) and e-notation."""
+
+
+_Shown.set_prefs(map_sf=Quantity.map_sf_to_greek, output_sf="TGMkmunpf")
+
 # Plain-ASCII spellings accepted for unit symbols.
 _ASCII_UNITS = {"Ω": "Ohm", "°C": "C"}
 #: Longest text read as a quantity: a float needs at most 17 significant digits, an exponent, a
@@ -69,4 +79,4 @@ def format_quantity(value: float, unit: str = "", digits: int = 4) -> str:
         return (("-" if value < 0 else "") + "∞ " + unit).strip()
     if value == 0:
         return f"0 {unit}".strip()
-    return Quantity(value, unit or None).render(prec=digits - 1, strip_zeros=True)
+    return _Shown(value, unit or None).render(prec=digits - 1, strip_zeros=True)
