@@ -109,15 +109,29 @@ def solve(circuit, model: str = "constant-drop", temperature: float = 25.0, batc
     return _solve_constant_drop(circuit, layout, params, single, active_edge, warm_start)
 
 
+def _part(params, rows, count):
+    """Samples ``rows`` of ``params`` (the parameters themselves when ``rows`` covers all ``count``)."""
+    return params if rows.size == count else take_samples(params, rows)
+
+
 def _solve_assumed(circuit, layout, params, single, active_edge, codes):
-    """Constant-drop solve of one assumed assignment, checked but not searched."""
-    problem = cd.RegionProblem(layout, params, active_edge)
-    rows = np.arange(params.size)
-    regions = np.broadcast_to(np.array(codes, dtype=np.int8), (params.size, layout.n_bjt)).copy()
-    x, ok = problem.solve(rows, regions)
-    good, _, checks = problem.consistent(rows, regions, x, ok)
+    """Constant-drop solve of one assumed assignment, checked but not searched (in blocks of samples)."""
+    cd.check_size(layout)
+    s_count, n_q = params.size, layout.n_bjt
+    regions = np.broadcast_to(np.array(codes, dtype=np.int8), (s_count, n_q)).copy()
+    x = np.empty((s_count, layout.size + 1))
+    good = np.empty(s_count, dtype=bool)
+    ok = np.empty(s_count, dtype=bool)
+    checks = [np.empty((s_count, n_q, 2)) for _ in range(3)] + [np.empty((s_count, n_q, 2), dtype=bool)]
+    for rows in cd.blocks(s_count, layout):
+        problem = cd.RegionProblem(layout, _part(params, rows, s_count), active_edge)
+        local = np.arange(rows.size)
+        x[rows], ok[rows] = problem.solve(local, regions[rows])
+        good[rows], _, block_checks = problem.consistent(local, regions[rows], x[rows], ok[rows])
+        for whole, part in zip(checks, block_checks):
+            whole[rows] = part
     status = np.where(good, "ok", np.where(ok, "assumption-fails", "singular"))
-    return _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + checks, status,
+    return _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + tuple(checks), status,
                   "constant-drop", "assumed regions", 1, single)
 
 
@@ -168,141 +182,95 @@ def _em_guess(layout, params, rows, warm_start=True):
 
 
 def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_start=True):
-    problem = cd.RegionProblem(layout, params, active_edge)
+    """The region search of :mod:`.constant_drop`, block by block over the samples; Ebers–Moll only
+    where a sample has several consistent assignments or (beyond the enumeration limit) none near
+    its start. ``warm_start`` is not used: those Ebers–Moll solves start each sample on its own, as a
+    single solve does, so every sample equals its single solve."""
+    cd.check_size(layout)
     s_count, n_q = params.size, layout.n_bjt
-    chosen = np.full((s_count, n_q), cd.ACTIVE, dtype=np.int8)
-    found = np.zeros(s_count, dtype=bool)
-    near_misses: dict[int, list] = {}
-    alternatives = []
-    iterations = 0
-    final = None
-    final_checks = None
-
-    if single and n_q <= cd.ENUMERATION_LIMIT:
-        method = "enumeration"
-        every = cd.all_assignments(n_q)
-        x, ok = problem.solve(np.zeros(len(every), dtype=np.intp), every)
-        good, score, every_checks = problem.consistent(np.zeros(len(every), dtype=np.intp), every, x, ok)
-        iterations = len(every)
-        candidates = np.flatnonzero(good)
-        if candidates.size == 1:
-            pick = candidates[0]
-        elif candidates.size > 1:
-            # Several consistent assignments: the Ebers–Moll solution breaks the tie.
-            guess, em_its = _em_guess(layout, params, np.array([0]))
-            iterations += em_its
-            method = "enumeration, nearest the Ebers–Moll guess"
-            pick = candidates[np.argmin(cd.hamming(every[candidates], guess[0]))]
-        else:
-            pick = None
-            near_misses[0] = _closest(problem, every, x, ok, score)
-        if pick is not None:
-            chosen[0], found[0] = every[pick], True
-            alternatives = _distinct_others(x, candidates, pick, layout)
-            alt_regions = every
-            alt_x = x
-            final = x[pick:pick + 1], ok[pick:pick + 1]
-            final_checks = tuple(a[pick:pick + 1] for a in every_checks)
-    else:
-        method = "search from Ebers–Moll guess"
-        rows = np.arange(s_count)
-        guess, iterations = _em_guess(layout, params, rows, warm_start)
-        x, ok = problem.solve(rows, guess)
-        good, _, _ = problem.consistent(rows, guess, x, ok)
-        chosen[good], found[good] = guess[good], True
-        left = np.flatnonzero(~good)
-        if left.size and n_q <= cd.ENUMERATION_LIMIT:
-            # Every assignment of every sample whose guess failed, in one batched solve.
-            every = cd.all_assignments(n_q)
-            samples = np.repeat(left, len(every))
-            cands = np.tile(every, (left.size, 1))
-            x, ok = problem.solve(samples, cands)
-            good_all, score, _ = problem.consistent(samples, cands, x, ok)
-            iterations += len(samples)
-            good_all = good_all.reshape(left.size, len(every))
-            distance = np.where(good_all, cd.hamming(every[None, :, :], guess[left][:, None, :]), n_q + 1)
-            best = np.argmin(distance, axis=1)   # first of the nearest, in enumeration order
-            hit = good_all[np.arange(left.size), best]
-            chosen[left[hit]], found[left[hit]] = every[best[hit]], True
-            for k in np.flatnonzero(~hit):
-                rows_k = slice(k * len(every), (k + 1) * len(every))
-                near_misses[left[k]] = _closest(problem, every, x[rows_k], ok[rows_k], score[rows_k],
-                                                sample=left[k])
-        else:
-            for u in left:
-                # Beyond the enumeration limit each failed guess is searched on its own (rare).
-                pick, misses, solves = _search_near(problem, u, guess[u])
-                iterations += solves
-                if pick is not None:
-                    chosen[u], found[u] = pick, True
-                else:
-                    near_misses[u] = misses
-        if single and found[0]:
-            # Alternatives within two region changes (one beyond a dozen transistors).
-            around = cd.neighbours(chosen[0], 2 if n_q <= 12 else 1)
-            ax, aok = problem.solve(np.zeros(len(around), dtype=np.intp), around)
-            agood, _, _ = problem.consistent(np.zeros(len(around), dtype=np.intp), around, ax, aok)
-            alternatives = _distinct_others(ax, np.flatnonzero(agood), 0, layout)
-            alt_regions, alt_x = around, ax
+    x = np.empty((s_count, layout.size + 1))
+    regions = np.empty((s_count, n_q), dtype=np.int8)
+    found = np.empty(s_count, dtype=bool)
+    checks = [np.empty((s_count, n_q, 2)) for _ in range(3)] + [np.empty((s_count, n_q, 2), dtype=bool)]
+    iterations, deepest, em_note = 0, 1, ""
+    for rows in cd.blocks(s_count, layout):
+        sub = _part(params, rows, s_count)
+        problem = cd.RegionProblem(layout, sub, active_edge)
+        local = np.arange(rows.size)
+        result = cd.search(problem, local, np.full((rows.size, n_q), cd.ACTIVE, dtype=np.int8))
+        iterations += result.solves
+        tied = sorted(result.ties)
+        restart = sorted(result.misses) if n_q > cd.ENUMERATION_LIMIT else []
+        if tied or restart:
+            # Rare: the Ebers–Moll solution breaks ties and, beyond the enumeration limit, gives a
+            # second start where the first found nothing nearby.
+            guess, em_iterations = _em_guess(layout, sub, np.array(tied + restart), warm_start=False)
+            iterations += em_iterations
+            for k, g in zip(tied, guess):
+                result.settle(k, _nearest(result.ties[k], g))
+            em_note = ", Ebers–Moll tie-break" if tied else ""
+            if restart:
+                em_note += ", search from the Ebers–Moll guess"
+                again = cd.search(problem, np.array(restart), guess[len(tied):])
+                iterations += again.solves
+                for i, k in enumerate(restart):
+                    if again.found[i]:
+                        result.settle(k, again.regions[i])
+                    elif i in again.ties:
+                        result.settle(k, _nearest(again.ties[i], guess[len(tied) + i]))
+        deepest = max(deepest, result.deepest)
+        stale = np.flatnonzero(result.stale)
+        if stale.size:
+            result.x[stale], result.ok[stale] = problem.solve(stale, result.regions[stale])
+            iterations += stale.size
+        x[rows], regions[rows], found[rows] = result.x, result.regions, result.found & result.ok
+        for whole, part in zip(checks, problem.checks(local, result.regions, result.x)):
+            whole[rows] = part
 
     if single and not found[0]:
-        raise NoConsistentRegionError(_no_region_message(layout, near_misses[0]), closest=near_misses[0])
-
-    rows = np.arange(s_count)
-    x, ok = final if final is not None else problem.solve(rows, chosen)
-    if final_checks is None:
-        final_checks = problem.checks(rows, chosen, x)
-    checks = (problem.check_names(chosen),) + final_checks
-    found &= ok
+        misses = _closest(problem, *result.misses[0]) if 0 in result.misses else []
+        raise NoConsistentRegionError(_no_region_message(layout, misses), closest=misses)
+    steps = ("forward-active start", "repair by failed checks",
+             "enumeration" if n_q <= cd.ENUMERATION_LIMIT else "local search")
+    method = ", ".join(steps[:deepest]) + em_note
     status = np.where(found, "ok", "no-consistent-region")
-    result = _build(circuit, layout, params, x, chosen, checks, status, "constant-drop", method, iterations,
-                    single)
-    if single and alternatives:
-        alts = []
-        for k in alternatives:
-            reg = alt_regions[k:k + 1]
-            xk = alt_x[k:k + 1]
-            checks = (problem.check_names(reg),) + problem.checks(np.array([0]), reg, xk)
-            alts.append(_build(circuit, layout, params, xk, reg, checks,
-                               np.array(["ok"]), "constant-drop", method, iterations, True))
-        result = dataclasses.replace(result, alternatives=tuple(alts))
-    return result
+    op = _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + tuple(checks), status,
+                "constant-drop", method, iterations, single)
+    if single and n_q:
+        others = _alternatives(circuit, layout, params, problem, regions[0], method)
+        if others:
+            op = dataclasses.replace(op, alternatives=others)
+    return op
 
 
-def _search_near(problem, u, guess):
-    """Search near ``guess`` for one sample of more than ENUMERATION_LIMIT transistors: repair by
-    failed checks, then every assignment within two region changes.
-
-    Returns (assignment or None, near misses, linear solves spent)."""
-    current = guess[None, :].copy()
-    seen = {current.tobytes()}
-    for _ in range(cd.REPAIR_ROUNDS):
-        x, ok = problem.solve(np.array([u]), current)
-        good, _, _ = problem.consistent(np.array([u]), current, x, ok)
-        if good[0]:
-            return current[0], [], len(seen)
-        current = problem.repair(np.array([u]), current, x)
-        if current.tobytes() in seen:
-            break
-        seen.add(current.tobytes())
-    cands = cd.neighbours(guess, 2)
-    samples = np.full(len(cands), u, dtype=np.intp)
-    x, ok = problem.solve(samples, cands)
-    good, score, _ = problem.consistent(samples, cands, x, ok)
-    idx = np.flatnonzero(good)
-    if idx.size:
-        return cands[idx[np.argmin(cd.hamming(cands[idx], guess))]], [], len(cands)
-    return None, _closest(problem, cands, x, ok, score, sample=u), len(cands)
+def _nearest(candidates, guess):
+    """The candidate (C, N) with the fewest regions different from ``guess``; the first of equals."""
+    return candidates[np.argmin(cd.hamming(candidates, guess))]
 
 
-def _closest(problem, cands, x, ok, score, sample=0, count=3):
-    """The near misses: (assignment, failed checks) for the best-scoring assignments."""
-    names = [q.name for q in problem.layout.bjts]
-    order = np.argsort(score, kind="stable")[:count]
+def _alternatives(circuit, layout, params, problem, chosen, method):
+    """Other consistent operating points of a single solve, distinct from the chosen and each other."""
+    cands, x, consistent = cd.alternatives(problem, chosen)
     out = []
-    samples = np.full(len(order), sample, dtype=np.intp)
+    for k in _distinct_others(x, np.flatnonzero(consistent), 0, layout):
+        reg = cands[k:k + 1]
+        xk, ok = problem.solve(np.zeros(1, dtype=np.intp), reg)
+        good, _, checks = problem.consistent(np.zeros(1, dtype=np.intp), reg, xk, ok)
+        if good[0]:
+            out.append(_build(circuit, layout, params, xk, reg, (problem.check_names(reg),) + checks,
+                              np.array(["ok"]), "constant-drop", method, len(cands), True))
+    return tuple(out)
+
+
+def _closest(problem, cands, x, ok, score):
+    """The near misses of sample 0: (assignment, failed checks) for the best-scoring assignments
+    tried, best first."""
+    names = [q.name for q in problem.layout.bjts]
+    order = np.argsort(score, kind="stable")
+    samples = np.zeros(len(order), dtype=np.intp)
     values, limits, margins, holds = problem.checks(samples, cands[order], x[order])
     chk_names = problem.check_names(cands[order])
+    out = []
     for k, idx in enumerate(order):
         if not ok[idx]:
             continue

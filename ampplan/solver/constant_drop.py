@@ -14,24 +14,35 @@ reverse-active    V_BC = V_BC(on), I_C = -(β_R + 1)·I_B       I_B > 0, V_CE <=
 With ``active_edge="vcb-zero"`` forward-active ends at V_CB = 0 instead, and saturation then holds
 V_CB = 0 (V_CE = V_BE(on)), so the two regions still meet without a gap.
 
-The search (the same per sample, whether alone or in a batch):
+The search (the same per sample, whether alone or in a batch, so a batch sample always equals
+its single solve):
 
-1. Guess the regions from the Ebers–Moll solution of the same circuit (all forward-active where
-   Newton fails) and solve; if every check holds, done.
-2. Otherwise, up to :data:`ENUMERATION_LIMIT` transistors, solve every one of the 4^N
-   assignments at once (one batched linear solve) and keep the consistent ones; beyond that,
-   repair the guess by the failed checks (a few rounds), then try every assignment within two
-   region changes of the guess.
-3. Of several consistent assignments, the one nearest the guess wins (fewest changed regions);
-   the others are reported as alternatives. None consistent: NoConsistentRegionError, listing
-   the assignments that came closest and the check each failed.
+1. Start from every transistor forward-active (the same start Ebers–Moll's Newton takes) and
+   solve; if every check holds, done. Most amplifier samples stop here, after one linear solve.
+2. Otherwise repair: move each transistor whose check failed toward the region that check points
+   to, solve again, up to :data:`REPAIR_ROUNDS` times or until an assignment repeats.
+3. Otherwise search locally: up to :data:`ENUMERATION_LIMIT` transistors every one of the 4^N
+   assignments (complete); beyond that, every assignment within :func:`search_distance` region
+   changes of the start and of the last repaired assignment. One consistent assignment: done.
+   Several: the caller breaks the tie with the Ebers–Moll solution (the nearest wins). None
+   beyond the enumeration limit: the caller restarts steps 2–3 from the Ebers–Moll guess.
+   None at all: NoConsistentRegionError (a single solve) listing the assignments that came
+   closest and the check each failed, or the status ``"no-consistent-region"`` (a batch).
 
-A single solve of N <= ENUMERATION_LIMIT transistors enumerates first and runs Ebers–Moll only
-when it must break a tie, which gives the same answer as the order above at a fraction of the cost.
+Steps 1 and 2 solve the full system directly, one system per sample. Step 3 and the single
+solve's list of alternatives try many assignments of one sample, so they solve the linear part
+once and reduce each assignment to the transistors' ports (:meth:`RegionProblem.solve_ports`):
+every assignment changes only the 2N device rows, so its solution is a reference solution plus a
+combination of 2N fixed columns, found from a 2N×2N system. The answer reported is always one
+direct solve of the chosen assignment, checked again.
+
+Nothing ever lists all 4^N assignments beyond the enumeration limit, and circuits of more than
+:data:`MAX_TRANSISTORS` transistors are refused before anything is allocated.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import itertools
 
@@ -40,14 +51,57 @@ import numpy as np
 from ..devices import scaled_to_temperature
 from .linear import solve_batch
 
-#: Up to this many transistors every region assignment is tried (4^5 = 1024 linear solves).
+#: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
 ENUMERATION_LIMIT = 5
-#: Rounds of repair-by-failed-check beyond the enumeration limit.
+#: Rounds of repair-by-failed-check before the local search.
 REPAIR_ROUNDS = 12
-#: Systems per batched linear solve when enumerating many samples (bounds memory).
-CHUNK = 20000
+#: Up to this many transistors the local search and the alternatives reach two region changes
+#: (9·N(N-1)/2 assignments); beyond it, one (3N).
+TWO_CHANGE_LIMIT = 12
+#: Circuits with more transistors are refused: each repair round and each assignment the local
+#: search tries is a dense solve whose cost grows with the circuit.
+MAX_TRANSISTORS = 100
+#: Circuits whose dense system would exceed this many bytes (one sample) are refused.
+MAX_MATRIX_BYTES = 64 * 2**20
+#: Bytes of working arrays one batched step may hold: samples and candidate assignments are
+#: processed in blocks of this size, so memory stays flat however large the batch.
+WORK_BYTES = 24 * 2**20
 
 CUTOFF, ACTIVE, SATURATION, REVERSE = 0, 1, 2, 3
+
+
+def check_size(layout) -> None:
+    """Refuse a circuit beyond the search's reach, before anything is allocated.
+
+    Raises
+    ------
+    InvalidValueError
+        More than :data:`MAX_TRANSISTORS` transistors, or a dense system above
+        :data:`MAX_MATRIX_BYTES`.
+    """
+    from ..errors import InvalidValueError
+    if layout.n_bjt > MAX_TRANSISTORS:
+        raise InvalidValueError(
+            f"the circuit has {layout.n_bjt} transistors; the constant-drop region search handles at most "
+            f"{MAX_TRANSISTORS} (every repair and every assignment it tries is a dense solve of the whole "
+            "circuit); split the chain into parts and solve them one by one")
+    if 8 * (layout.size + 1) ** 2 > MAX_MATRIX_BYTES:
+        raise InvalidValueError(
+            f"the circuit has {layout.size} unknowns ({layout.n_nodes} nodes); its dense system would take "
+            f"{8 * (layout.size + 1) ** 2 / 2**20:.0f} MiB per sample, above the solver's "
+            f"{MAX_MATRIX_BYTES / 2**20:.0f} MiB; split the circuit into parts")
+
+
+def blocks(count: int, layout):
+    """Index arrays that cover ``count`` samples in blocks small enough for :data:`WORK_BYTES`."""
+    size = max(1, WORK_BYTES // (8 * (layout.size + 1) ** 2))
+    for start in range(0, count, size):
+        yield np.arange(start, min(count, start + size))
+
+
+def search_distance(n_q: int) -> int:
+    """Region changes the local search and the alternatives reach for ``n_q`` transistors."""
+    return 2 if n_q <= TWO_CHANGE_LIMIT else 1
 
 
 class RegionProblem:
@@ -64,9 +118,11 @@ class RegionProblem:
         self.edge = dev["vbe_on"] if active_edge == "vcb-zero" else dev["vce_sat"]
         self.active_edge = active_edge
         self.matrix, self.rhs = layout.assemble(params)
+        # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
+        self.ports = np.stack([layout.q_b, layout.q_c, layout.q_e, layout.q_ib, layout.q_ic], axis=1)
 
     def solve(self, samples, regions):
-        """Solve the linear equations of assignments ``regions`` for samples ``samples``.
+        """Solve the linear equations of assignments ``regions`` for samples ``samples``, directly.
 
         Parameters
         ----------
@@ -84,8 +140,9 @@ class RegionProblem:
         n = lay.size
         out_x = np.empty((len(samples), n + 1))
         out_ok = np.empty(len(samples), dtype=bool)
-        for start in range(0, len(samples), CHUNK):
-            part = slice(start, start + CHUNK)
+        chunk = max(1, WORK_BYTES // (8 * (n + 1) ** 2))
+        for start in range(0, len(samples), chunk):
+            part = slice(start, start + chunk)
             smp, reg = samples[part], regions[part]
             matrix = self.matrix[smp]
             rhs = self.rhs[smp]
@@ -95,6 +152,94 @@ class RegionProblem:
             out_x[part, n] = 0.0
             out_ok[part] = ok
         return out_x, out_ok
+
+    def solve_ports(self, samples, regions):
+        """Same answers as :meth:`solve`, through the transistors' ports: for many assignments of
+        few samples.
+
+        Every assignment differs only in the 2N device rows. With a reference assignment whose
+        system M0 is regular (all cutoff, else all forward-active), the unknowns that satisfy every
+        other row are x = x0 + W·u, where M0·x0 = b0 and M0·W = the 2N unit device rows; an
+        assignment's own device rows R·x = d then leave the 2N×2N system (R·W)·u = d - R·x0 (the
+        Schur complement on the device rows). One dense solve per sample, then one small solve per
+        assignment. Samples whose references are both singular fall back to :meth:`solve`.
+
+        Parameters and returns as for :meth:`solve`.
+        """
+        lay = self.layout
+        n, n_q = lay.size, lay.n_bjt
+        count = len(samples)
+        out_x = np.full((count, n + 1), np.nan)
+        out_ok = np.zeros(count, dtype=bool)
+        if count == 0:
+            return out_x, out_ok
+        units, where = np.unique(samples, return_inverse=True)
+        x0, w, ref_ok = self._reference(units)
+        direct = ~ref_ok[where]
+        if np.any(direct):
+            out_x[direct], out_ok[direct] = self.solve(samples[direct], regions[direct])
+        port_x0 = x0[:, self.ports]            # (U, N, 5)
+        port_w = w[:, self.ports, :]           # (U, N, 5, 2N)
+        todo = np.flatnonzero(~direct)
+        per_system = 8 * ((n + 1) * 2 * n_q + 12 * n_q * 2 * n_q + n + 1)
+        chunk = max(1, WORK_BYTES // per_system)
+        for start in range(0, todo.size, chunk):
+            k = todo[start:start + chunk]
+            u_k = where[k]
+            coef, value = self._rows(samples[k], regions[k])
+            a = np.einsum("knrp,knpm->knrm", coef, port_w[u_k]).reshape(k.size, 2 * n_q, 2 * n_q)
+            b = (value - np.einsum("knrp,knp->knr", coef, port_x0[u_k])).reshape(k.size, 2 * n_q)
+            u, ok = solve_batch(a, b)
+            out_x[k] = x0[u_k] + np.einsum("knm,km->kn", w[u_k], np.where(ok[:, None], u, 0.0))
+            out_ok[k] = ok
+        out_x[~out_ok] = np.nan
+        return out_x, out_ok
+
+    def _reference(self, units):
+        """x0 (U, size + 1) and W (U, size + 1, 2N) of :meth:`solve_ports`, and which are regular."""
+        lay = self.layout
+        n, n_q = lay.size, lay.n_bjt
+        first = lay.n_nodes + lay.n_vs            # the device rows are the last 2N, in port order
+        x0 = np.zeros((units.size, n + 1))
+        w = np.zeros((units.size, n + 1, 2 * n_q))
+        ok = np.zeros(units.size, dtype=bool)
+        unit_rows = np.zeros((n, 2 * n_q))
+        unit_rows[first + np.arange(2 * n_q), np.arange(2 * n_q)] = 1.0
+        for code in (CUTOFF, ACTIVE):
+            todo = np.flatnonzero(~ok)
+            if not todo.size:
+                break
+            smp = units[todo]
+            matrix, rhs = self.matrix[smp], self.rhs[smp]
+            self._stamp(matrix, rhs, smp, np.full((todo.size, n_q), code, dtype=np.int8))
+            both = np.concatenate([rhs[:, :n, None], np.broadcast_to(unit_rows, (todo.size, n, 2 * n_q))], axis=2)
+            sol, good = solve_batch(matrix[:, :n, :n], both)
+            x0[todo[good], :n] = sol[good, :, 0]
+            w[todo[good], :n] = sol[good, :, 1:]
+            ok[todo[good]] = True
+        return x0, w, ok
+
+    def _rows(self, samples, regions):
+        """The two device rows of every transistor in ``regions`` over its ports (V_B, V_C, V_E,
+        I_B, I_C): coefficients (K, N, 2, 5) and right-hand sides (K, N, 2), as :meth:`_stamp`
+        writes them into the full system."""
+        s = self.layout.sign
+        cut, act, sat, rev = (regions == CUTOFF), (regions == ACTIVE), (regions == SATURATION), (regions == REVERSE)
+        on = act | sat
+        coef = np.zeros(regions.shape + (2, 5))
+        value = np.zeros(regions.shape + (2,))
+        coef[..., 0, 0] = s * (on | rev)
+        coef[..., 0, 1] = -s * rev
+        coef[..., 0, 2] = -s * on
+        coef[..., 0, 3] = cut
+        value[..., 0] = np.where(on, self.vbe_on[samples], 0.0) + np.where(rev, self.vbc_on[samples], 0.0)
+        coef[..., 1, 1] = s * sat
+        coef[..., 1, 2] = -s * sat
+        coef[..., 1, 3] = (np.where(act, -self.dev["beta"][samples], 0.0)
+                           + np.where(rev, self.dev["beta_reverse"][samples] + 1.0, 0.0))
+        coef[..., 1, 4] = ~sat
+        value[..., 1] = np.where(sat, self.edge[samples], 0.0)
+        return coef, value
 
     def _stamp(self, matrix, rhs, smp, reg):
         lay = self.layout
@@ -214,26 +359,219 @@ _NAMES_PNP = tuple(np.array(t, dtype=str) for t in (
 
 @functools.lru_cache(maxsize=None)
 def all_assignments(n: int) -> np.ndarray:
-    """Every region assignment of n transistors, shape (4^n, n), all forward-active first (read-only)."""
+    """Every region assignment of n transistors, shape (4^n, n), all forward-active first (read-only).
+
+    Only for n <= ENUMERATION_LIMIT.
+    """
+    if n > ENUMERATION_LIMIT:
+        raise ValueError(f"all_assignments: {n} transistors is beyond the enumeration limit")  # pragma: no cover
     order = (ACTIVE, CUTOFF, SATURATION, REVERSE)
     table = np.array(list(itertools.product(order, repeat=n)), dtype=np.int8).reshape(4 ** n, n)
     table.flags.writeable = False
     return table
 
 
-def neighbours(guess: np.ndarray, distance: int) -> np.ndarray:
-    """Assignments that differ from ``guess`` (shape (N,)) in 1..distance transistors."""
-    n = guess.shape[0]
-    out = [guess[None, :]]
+@functools.lru_cache(maxsize=64)
+def _changes(n: int, distance: int):
+    """Which transistor and by how much each neighbour changes: (rows, columns, steps), read-only.
+
+    Neighbour r (of 1 + 3n + 9·n(n-1)/2 ... for the given distance; row 0 is the centre itself)
+    adds ``steps`` (mod 4) to the region codes at ``columns`` of the rows ``rows``.
+    """
+    rows, cols, steps = [], [], []
+    count = 1
     for d in range(1, distance + 1):
         for who in itertools.combinations(range(n), d):
             for what in itertools.product(range(1, 4), repeat=d):
-                cand = guess.copy()
-                cand[list(who)] = (cand[list(who)] + np.array(what)) % 4
-                out.append(cand[None, :])
-    return np.concatenate(out).astype(np.int8)
+                rows += [count] * d
+                cols += list(who)
+                steps += list(what)
+                count += 1
+    out = (count, np.array(rows, dtype=np.intp), np.array(cols, dtype=np.intp), np.array(steps, dtype=np.int8))
+    for arr in out[1:]:
+        arr.flags.writeable = False
+    return out
+
+
+def neighbours(centres: np.ndarray, distance: int) -> np.ndarray:
+    """Each centre and the assignments that differ from it in 1..distance transistors.
+
+    Parameters
+    ----------
+    centres : ndarray of int8, shape (K, N)
+
+    Returns
+    -------
+    ndarray of int8, shape (K, C, N)
+        C = 1 + 3N (+ 9·N(N-1)/2 for distance 2); index 0 is the centre.
+    """
+    k, n = centres.shape
+    count, rows, cols, steps = _changes(n, distance)
+    out = np.repeat(centres[:, None, :], count, axis=1)
+    out[:, rows, cols] = (out[:, rows, cols] + steps) % 4
+    return out
 
 
 def hamming(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Number of transistors whose region differs, along the last axis."""
     return np.sum(a != b, axis=-1)
+
+
+@dataclasses.dataclass
+class Search:
+    """Outcome of :func:`search` for the samples it was given (arrays aligned with them).
+
+    Attributes
+    ----------
+    regions : ndarray of int8, shape (K, N)
+        The consistent assignment found, else the last one tried.
+    found : ndarray of bool, shape (K,)
+    x : ndarray, shape (K, size + 1)
+        Direct solution of ``regions`` (stale where ``settle`` changed them; see ``stale``).
+    ok : ndarray of bool, shape (K,)
+    stale : ndarray of bool, shape (K,)
+        Samples whose ``regions`` changed after their last direct solve.
+    ties : dict of int -> ndarray (C, N)
+        Samples with several consistent assignments (the caller chooses with :meth:`settle`).
+    misses : dict of int -> tuple
+        Samples with none: the best-scoring assignments tried (candidates, x, ok, score).
+    solves : int
+        Linear systems solved (direct and through the ports).
+    deepest : int
+        The furthest step any sample needed: 1 start, 2 repair, 3 local search.
+    """
+    regions: np.ndarray
+    found: np.ndarray
+    x: np.ndarray
+    ok: np.ndarray
+    stale: np.ndarray
+    ties: dict
+    misses: dict
+    solves: int
+    deepest: int
+
+    def settle(self, k: int, assignment: np.ndarray) -> None:
+        """Record ``assignment`` as sample k's choice (its x is solved again later)."""
+        self.regions[k] = assignment
+        self.found[k] = True
+        self.stale[k] = True
+        self.ties.pop(k, None)
+        self.misses.pop(k, None)
+
+
+def search(problem: RegionProblem, rows: np.ndarray, starts: np.ndarray) -> Search:
+    """Steps 1–3 of the search (module docstring) for samples ``rows`` of ``problem``.
+
+    Parameters
+    ----------
+    rows : ndarray of int, shape (K,)
+        Sample indices into ``problem``.
+    starts : ndarray of int8, shape (K, N)
+        The assignment each sample starts from.
+    """
+    count, n_q = starts.shape
+    regions = starts.copy()
+    x, ok = problem.solve(rows, regions)
+    good, _, _ = problem.consistent(rows, regions, x, ok)
+    solves, deepest = count, 1
+    # Repair, vectorised over the samples still failing; ``history`` holds what each has tried.
+    active = np.flatnonzero(~good)
+    history = [regions[active]]
+    for _ in range(REPAIR_ROUNDS):
+        if not active.size:
+            break
+        deepest = 2
+        new = problem.repair(rows[active], regions[active], x[active])
+        repeat = np.zeros(active.size, dtype=bool)
+        for past in history:
+            repeat |= np.all(new == past, axis=1)
+        active, new = active[~repeat], new[~repeat]
+        history = [h[~repeat] for h in history]
+        if not active.size:
+            break
+        regions[active] = new
+        x[active], ok[active] = problem.solve(rows[active], new)
+        solves += active.size
+        hit, _, _ = problem.consistent(rows[active], new, x[active], ok[active])
+        good[active] = hit
+        history = [h[~hit] for h in history] + [new[~hit]]
+        active = active[~hit]
+    result = Search(regions=regions, found=good, x=x, ok=ok, stale=np.zeros(count, dtype=bool), ties={},
+                    misses={}, solves=solves, deepest=deepest)
+    left = np.flatnonzero(~good)
+    if left.size:
+        result.deepest = 3
+        _local_search(problem, rows, starts, result, left)
+    return result
+
+
+def _local_search(problem, rows, starts, result, left):
+    """Step 3 for the samples ``left`` (indices into ``rows``): every assignment when N is small,
+    else the neighbourhoods of the start and of the last repaired assignment."""
+    n_q = starts.shape[1]
+    n = problem.layout.size
+    if n_q <= ENUMERATION_LIMIT:
+        every = all_assignments(n_q)
+        candidates = lambda ks: np.broadcast_to(every, (ks.size,) + every.shape)  # noqa: E731
+        per_sample = every.shape[0]
+    else:
+        distance = search_distance(n_q)
+        candidates = lambda ks: np.concatenate(  # noqa: E731
+            [neighbours(starts[ks], distance), neighbours(result.regions[ks], distance)], axis=1)
+        per_sample = 2 * _changes(n_q, distance)[0]
+    group = max(1, WORK_BYTES // (8 * per_sample * (n + 1) * 2))
+    for start in range(0, left.size, group):
+        ks = left[start:start + group]
+        cands = candidates(ks)
+        flat = cands.reshape(-1, n_q)
+        smp = np.repeat(rows[ks], per_sample)
+        xc, okc = problem.solve_ports(smp, flat)
+        result.solves += len(smp)
+        good, score, _ = problem.consistent(smp, flat, xc, okc)
+        good, score = good.reshape(ks.size, per_sample), score.reshape(ks.size, per_sample)
+        xc, okc = xc.reshape(ks.size, per_sample, -1), okc.reshape(ks.size, per_sample)
+        # Per-sample bookkeeping, only for the few samples the repair could not settle.
+        for i, k in enumerate(ks):
+            hits = _unique_rows(cands[i][good[i]])
+            if hits.shape[0]:
+                # The verdict is the direct solve's, as for every answer reported.
+                hx, hok = problem.solve(np.full(hits.shape[0], rows[k]), hits)
+                result.solves += hits.shape[0]
+                verified, _, _ = problem.consistent(np.full(hits.shape[0], rows[k]), hits, hx, hok)
+                hits = hits[verified]
+            if hits.shape[0] == 1:
+                result.settle(k, hits[0])
+            elif hits.shape[0] > 1:
+                result.ties[k] = hits
+            else:
+                best = np.argsort(score[i], kind="stable")[:3]
+                result.misses[k] = (cands[i][best].copy(), xc[i][best], okc[i][best], score[i][best])
+
+
+def _unique_rows(a: np.ndarray) -> np.ndarray:
+    """The distinct rows of ``a`` in order of first appearance."""
+    if a.shape[0] < 2:
+        return a
+    _, first = np.unique(a, axis=0, return_index=True)
+    return a[np.sort(first)]
+
+
+def alternatives(problem: RegionProblem, chosen: np.ndarray):
+    """Consistent assignments other than ``chosen`` (N,) of sample 0: every assignment when N is
+    small, else those within :func:`search_distance` region changes.
+
+    Returns
+    -------
+    candidates : ndarray (C, N), x : ndarray (C, size + 1), consistent : ndarray of bool (C,)
+        ``candidates[0]`` is ``chosen`` itself; x through the ports.
+    """
+    n_q = chosen.shape[0]
+    if n_q <= ENUMERATION_LIMIT:
+        cands = np.concatenate([chosen[None, :], all_assignments(n_q)])
+    else:
+        cands = neighbours(chosen[None, :], search_distance(n_q))[0]
+    smp = np.zeros(cands.shape[0], dtype=np.intp)
+    x, ok = problem.solve_ports(smp, cands)
+    good, _, _ = problem.consistent(smp, cands, x, ok)
+    good &= np.any(cands != chosen, axis=1)
+    return cands, x, good

@@ -11,39 +11,40 @@ def solve_batch(matrix: np.ndarray, rhs: np.ndarray, check_residual: bool = True
     Parameters
     ----------
     matrix : ndarray, shape (S, m, m)
-    rhs : ndarray, shape (S, m)
+    rhs : ndarray, shape (S, m) or (S, m, k)
+        One right-hand side per system, or k of them.
     check_residual : bool
         Also reject members whose residual betrays near-singularity (Newton skips this: it
         judges its iterates by their steps).
 
     Returns
     -------
-    x : ndarray, shape (S, m)
+    x : ndarray, shape of ``rhs``
         NaN rows where the system is singular or the answer is not finite.
     ok : ndarray of bool, shape (S,)
     """
+    columns = rhs if rhs.ndim == 3 else rhs[..., None]
     try:
-        x = np.linalg.solve(matrix, rhs[..., None])[..., 0]
+        x = np.linalg.solve(matrix, columns)
     except np.linalg.LinAlgError:
         # One singular member spoils LAPACK's batched call; redo the stack one system at a time,
         # which costs a Python loop only on this rare path.
-        x = np.full(rhs.shape, np.nan)
+        x = np.full(columns.shape, np.nan)
         for k in range(matrix.shape[0]):
             try:
-                x[k] = np.linalg.solve(matrix[k], rhs[k])
+                x[k] = np.linalg.solve(matrix[k], columns[k])
             except np.linalg.LinAlgError:
                 pass
     with np.errstate(all="ignore"):
-        ok = np.all(np.isfinite(x), axis=-1)
-    if not check_residual:
-        x[~ok] = np.nan
-        return x, ok
-    with np.errstate(all="ignore"):
-        # A nearly singular member gives finite nonsense; its residual against the scale of the
-        # equations gives it away.
-        resid = np.abs(np.einsum("sij,sj->si", matrix, np.where(ok[:, None], x, 0.0)) - rhs).max(axis=-1)
-        scale = (np.abs(matrix).max(axis=(-1, -2)) * np.abs(np.where(ok[:, None], x, 0.0)).max(axis=-1)
-                 + np.abs(rhs).max(axis=-1))
-        ok &= resid <= 1e-8 * scale + 1e-300
+        ok = np.all(np.isfinite(x), axis=(-2, -1))
+    if check_residual:
+        with np.errstate(all="ignore"):
+            # A nearly singular member gives finite nonsense; its residual against the scale of the
+            # equations gives it away.
+            xz = np.where(ok[:, None, None], x, 0.0)
+            resid = np.abs(np.einsum("sij,sjk->sik", matrix, xz) - columns).max(axis=(-2, -1), initial=0.0)
+            scale = (np.abs(matrix).max(axis=(-1, -2), initial=0.0) * np.abs(xz).max(axis=(-2, -1), initial=0.0)
+                     + np.abs(columns).max(axis=(-2, -1), initial=0.0))
+            ok &= resid <= 1e-8 * scale + 1e-300
     x[~ok] = np.nan
-    return x, ok
+    return (x if rhs.ndim == 3 else x[..., 0]), ok
