@@ -120,6 +120,9 @@ class RegionProblem:
         self.matrix, self.rhs = layout.assemble(params)
         # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
         self.ports = np.stack([layout.q_b, layout.q_c, layout.q_e, layout.q_ib, layout.q_ic], axis=1)
+        # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
+        # alternatives come back to the same few samples many times.
+        self._references: dict = {}
 
     def solve(self, samples, regions):
         """Solve the linear equations of assignments ``regions`` for samples ``samples``, directly.
@@ -196,28 +199,35 @@ class RegionProblem:
         return out_x, out_ok
 
     def _reference(self, units):
-        """x0 (U, size + 1) and W (U, size + 1, 2N) of :meth:`solve_ports`, and which are regular."""
+        """x0 (U, size + 1) and W (U, size + 1, 2N) of :meth:`solve_ports`, and which are regular
+        (computed once per sample)."""
         lay = self.layout
         n, n_q = lay.size, lay.n_bjt
-        first = lay.n_nodes + lay.n_vs            # the device rows are the last 2N, in port order
-        x0 = np.zeros((units.size, n + 1))
-        w = np.zeros((units.size, n + 1, 2 * n_q))
-        ok = np.zeros(units.size, dtype=bool)
-        unit_rows = np.zeros((n, 2 * n_q))
-        unit_rows[first + np.arange(2 * n_q), np.arange(2 * n_q)] = 1.0
-        for code in (CUTOFF, ACTIVE):
-            todo = np.flatnonzero(~ok)
-            if not todo.size:
-                break
-            smp = units[todo]
-            matrix, rhs = self.matrix[smp], self.rhs[smp]
-            self._stamp(matrix, rhs, smp, np.full((todo.size, n_q), code, dtype=np.int8))
-            both = np.concatenate([rhs[:, :n, None], np.broadcast_to(unit_rows, (todo.size, n, 2 * n_q))], axis=2)
-            sol, good = solve_batch(matrix[:, :n, :n], both)
-            x0[todo[good], :n] = sol[good, :, 0]
-            w[todo[good], :n] = sol[good, :, 1:]
-            ok[todo[good]] = True
-        return x0, w, ok
+        missing = np.array([u for u in units.tolist() if u not in self._references], dtype=np.intp)
+        if missing.size:
+            first = lay.n_nodes + lay.n_vs            # the device rows are the last 2N, in port order
+            x0 = np.zeros((missing.size, n + 1))
+            w = np.zeros((missing.size, n + 1, 2 * n_q))
+            ok = np.zeros(missing.size, dtype=bool)
+            unit_rows = np.zeros((n, 2 * n_q))
+            unit_rows[first + np.arange(2 * n_q), np.arange(2 * n_q)] = 1.0
+            for code in (CUTOFF, ACTIVE):
+                todo = np.flatnonzero(~ok)
+                if not todo.size:
+                    break
+                smp = missing[todo]
+                matrix, rhs = self.matrix[smp], self.rhs[smp]
+                self._stamp(matrix, rhs, smp, np.full((todo.size, n_q), code, dtype=np.int8))
+                both = np.concatenate([rhs[:, :n, None], np.broadcast_to(unit_rows, (todo.size, n, 2 * n_q))],
+                                      axis=2)
+                sol, good = solve_batch(matrix[:, :n, :n], both)
+                x0[todo[good], :n] = sol[good, :, 0]
+                w[todo[good], :n] = sol[good, :, 1:]
+                ok[todo[good]] = True
+            for i, u in enumerate(missing.tolist()):
+                self._references[u] = (x0[i], w[i], ok[i])
+        x0, w, ok = zip(*(self._references[u] for u in units.tolist()))
+        return np.stack(x0), np.stack(w), np.array(ok)
 
     def _rows(self, samples, regions):
         """The two device rows of every transistor in ``regions`` over its ports (V_B, V_C, V_E,
@@ -506,19 +516,94 @@ def search(problem: RegionProblem, rows: np.ndarray, starts: np.ndarray) -> Sear
 
 
 def _local_search(problem, rows, starts, result, left):
-    """Step 3 for the samples ``left`` (indices into ``rows``): every assignment when N is small,
-    else the neighbourhoods of the start and of the last repaired assignment."""
+    """Step 3 for the samples ``left`` (indices into ``rows``): every assignment when N is small;
+    else a greedy descent from the last repaired assignment, then the neighbourhoods of the start
+    and of where the descent stopped."""
     n_q = starts.shape[1]
-    n = problem.layout.size
     if n_q <= ENUMERATION_LIMIT:
         every = all_assignments(n_q)
-        candidates = lambda ks: np.broadcast_to(every, (ks.size,) + every.shape)  # noqa: E731
-        per_sample = every.shape[0]
-    else:
+        _try_each(problem, rows, result, left, lambda ks: np.broadcast_to(every, (ks.size,) + every.shape))
+        return
+    left = _repair_one_at_a_time(problem, rows, starts, result, left)
+    if left.size:
+        left = _descend(problem, rows, result, left)
+    if left.size:
         distance = search_distance(n_q)
-        candidates = lambda ks: np.concatenate(  # noqa: E731
-            [neighbours(starts[ks], distance), neighbours(result.regions[ks], distance)], axis=1)
-        per_sample = 2 * _changes(n_q, distance)[0]
+        _try_each(problem, rows, result, left, lambda ks: np.concatenate(
+            [neighbours(starts[ks], distance), neighbours(result.regions[ks], distance)], axis=1))
+
+
+def _repair_one_at_a_time(problem, rows, starts, result, left):
+    """Repair again from the start, one transistor per step: the first transistor (in circuit
+    order) with a failed check moves as :meth:`RegionProblem.repair` says, which does not
+    oscillate the way moving every failing transistor at once can (a least-index pivoting rule, as
+    in Murty's method for complementarity problems, from memory). Vectorised over the samples
+    ``left``, through the ports, at most 4N + 8 steps.
+
+    Returns the samples that found nothing (``result.regions`` keeps the last repaired assignment)."""
+    n_q = starts.shape[1]
+    current = starts[left].copy()
+    active = left
+    for _ in range(4 * n_q + 8):
+        smp = rows[active]
+        x, ok = problem.solve_ports(smp, current)
+        result.solves += active.size
+        good, _, checks = problem.consistent(smp, current, x, ok)
+        settled = np.zeros(active.size, dtype=bool)
+        for i in np.flatnonzero(good):
+            settled[i] = _settle_hits(problem, rows, result, active[i], current[i:i + 1])
+        failing = ~np.all(checks[3], axis=2)
+        first = np.argmax(failing, axis=1)
+        proposal = problem.repair(smp, current, x)
+        pick = np.arange(active.size)
+        keep = ~settled & ok & (proposal[pick, first] != current[pick, first])
+        current[pick, first] = proposal[pick, first]
+        active, current = active[keep], current[keep]
+        if not active.size:
+            break
+    return np.array([k for k in left if not result.found[k]], dtype=np.intp)
+
+
+def _descend(problem, rows, result, left):
+    """Greedy descent, vectorised over the samples ``left``: try every assignment one region change
+    away, stop at any consistent one, else move to the one with the best score (fewest failed
+    checks, then the smallest violation) while that improves, at most 2N moves.
+
+    Returns the samples that found nothing (their ``result.regions`` is where they stopped)."""
+    n_q = result.regions.shape[1]
+    current = result.regions[left].copy()
+    active = left
+    unresolved = []
+    for _ in range(2 * n_q):
+        cands = neighbours(current, 1)
+        count = cands.shape[1]
+        flat = cands.reshape(-1, n_q)
+        smp = np.repeat(rows[active], count)
+        xc, okc = problem.solve_ports(smp, flat)
+        result.solves += len(smp)
+        good, score, _ = problem.consistent(smp, flat, xc, okc)
+        good, score = good.reshape(active.size, count), score.reshape(active.size, count)
+        settled = np.zeros(active.size, dtype=bool)
+        for i in np.flatnonzero(np.any(good, axis=1)):
+            settled[i] = _settle_hits(problem, rows, result, active[i], cands[i][good[i]])
+        best = np.argmin(score, axis=1)
+        moves = ~settled & (score[np.arange(active.size), best] < score[:, 0])
+        unresolved.append(active[~settled & ~moves])
+        result.regions[active[~settled & ~moves]] = current[~settled & ~moves]
+        active, current = active[moves], cands[np.flatnonzero(moves), best[moves]]
+        if not active.size:
+            break
+    result.regions[active] = current
+    unresolved.append(active)
+    return np.concatenate(unresolved)
+
+
+def _try_each(problem, rows, result, left, candidates):
+    """Try the assignments ``candidates(ks)`` (K, C, N) of the samples ``left``, in groups that fit
+    :data:`WORK_BYTES`; settle each sample with what holds, or record its near misses."""
+    n_q = result.regions.shape[1]
+    n = problem.layout.size
+    per_sample = candidates(left[:1]).shape[1]
     group = max(1, WORK_BYTES // (8 * per_sample * (n + 1) * 2))
     for start in range(0, left.size, group):
         ks = left[start:start + group]
@@ -532,20 +617,27 @@ def _local_search(problem, rows, starts, result, left):
         xc, okc = xc.reshape(ks.size, per_sample, -1), okc.reshape(ks.size, per_sample)
         # Per-sample bookkeeping, only for the few samples the repair could not settle.
         for i, k in enumerate(ks):
-            hits = _unique_rows(cands[i][good[i]])
-            if hits.shape[0]:
-                # The verdict is the direct solve's, as for every answer reported.
-                hx, hok = problem.solve(np.full(hits.shape[0], rows[k]), hits)
-                result.solves += hits.shape[0]
-                verified, _, _ = problem.consistent(np.full(hits.shape[0], rows[k]), hits, hx, hok)
-                hits = hits[verified]
-            if hits.shape[0] == 1:
-                result.settle(k, hits[0])
-            elif hits.shape[0] > 1:
-                result.ties[k] = hits
-            else:
+            if not _settle_hits(problem, rows, result, k, cands[i][good[i]]):
                 best = np.argsort(score[i], kind="stable")[:3]
                 result.misses[k] = (cands[i][best].copy(), xc[i][best], okc[i][best], score[i][best])
+
+
+def _settle_hits(problem, rows, result, k, hits):
+    """Settle sample k with the consistent assignments ``hits`` (C, N) found through the ports,
+    once a direct solve confirms them (the verdict is the direct solve's, as for every answer
+    reported): one settles it, several are a tie for the caller. False when none is confirmed."""
+    hits = _unique_rows(hits)
+    if hits.shape[0]:
+        samples = np.full(hits.shape[0], rows[k])
+        hx, hok = problem.solve(samples, hits)
+        result.solves += hits.shape[0]
+        verified, _, _ = problem.consistent(samples, hits, hx, hok)
+        hits = hits[verified]
+    if hits.shape[0] == 1:
+        result.settle(k, hits[0])
+    elif hits.shape[0] > 1:
+        result.ties[k] = hits
+    return hits.shape[0] > 0
 
 
 def _unique_rows(a: np.ndarray) -> np.ndarray:
