@@ -192,6 +192,8 @@ def _parser() -> argparse.ArgumentParser:
                             "its unit: s1.rc=4.7k, s1.rc=4.7kΩ, supply=15V, s2.device.beta=80, "
                             "s1.rb2=none (repeatable)")
     check.set_defaults(run=_check)
+    from .cli_whatif import add_commands  # sweep, tolerance, design (their own module)
+    add_commands(commands)
     return parser
 
 

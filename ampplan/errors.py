@@ -17,6 +17,7 @@ __all__ = [
     "NoConsistentRegionError",
     "ConvergenceError",
     "PlanFileError",
+    "TargetNotReachedError",
 ]
 
 
@@ -84,3 +85,7 @@ class ConvergenceError(AmpplanError):
 
 class PlanFileError(AmpplanError, ValueError):
     """A plan file is unreadable, malformed, of a newer format, or could not be written."""
+
+
+class TargetNotReachedError(AmpplanError, ValueError):
+    """A design target that no value within the bounds reaches (``plan.design``)."""

@@ -624,6 +624,40 @@ class Plan:
         from .analyses.chain import analyse_plan
         return analyse_plan(self, model=model, active_edge=active_edge, batch=batch)
 
+    # -- what-if (ampplan.analyses.whatif) ----------------------------------------------------
+    def sweep(self, values, model: str = "constant-drop", grid: bool = False):
+        """Solve many variants of the plan in one batched call; returns a PlanSweep.
+
+        ``values`` maps plan addresses to 1-D arrays (same length, or a full grid with
+        ``grid=True``). See :func:`ampplan.analyses.whatif.sweep`.
+        """
+        from .analyses.whatif import sweep
+        return sweep(self, values, model=model, grid=grid)
+
+    def tolerance(self, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5, 2.0), vbe_on=0.01,
+                  temperature=(0.0, 50.0), distribution: str = "uniform", required_amplitude=None,
+                  model: str = "constant-drop", executor=None, **options):
+        """Monte Carlo tolerance run; returns a ToleranceResult (yield, percentiles, worst samples,
+        sensitivity). See :func:`ampplan.analyses.whatif.tolerance`."""
+        from .analyses.whatif import tolerance
+        return tolerance(self, samples=samples, seed=seed, resistors=resistors, beta=beta, vbe_on=vbe_on,
+                         temperature=temperature, distribution=distribution, required_amplitude=required_amplitude,
+                         model=model, executor=executor, **options)
+
+    def corners(self, resistors=0.05, beta=(0.5, 2.0), vbe_on=0.01, temperature=(0.0, 50.0),
+                required_amplitude=None, model: str = "constant-drop", **options):
+        """The plan at the extremes of the same spreads; returns a CornersResult (worst case per
+        margin). See :func:`ampplan.analyses.whatif.corners`."""
+        from .analyses.whatif import corners
+        return corners(self, resistors=resistors, beta=beta, vbe_on=vbe_on, temperature=temperature,
+                       required_amplitude=required_amplitude, model=model, **options)
+
+    def design(self, address: str, target, series=None, bounds=None, model: str = "constant-drop"):
+        """Solve one plan value so that a result reaches a target; returns a DesignResult (this plan
+        is not changed). See :func:`ampplan.analyses.whatif.design`."""
+        from .analyses.whatif import design
+        return design(self, address, target, series=series, bounds=bounds, model=model)
+
     # -- files --------------------------------------------------------------------------------
     def save(self, path) -> None:
         """Write the plan as a JSON plan file, atomically (see :mod:`ampplan.record`)."""

@@ -1,0 +1,527 @@
+"""Tolerance runs: resistor tolerance, β spread, V_BE(on) spread and ambient temperature, sampled.
+
+What is varied (each stage's parts; the signal source and the load are the outside world and stay
+as they are):
+
+* every fitted stage resistor (every stage value in ohms): R·(1 + t·x), t the tolerance;
+* each stage transistor's β: β·exp(c + h·x) with c, h the centre and half-width of
+  [ln lo, ln hi], so a uniform draw is uniform in ln β over the factor range (a 3:1 spread is
+  multiplicative, and the range (0.5, 2) is centred on the nominal β);
+* each stage transistor's V_BE(on): V_BE(on) + d·x volts (constant-drop). Under Ebers–Moll the
+  same shift of the junction voltage at a given current is a change of saturation current,
+  I_S·exp(−d·x/(n·V_T)) with V_T = kT/q at 25 °C (the exponential junction law), varied as
+  ``sN.device.saturation_current``;
+* the ambient temperature ("temperature"): centre + half-width·x over the range. The solver moves
+  each device with it as it always does (:func:`ampplan.devices.scaled_to_temperature`): V_BE(on)
+  by the device's ``vbe_temperature_coefficient`` (−2 mV/°C by default, common practice, no
+  source), I_S by its temperature law (Gray & Meyer, from memory). The solver holds β constant, so
+  the run moves β itself: β·(1 + k·(T − 25 °C)) with k = ``beta_temperature_coefficient``
+  (+0.5 %/°C by default: β of a silicon transistor rises with temperature; the figure is common
+  practice for small-signal parts, from memory, no source). The factor is part of the sampled β,
+  so re-solving a sample from :attr:`ToleranceResult.parameters` gives the same answer.
+
+x is uniform on [−1, 1] (``distribution="uniform"``) or z/3 with z standard normal
+(``"normal"``: the tolerance is 3σ; z is clipped at ±6, one draw in 500 million, so resistances
+stay positive).
+
+**Seeding.** Sample k is drawn from block k // 8192, and block b draws from
+``SeedSequence(seed).spawn(...)[b]``, independently of every other block. The samples are a
+function of the seed and k alone, never of the chunking or of the executor that runs the chunks.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import html
+import math
+import numbers
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Literal, get_args
+
+import numpy as np
+from scipy import stats
+
+from ...devices import REFERENCE_TEMPERATURE, thermal_voltage
+from ...errors import InvalidValueError, UnknownModelError
+from .sweeps import PlanSweep, check_model, passed_rule, solve_table
+from .tables import TableBuilder
+
+__all__ = ["Distribution", "DISTRIBUTIONS", "Spread", "ToleranceSpec", "ToleranceResult", "ToleranceSample",
+           "tolerance", "spreads_of", "run_chunks", "values_at", "BLOCK", "PERCENTILES"]
+
+Distribution = Literal["uniform", "normal"]
+DISTRIBUTIONS: tuple[str, ...] = get_args(Distribution)
+
+#: Samples per independently seeded block.
+BLOCK = 8192
+#: Default samples per chunk handed to the batched solver.
+CHUNK = 20_000
+#: Percentiles reported for the margins and the swing.
+PERCENTILES = (1, 5, 50, 95, 99)
+#: β rises with temperature by this fraction per °C (common practice, from memory, no source).
+BETA_TEMPERATURE_COEFFICIENT = 0.005
+
+
+@dataclass(frozen=True)
+class Spread:
+    """How one plan value is varied.
+
+    ``value = nominal · (1 + half·x)`` (``kind="relative"``), ``nominal · exp(centre + half·x)``
+    (``"log"``), ``nominal + centre + half·x`` (``"absolute"``); x as in the module docstring.
+    """
+    address: str
+    kind: str
+    nominal: float
+    centre: float
+    half: float
+
+    def apply(self, x: np.ndarray) -> np.ndarray:
+        if self.kind == "relative":
+            return self.nominal * (1.0 + self.half * x)
+        if self.kind == "log":
+            return self.nominal * np.exp(self.centre + self.half * x)
+        return self.nominal + self.centre + self.half * x
+
+    @property
+    def low(self) -> float:
+        return float(self.apply(np.array(-1.0)))
+
+    @property
+    def high(self) -> float:
+        return float(self.apply(np.array(1.0)))
+
+
+@dataclass(frozen=True)
+class ToleranceSpec:
+    """Everything a chunk needs to draw and solve its samples (plain data, picklable)."""
+    spreads: tuple
+    entropy: int
+    distribution: str
+    model: str
+    beta_temperature_coefficient: float
+    required_amplitude: float | None
+
+
+def _fraction(value, name: str, upper: float) -> float:
+    if value is None:
+        return 0.0
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not 0 <= value < upper:
+        raise InvalidValueError(f"tolerance {name}: must be a number from 0 to below {upper:g}, got {value!r}")
+    return float(value)
+
+
+def _range(value, name: str, positive: bool):
+    if value is None:
+        return None
+    try:
+        lo, hi = (float(v) for v in value)
+    except (TypeError, ValueError):
+        raise InvalidValueError(f"tolerance {name}: must be a (low, high) pair of numbers, got {value!r}") from None
+    if not (math.isfinite(lo) and math.isfinite(hi)) or lo > hi or (positive and lo <= 0):
+        need = "0 < low <= high" if positive else "low <= high"
+        raise InvalidValueError(f"tolerance {name}: need finite {need}, got {value!r}")
+    return lo, hi
+
+
+def spreads_of(plan, model: str, resistors=0.05, beta=(0.5, 2.0), vbe_on=0.01, temperature=(0.0, 50.0),
+               distribution: str = "uniform", beta_temperature_coefficient=BETA_TEMPERATURE_COEFFICIENT) -> tuple:
+    """The :class:`Spread` of every varied plan value, in a fixed order (stage by stage, then temperature)."""
+    if distribution not in DISTRIBUTIONS:
+        raise UnknownModelError(f"distribution must be one of {', '.join(DISTRIBUTIONS)}, got {distribution!r}")
+    # A normal draw is clipped at 6 sigma = 2 tolerances: resistances stay positive below 50 %.
+    t = _fraction(resistors, "resistors", 0.5 if distribution == "normal" else 1.0)
+    beta_range = _range(beta, "beta", positive=True)
+    dv = _fraction(vbe_on, "vbe_on (volts)", 0.5)
+    temperatures = _range(temperature, "temperature", positive=False)
+    if (isinstance(beta_temperature_coefficient, bool) or not isinstance(beta_temperature_coefficient, numbers.Real)
+            or not math.isfinite(beta_temperature_coefficient)):
+        raise InvalidValueError(f"tolerance beta_temperature_coefficient: must be a finite number per °C, got "
+                                f"{beta_temperature_coefficient!r}")
+    if temperatures is not None:
+        for end in temperatures:
+            if 1.0 + beta_temperature_coefficient * (end - REFERENCE_TEMPERATURE) <= 0:
+                raise InvalidValueError(f"tolerance temperature {end:g} °C: the β temperature factor "
+                                        f"1 + {beta_temperature_coefficient:g}·(T − 25) is not positive there")
+            trial = plan.copy()
+            try:
+                trial.set("temperature", end)
+            except InvalidValueError as exc:
+                raise InvalidValueError(f"tolerance temperature: {exc}") from None
+    spreads = []
+    for sid in plan.stage_ids:
+        stage = plan.stage(sid)
+        if t > 0:
+            for name, value in stage.parameters().items():
+                address = f"{sid}.{name}"
+                if value is not None and plan.unit(address) == "Ω":
+                    spreads.append(Spread(address, "relative", float(value), 0.0, t))
+        if beta_range is not None and beta_range != (1.0, 1.0):
+            lo, hi = math.log(beta_range[0]), math.log(beta_range[1])
+            spreads.append(Spread(f"{sid}.device.beta", "log", float(stage.device.beta), (lo + hi) / 2, (hi - lo) / 2))
+        elif temperatures is not None and beta_temperature_coefficient != 0:
+            spreads.append(Spread(f"{sid}.device.beta", "log", float(stage.device.beta), 0.0, 0.0))
+        if dv > 0:
+            if model == "ebers-moll":
+                n = stage.device.emission_coefficient
+                spreads.append(Spread(f"{sid}.device.saturation_current", "log",
+                                      float(stage.device.saturation_current), 0.0,
+                                      dv / (n * thermal_voltage(REFERENCE_TEMPERATURE))))
+            else:
+                spreads.append(Spread(f"{sid}.device.vbe_on", "absolute", float(stage.device.vbe_on), 0.0, dv))
+    if temperatures is not None:
+        lo, hi = temperatures
+        spreads.append(Spread("temperature", "absolute", 0.0, (lo + hi) / 2, (hi - lo) / 2))
+    return tuple(spreads)
+
+
+def draw(spec: ToleranceSpec, start: int, stop: int) -> dict:
+    """Plan address -> sampled values of samples ``start`` … ``stop - 1`` (see the module docstring)."""
+    p = len(spec.spreads)
+    first, last = start // BLOCK, (stop - 1) // BLOCK
+    children = np.random.SeedSequence(spec.entropy).spawn(last + 1)[first:]
+    blocks = []
+    for child in children:
+        rng = np.random.default_rng(child)
+        if spec.distribution == "normal":
+            blocks.append(np.clip(rng.standard_normal((BLOCK, p)), -6.0, 6.0) / 3.0)
+        else:
+            blocks.append(rng.random((BLOCK, p)) * 2.0 - 1.0)
+    return values_at(spec, np.concatenate(blocks)[start - first * BLOCK: stop - first * BLOCK])
+
+
+def values_at(spec: ToleranceSpec, x: np.ndarray) -> dict:
+    """Plan address -> values for the unit variates ``x`` of shape (S, number of spreads), with β
+    moved by the temperature of each sample (see the module docstring)."""
+    values = {s.address: s.apply(x[:, j]) for j, s in enumerate(spec.spreads)}
+    temperature = values.get("temperature")
+    if temperature is not None and spec.beta_temperature_coefficient != 0:
+        factor = 1.0 + spec.beta_temperature_coefficient * (temperature - REFERENCE_TEMPERATURE)
+        for address in values:
+            if address.endswith(".device.beta"):
+                values[address] = values[address] * factor
+    return values
+
+
+def run_chunk(plan, spec: ToleranceSpec, start: int, stop: int) -> tuple:
+    """Draw and solve samples ``start`` … ``stop - 1``: (parameters, table, passed)."""
+    values = draw(spec, start, stop)
+    if not values:  # nothing varied: every sample is the plan itself
+        values = {"temperature": np.full(stop - start, float(plan.temperature))}
+        table = solve_table(plan, spec.model, values)
+        values = {}
+    else:
+        table = solve_table(plan, spec.model, values)
+    passed = passed_rule(table, plan.stage_ids, spec.required_amplitude)
+    return values, table, passed
+
+
+def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executor=None, progress=None) -> tuple:
+    """Run every chunk (in order, or through ``executor``) and assemble the whole run.
+
+    ``progress(done, total)`` is called after each chunk. A KeyboardInterrupt cancels the chunks
+    not yet started and is raised again.
+    """
+    bounds = [(a, min(a + chunk_size, samples)) for a in range(0, samples, chunk_size)]
+    parameters, table, passed = TableBuilder(samples), TableBuilder(samples), np.zeros(samples, dtype=bool)
+
+    def keep(start, chunk):
+        values, rows, ok = chunk
+        if values:
+            parameters.put(start, values)
+        table.put(start, rows)
+        passed[start:start + len(ok)] = ok
+
+    done = 0
+    if executor is None:
+        for start, stop in bounds:
+            keep(start, run_chunk(plan, spec, start, stop))
+            done += stop - start
+            if progress is not None:
+                progress(done, samples)
+    else:
+        futures = {executor.submit(run_chunk, plan, spec, start, stop): (start, stop) for start, stop in bounds}
+        try:
+            for future in concurrent.futures.as_completed(futures):
+                start, stop = futures[future]
+                keep(start, future.result())
+                done += stop - start
+                if progress is not None:
+                    progress(done, samples)
+        except BaseException:
+            for future in futures:
+                future.cancel()
+            raise
+    return parameters.table(), table.table(), passed
+
+
+@dataclass(frozen=True)
+class ToleranceSample:
+    """One sample of a tolerance run, as :meth:`ToleranceResult.worst` lists them.
+
+    Attributes
+    ----------
+    index : int
+    passed : bool
+    closeness : float
+        The smallest margin of the sample relative to its median over the run (1: a typical
+        sample, 0: at the edge, negative: past it; −inf when the sample did not solve).
+    limiting : str
+        The result address of that margin (``"s2.saturation_margin"`` …, or ``"status"``).
+    parameters : dict of str -> float
+        The sample's varied values (plan address -> value).
+    """
+    index: int
+    passed: bool
+    closeness: float
+    limiting: str
+    parameters: dict
+
+    def to_dict(self) -> dict:
+        return {"index": self.index, "passed": self.passed,
+                "closeness": self.closeness if math.isfinite(self.closeness) else None,
+                "limiting": self.limiting, "parameters": dict(self.parameters)}
+
+
+@dataclass(frozen=True, eq=False)
+class ToleranceResult:
+    """A tolerance run: the samples, which of them pass, and what drives the margins.
+
+    Attributes
+    ----------
+    parameters : dict of str -> ndarray of shape (S,)
+        Every varied plan address -> its sampled values; sample i is re-solved by
+        ``plan.set(address, parameters[address][i])`` for each address, then ``plan.solve()``.
+    sweep : PlanSweep
+        Every result address of every sample.
+    passed : ndarray of bool, shape (S,)
+        The rule of ``ampplan check`` exit 0 (status ok, every stage forward-active, no caution)
+        and, when ``required_amplitude`` was given, ``max_source_amplitude >= required_amplitude``.
+    seed : int
+        The entropy the samples were drawn from (pass it as ``seed`` to draw them again).
+    distribution, model : str
+    required_amplitude : float or None
+        Volts peak of source EMF.
+    spreads : tuple of Spread
+    """
+    parameters: dict
+    sweep: PlanSweep
+    passed: np.ndarray
+    seed: int
+    distribution: str
+    model: str
+    required_amplitude: float | None
+    spreads: tuple = field(repr=False)
+
+    @property
+    def samples(self) -> int:
+        return len(self.passed)
+
+    @property
+    def yield_fraction(self) -> float:
+        """Fraction of the samples that pass."""
+        return float(np.mean(self.passed)) if self.samples else math.nan
+
+    @property
+    def margin_addresses(self) -> tuple:
+        """The result addresses the statistics cover: each stage's margins and swing, the chain's amplitude."""
+        return tuple(f"{sid}.{name}" for sid in self.sweep.plan.stage_ids
+                     for name in ("saturation_margin", "cutoff_margin", "swing")) + ("max_source_amplitude",)
+
+    @cached_property
+    def percentiles(self) -> dict:
+        """Result address -> {percentile: value} over the samples that solved (``PERCENTILES``)."""
+        out = {}
+        for address in self.margin_addresses:
+            values = self.sweep[address]
+            values = values[np.isfinite(values)]
+            out[address] = {q: (float(np.percentile(values, q)) if values.size else math.nan) for q in PERCENTILES}
+        return out
+
+    @cached_property
+    def _closeness(self) -> tuple:
+        """(closeness, index of the limiting address) per sample (see :class:`ToleranceSample`)."""
+        names = [a for a in self.margin_addresses if not a.endswith(".swing")]
+        if self.required_amplitude is None:
+            names.remove("max_source_amplitude")
+        columns = []
+        for address in names:
+            values = np.asarray(self.sweep[address], dtype=float)
+            if address == "max_source_amplitude":
+                columns.append(values / self.required_amplitude - 1.0)
+                continue
+            finite = values[np.isfinite(values)]
+            scale = float(np.median(np.abs(finite))) if finite.size else 0.0
+            columns.append(values / scale if scale > 0 else np.where(values > 0, 1.0, np.where(values < 0, -1.0, 0.0)))
+        matrix = np.column_stack(columns) if columns else np.zeros((self.samples, 0))
+        filled = np.where(np.isnan(matrix), -np.inf, matrix)
+        which = np.argmin(filled, axis=1) if columns else np.zeros(self.samples, dtype=int)
+        closeness = filled[np.arange(self.samples), which] if columns else np.full(self.samples, np.inf)
+        closeness = np.where(self.sweep.ok, closeness, -np.inf)
+        return closeness, names, which
+
+    def worst(self, n: int = 10) -> tuple:
+        """The n samples nearest to failing (failed ones first), with their values.
+
+        Samples are ordered by pass/fail, then by :attr:`ToleranceSample.closeness`.
+        """
+        if isinstance(n, bool) or not isinstance(n, numbers.Integral) or n < 0:
+            raise InvalidValueError(f"ToleranceResult.worst: n must be a whole number >= 0, got {n!r}")
+        closeness, names, which = self._closeness
+        order = np.lexsort((closeness, self.passed))[:n]
+        out = []
+        for i in order.tolist():
+            limiting = "status" if not self.sweep.ok[i] else (names[which[i]] if names else "")
+            out.append(ToleranceSample(index=i, passed=bool(self.passed[i]), closeness=float(closeness[i]),
+                                       limiting=limiting,
+                                       parameters={a: float(v[i]) for a, v in self.parameters.items()}))
+        return tuple(out)
+
+    @cached_property
+    def sensitivity(self) -> dict:
+        """Result address -> ((plan address, rank correlation), ...), strongest first.
+
+        Spearman's rank correlation of each varied value with each margin, over the samples that
+        solved: the Pearson correlation of their ranks (``scipy.stats.rankdata``, ties averaged).
+        A value or margin that does not vary is left out.
+        """
+        ok = self.sweep.ok
+        varied = {a: v[ok] for a, v in self.parameters.items() if np.ptp(v) > 0}
+        ranks = {a: _centred(stats.rankdata(v)) for a, v in varied.items()}
+        out = {}
+        for address in self.margin_addresses:
+            margin = np.asarray(self.sweep[address], dtype=float)[ok]
+            finite = np.isfinite(margin)
+            if finite.sum() < 3 or np.ptp(margin[finite]) == 0:
+                out[address] = ()
+                continue
+            if finite.all():
+                m = _centred(stats.rankdata(margin))
+                pairs = [(a, float(np.dot(r, m))) for a, r in ranks.items()]
+            else:
+                m = _centred(stats.rankdata(margin[finite]))
+                pairs = [(a, float(np.dot(_centred(stats.rankdata(varied[a][finite])), m))) for a in varied]
+            pairs = [(a, rho) for a, rho in pairs if math.isfinite(rho)]
+            out[address] = tuple(sorted(pairs, key=lambda p: -abs(p[1])))
+        return out
+
+    def to_dict(self, samples: bool = False) -> dict:
+        """Plain, JSON-ready summary (with every sample's values and results when ``samples``)."""
+        def number(v):
+            return v if v is not None and math.isfinite(v) else None
+        out = {"model": self.model, "samples": self.samples, "seed": self.seed, "distribution": self.distribution,
+               "required_amplitude": self.required_amplitude, "yield": self.yield_fraction,
+               "passed": int(np.sum(self.passed)), "failed_to_solve": int(np.sum(~self.sweep.ok)),
+               "spreads": {s.address: {"low": s.low, "high": s.high} for s in self.spreads},
+               "percentiles": {a: {str(q): number(v) for q, v in p.items()} for a, p in self.percentiles.items()},
+               "sensitivity": {a: [[p, rho] for p, rho in pairs[:5]] for a, pairs in self.sensitivity.items()},
+               "worst": [s.to_dict() for s in self.worst(5)]}
+        if samples:
+            out["sweep"] = self.sweep.to_dict()
+            out["passed_samples"] = self.passed.tolist()
+        return out
+
+    def __repr__(self) -> str:
+        lines = [f"ToleranceResult({self.model}, {self.samples} samples, {self.distribution}, seed {self.seed}): "
+                 f"yield {100 * self.yield_fraction:.2f} %"
+                 + (f" (required amplitude {self.required_amplitude:g} V)" if self.required_amplitude else "")]
+        for address, p in self.percentiles.items():
+            lines.append(f"  {address}: " + ", ".join(f"p{q} {v:.4g}" for q, v in p.items()))
+        for address, pairs in self.sensitivity.items():
+            if pairs:
+                lines.append(f"  {address} driven by " + ", ".join(f"{a} ({rho:+.2f})" for a, rho in pairs[:3]))
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        e = html.escape
+        head = "".join(f"<th>p{q}</th>" for q in PERCENTILES)
+        rows = "".join(f"<tr><td>{e(a)}</td>" + "".join(f"<td>{v:.4g}</td>" for v in p.values()) + "</tr>"
+                       for a, p in self.percentiles.items())
+        return (f"<div><strong>Tolerance run ({e(self.model)}, {self.samples} samples): yield "
+                f"{100 * self.yield_fraction:.2f} %</strong><table><thead><tr><th>result</th>{head}</tr></thead>"
+                f"<tbody>{rows}</tbody></table></div>")
+
+
+def _centred(ranks: np.ndarray) -> np.ndarray:
+    """Ranks centred and scaled to unit norm, so a dot product is their Pearson correlation."""
+    centred = ranks - ranks.mean()
+    norm = math.sqrt(float(np.dot(centred, centred)))
+    return centred / norm if norm > 0 else np.full_like(centred, np.nan)
+
+
+def _samples(value, name: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 1:
+        raise InvalidValueError(f"tolerance {name}: must be a whole number >= 1, got {value!r}")
+    return int(value)
+
+
+def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5, 2.0), vbe_on=0.01,
+              temperature=(0.0, 50.0), distribution: str = "uniform", required_amplitude=None,
+              model: str = "constant-drop", executor=None, *, chunk_size: int = CHUNK,
+              beta_temperature_coefficient: float = BETA_TEMPERATURE_COEFFICIENT, progress=None) -> ToleranceResult:
+    """Monte Carlo tolerance run of a plan (what is varied and how: see the module docstring).
+
+    Parameters
+    ----------
+    plan : Plan
+        Left unchanged.
+    samples : int
+    seed : int, optional
+        Entropy of the run; None draws fresh entropy (reported as ``result.seed``).
+    resistors : float or None
+        Tolerance of every stage resistor as a fraction (0.05: ±5 %).
+    beta : (float, float) or None
+        Factor range of each stage transistor's β.
+    vbe_on : float or None
+        ± volts of each stage transistor's V_BE(on).
+    temperature : (float, float) or None
+        Ambient temperature range, °C (None: the plan's temperature).
+    distribution : {"uniform", "normal"}
+        ``"normal"`` treats each tolerance as 3σ.
+    required_amplitude : float, optional
+        Volts peak of source EMF that every passing sample must handle unclipped.
+    model : {"constant-drop", "ebers-moll"}
+    executor : concurrent.futures.Executor, optional
+        Runs the chunks (a process pool, a cluster's executor); None runs them here in order.
+    chunk_size : int
+        Samples per batched solve; the peak memory grows with it, not with ``samples``.
+    beta_temperature_coefficient : float
+        Fractional change of β per °C (see the module docstring).
+    progress : callable, optional
+        ``progress(done, total)`` after each chunk.
+
+    Returns
+    -------
+    ToleranceResult
+
+    Raises
+    ------
+    InvalidValueError, UnknownModelError
+        Bad spreads, sample counts, seed, distribution, model or executor.
+    """
+    check_model(model)
+    samples = _samples(samples, "samples")
+    chunk_size = _samples(chunk_size, "chunk_size")
+    if required_amplitude is not None and (isinstance(required_amplitude, bool)
+                                           or not isinstance(required_amplitude, numbers.Real)
+                                           or not 0 < required_amplitude < math.inf):
+        raise InvalidValueError(f"tolerance required_amplitude: must be a positive number of volts, got "
+                                f"{required_amplitude!r}")
+    if seed is not None and (isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0):
+        raise InvalidValueError(f"tolerance seed: must be a whole number >= 0 or None, got {seed!r}")
+    if executor is not None and not callable(getattr(executor, "submit", None)):
+        raise InvalidValueError(f"tolerance executor: must be a concurrent.futures.Executor, got {executor!r}")
+    if progress is not None and not callable(progress):
+        raise InvalidValueError(f"tolerance progress: must be callable as progress(done, total), got {progress!r}")
+    spreads = spreads_of(plan, model, resistors, beta, vbe_on, temperature, distribution, beta_temperature_coefficient)
+    entropy = int(np.random.SeedSequence(seed).entropy)
+    spec = ToleranceSpec(spreads=spreads, entropy=entropy, distribution=distribution, model=model,
+                         beta_temperature_coefficient=float(beta_temperature_coefficient),
+                         required_amplitude=None if required_amplitude is None else float(required_amplitude))
+    frozen = plan.copy()
+    parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress)
+    sweep = PlanSweep(values=parameters, model=model, plan=frozen, _table=table)
+    return ToleranceResult(parameters=parameters, sweep=sweep, passed=passed, seed=entropy,
+                           distribution=distribution, model=model, required_amplitude=spec.required_amplitude,
+                           spreads=spreads)
+
