@@ -383,7 +383,7 @@ def add_commands(commands) -> None:
     tolerance.add_argument("--resistors", default="5%", help="resistor tolerance: 5%% or 0.05; none (default 5%%)")
     tolerance.add_argument("--beta", default="0.5..2", help="beta factor range LO..HI; none (default 0.5..2)")
     tolerance.add_argument("--vbe-on", default="10m", help="V_BE(on) spread, ± volts; none (default 10m)")
-    tolerance.add_argument("--temperature", default="0..50", help="ambient range, °C; none (default 0..50)")
+    tolerance.add_argument("--temperature", default="0..50", help="ambient range, °C; none (default 0..50; write --temperature=-20..50 for a negative start)")
     tolerance.add_argument("--distribution", choices=("uniform", "normal"), default="uniform",
                            help="uniform over each range, or normal with the range as ±3 sigma")
     tolerance.add_argument("--required-amplitude", metavar="VOLTS",

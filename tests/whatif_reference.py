@@ -39,8 +39,10 @@ def single_solves(plan, values: dict, model: str, addresses) -> tuple:
         cautions.append(() if result is None else tuple(result.cautions))
         for address in addresses:
             if result is None:
-                value = status if address == "status" else (None if address.endswith(("region", "limiting_stage"))
-                                                            else math.nan)
+                # A batch marks a failed sample's regions "unsolved" (the solver's word) and has no
+                # limiting stage.
+                value = (status if address == "status" else "unsolved" if address.endswith("region")
+                         else None if address.endswith("limiting_stage") else math.nan)
             else:
                 value = result[address]
             table[address].append(value)
