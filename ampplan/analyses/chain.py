@@ -173,8 +173,9 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
         dvce_dc = s * (node(v_dc, q.collector) - node(v_dc, q.emitter))
         q_vce, q_ic = s * vce[:, j], ic[:, j]
         edge = edges[:, j]
-        # A saturated constant-drop transistor sits exactly on the edge; keep rounding out of the margin.
-        margin = np.where(np.abs(q_vce - edge) > 1e-12 * np.maximum(1.0, np.abs(q_vce)), q_vce - edge, 0.0)
+        # A saturated constant-drop transistor sits exactly on the edge; keep rounding out of the margin
+        # (and a failed sample's NaN in it).
+        margin = np.where(np.abs(q_vce - edge) <= 1e-12 * np.maximum(1.0, np.abs(q_vce)), 0.0, q_vce - edge)
         r_ac = -dvce_ac
         to_output = np.abs(_ratio(node(v_ac, nodes.output), dvce_ac))
         with np.errstate(invalid="ignore"):
