@@ -15,7 +15,7 @@ from typing import Literal, get_args
 import numpy as np
 from scipy import constants
 
-from .errors import UnknownModelError, UnknownNameError
+from .errors import InvalidValueError, UnknownModelError, UnknownNameError
 from .validation import check_number, check_samples, shown
 
 __all__ = [
@@ -25,6 +25,8 @@ __all__ = [
     "thermal_voltage",
     "REFERENCE_TEMPERATURE",
     "ABSOLUTE_ZERO",
+    "TEMPERATURE_RANGE",
+    "check_temperature",
     "DEVICE_UNITS",
     "OPTIONAL_PARAMETERS",
     "check_parameter",
@@ -37,8 +39,16 @@ POLARITIES: tuple[str, ...] = get_args(Polarity)
 
 #: Temperature (degrees C) at which device parameters are given, and the default solve temperature.
 REFERENCE_TEMPERATURE = 25.0
-#: Absolute zero in degrees Celsius (scipy.constants): every temperature must lie above it.
+#: Absolute zero in degrees Celsius (scipy.constants).
 ABSOLUTE_ZERO = -constants.zero_Celsius
+#: Temperatures (degrees C, both ends included) at which the device models are taken as valid, and
+#: outside which every solve, batch sample and plan is refused. Common practice, no source: -55 °C
+#: is the cold end of the widest grade silicon parts are usually specified over, 150 °C the usual
+#: limit of a silicon junction (where the dissipation derating of the analyses reaches zero). The
+#: constant-drop laws are linear fits about 25 °C (V_BE(on) falls about 2 mV/K) and the I_S law
+#: is a fit too; far outside this span they give nonsense (an NPN "on" at a negative V_BE), and
+#: near absolute zero V_T = kT/q vanishes.
+TEMPERATURE_RANGE = (-55.0, 150.0)
 
 
 def thermal_voltage(temperature=REFERENCE_TEMPERATURE):
@@ -57,6 +67,39 @@ def thermal_voltage(temperature=REFERENCE_TEMPERATURE):
     kelvin = np.asarray(temperature, dtype=float) + constants.zero_Celsius
     v_t = constants.Boltzmann * kelvin / constants.elementary_charge
     return float(v_t) if v_t.ndim == 0 else v_t
+
+
+def check_temperature(value, where: str = "temperature", samples: bool = False):
+    """Validate a temperature in degrees Celsius against :data:`TEMPERATURE_RANGE`.
+
+    Parameters
+    ----------
+    value : object
+        One number, or with ``samples`` a number or a 1-D array of samples.
+    where : str
+        What holds the value, for the message (``"temperature"``, ``"batch['temperature']:"``).
+    samples : bool
+        Accept a batch of samples; returns a float ndarray of shape () or (S,).
+
+    Returns
+    -------
+    float or ndarray
+
+    Raises
+    ------
+    InvalidValueError
+        Naming ``where``, the valid range and the value (and the first bad sample of a batch).
+    """
+    bounds = dict(minimum=TEMPERATURE_RANGE[0], minimum_inclusive=True, maximum=TEMPERATURE_RANGE[1], unit="°C")
+    try:
+        if samples:
+            return check_samples(value, where, **bounds)
+        return check_number(value, where, **bounds)
+    except InvalidValueError as error:
+        if "must be >=" not in str(error):
+            raise               # not a finite number at all: the plain message says it all
+        raise InvalidValueError(f"{error} (the device models are valid from {TEMPERATURE_RANGE[0]:g} °C to "
+                                f"{TEMPERATURE_RANGE[1]:g} °C only)") from None
 
 
 @dataclass(frozen=True)

@@ -17,7 +17,7 @@ from typing import Literal, get_args
 import numpy as np
 
 from .circuit import GROUND, RESISTANCE_RANGE, VALUE_BOUNDS, VOLTAGE_LIMIT, Bjt, Circuit, Resistor, did_you_mean
-from .devices import ABSOLUTE_ZERO, DEVICE_UNITS, MAY_BE_INFINITE, PARAMETER_BOUNDS, PARAMETER_MAXIMA
+from .devices import DEVICE_UNITS, MAY_BE_INFINITE, PARAMETER_BOUNDS, PARAMETER_MAXIMA, TEMPERATURE_RANGE
 from .devices import FIELDS as DEVICE_FIELDS
 from .devices import PARAMETERS as DEVICE_PARAMETERS
 from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
@@ -52,7 +52,8 @@ PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
     Parameter("load_resistance", "Ω", None, "load resistance, ohms (None: no load)",
               minimum=RESISTANCE_RANGE[0], minimum_inclusive=True, maximum=RESISTANCE_RANGE[1]),
     Parameter("temperature", "°C", 25.0, "ambient and junction temperature, degrees Celsius",
-              minimum=ABSOLUTE_ZERO, optional=False, scale="linear"),
+              minimum=TEMPERATURE_RANGE[0], minimum_inclusive=True, maximum=TEMPERATURE_RANGE[1], optional=False,
+              scale="linear"),
     Parameter("resistor_power_rating", "W", 0.25, "power rating of every resistor, watts (common practice)",
               optional=False),
     Parameter("min_headroom", "V", 1.0, "caution when V_CE is closer than this to the forward-active edge, volts",
@@ -694,7 +695,8 @@ def _addresses(circuit: Circuit, ids, stages, built) -> dict:
         if name in have:
             add(name, name, name, **resistor)
     p = PLAN_PARAMETERS["temperature"]
-    add("temperature", None, "temperature", p.unit, minimum=p.minimum)
+    add("temperature", None, "temperature", p.unit, minimum=p.minimum, maximum=p.maximum,
+        minimum_inclusive=p.minimum_inclusive)
     for name in ANALYSIS_VALUES:
         p = PLAN_PARAMETERS[name]
         add(name, None, None, p.unit, minimum=p.minimum, maximum=p.maximum, minimum_inclusive=p.minimum_inclusive)

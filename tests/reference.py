@@ -613,19 +613,25 @@ def ebers_moll_root(elements, temperature=25.0, start=None):
     return out
 
 
-def em_region(element, solution) -> str:
-    """Region of an Ebers–Moll solution by the API notes' thresholds.
+def em_region(element, solution, temperature_c: float = 25.0) -> str:
+    """Region of an Ebers–Moll solution by the API notes' rule (ampplan.solver.regions).
 
-    A junction conducts when its NPN-frame voltage is at least its on-voltage minus 0.2 V; cutoff when
-    neither conducts; else forward-active when V_CE >= V_CE(sat), reverse-active when
-    V_CE <= -V_CE(sat), saturation otherwise.
+    A junction conducts when the current it injects, I_S (exp(V / (n V_T)) - 1), is at least
+    100 nA; cutoff when neither conducts; else forward-active when V_CE >= V_CE(sat),
+    reverse-active when V_CE <= -V_CE(sat), saturation otherwise. The parameters are taken as
+    given at ``temperature_c`` (only V_T is moved; use it at 25 °C or with scaled parameters).
     """
     p = element.params()
     s = sign(element)
     t = solution["transistors"][element.name]
     vbe, vce = s * t["vbe"], s * t["vce"]
     vbc = vbe - vce
-    if vbe < p["vbe_on"] - 0.2 and vbc < p["vbc_on"] - 0.2:
+    nvt = p["emission_coefficient"] * thermal_voltage(temperature_c)
+
+    def conducts(v):
+        return p["saturation_current"] * math.expm1(min(v / nvt, 700.0)) >= 100e-9
+
+    if not conducts(vbe) and not conducts(vbc):
         return "cutoff"
     if vce >= p["vce_sat"]:
         return "forward-active"

@@ -134,8 +134,9 @@ def test_every_reported_region_satisfies_its_checks(circuit, model):
         # cases within 1 uV of a threshold are left out as ambiguous.
         for e in ref.transistors_of(elements):
             p, s, t = e.params(), ref.sign(e), op.transistors[e.name]
-            edges = [s * t.vbe - (p["vbe_on"] - 0.2), s * (t.vbe - t.vce) - (p["vbc_on"] - 0.2),
-                     s * t.vce - p["vce_sat"], s * t.vce + p["vce_sat"]]
+            # The conduction voltage n V_T ln(1 + 100 nA / I_S) inverts the junction law at 100 nA.
+            on = p["emission_coefficient"] * ref.thermal_voltage(25.0) * math.log1p(100e-9 / p["saturation_current"])
+            edges = [s * t.vbe - on, s * (t.vbe - t.vce) - on, s * t.vce - p["vce_sat"], s * t.vce + p["vce_sat"]]
             if min(abs(x) for x in edges) < 1e-6:
                 continue
             assert t.region == ref.em_region(e, as_solution(op)), e.name

@@ -10,6 +10,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import constants
 
 import ampplan
@@ -135,3 +137,104 @@ def test_constant_drop_vbe_on_moves_with_temperature():
         t = circuit.solve(model="constant-drop", temperature=celsius).transistors["Q1"]
         assert t.vbe == pytest.approx(vbe, rel=1e-12)
         assert t.ib == pytest.approx((12.0 - vbe) / 240e3, rel=1e-12)
+
+
+# -- the temperature range the models are valid in (issue 9 items 1 and 4) ------------------------
+
+def _divider_stage(device=None):
+    c = ampplan.Circuit()
+    c.voltage_source("VCC", "vcc", "gnd", 12.0)
+    c.resistor("R1", "vcc", "b", 82e3)
+    c.resistor("R2", "b", "gnd", 15e3)
+    c.resistor("RC", "vcc", "c", 5.6e3)
+    c.resistor("RE", "e", "gnd", 1.2e3)
+    c.bjt("Q1", collector="c", base="b", emitter="e", device=device or ampplan.Transistor())
+    return c
+
+
+def test_documented_range():
+    # The documented range (common practice, no source): -55 °C, the cold end of the widest grade
+    # silicon parts are specified over, to 150 °C, the usual silicon junction limit, which is also
+    # where the dissipation analysis derates a power rating to zero.
+    from ampplan.analyses import dissipation
+    assert ampplan.devices.TEMPERATURE_RANGE == (-55.0, 150.0)
+    assert ampplan.devices.TEMPERATURE_RANGE[1] == dissipation.JUNCTION_LIMIT
+
+
+@pytest.mark.parametrize("model", ["constant-drop", "ebers-moll"])
+@pytest.mark.parametrize("celsius", [-273.15, -273.0, -200.0, -135.0, -55.001, 150.001, 200.0, 500.0, 3000.0])
+def test_temperature_outside_the_range_is_refused_naming_it(model, celsius):
+    # Issue 9 items 1 and 4: hundreds of degrees used to give a forward-active NPN at a negative
+    # V_BE with status ok; below about -135 °C Ebers–Moll failed blaming ideal sources that were not
+    # there, and near absolute zero a divide-by-zero warning leaked (warnings are errors here).
+    with pytest.raises(ampplan.errors.InvalidValueError,
+                       match=r"^temperature must be >= -55 °C and <= 150 °C, got .*valid from -55 °C to 150 °C"):
+        _divider_stage().solve(model=model, temperature=celsius)
+
+
+@pytest.mark.parametrize("model", ["constant-drop", "ebers-moll"])
+@pytest.mark.parametrize("celsius", [-55.0, 150.0])
+def test_both_ends_of_the_range_solve(model, celsius):
+    op = _divider_stage().solve(model=model, temperature=celsius)
+    assert op.status == "ok" and op.transistors["Q1"].region == "forward-active"
+
+
+def test_batch_temperature_outside_the_range_names_the_key_and_sample():
+    with pytest.raises(ampplan.errors.InvalidValueError,
+                       match=r"batch\['temperature'\]: must be >= -55 °C and <= 150 °C, got 425 at sample 2"):
+        _divider_stage().solve(batch={"temperature": [25.0, 150.0, 425.0]})
+
+
+def test_plan_temperature_takes_its_bounds_from_the_device_range():
+    from ampplan.plan import PLAN_PARAMETERS
+    p = PLAN_PARAMETERS["temperature"]
+    assert (p.minimum, p.maximum, p.minimum_inclusive) == (-55.0, 150.0, True)
+    with pytest.raises(ampplan.errors.InvalidValueError, match="temperature.*<= 150 °C, got 300"):
+        ampplan.Plan(temperature=300.0)
+    plan = ampplan.Plan(temperature=150.0)
+    with pytest.raises(ampplan.errors.InvalidValueError, match="temperature.*>= -55 °C.*got -135"):
+        plan.set("temperature", -135.0)
+
+
+@pytest.mark.parametrize("vbe_on, coefficient, celsius", [(0.3, -3e-3, 150.0), (0.1, -2e-3, 80.0),
+                                                          (0.2, 4e-3, -55.0)])
+def test_device_whose_on_voltage_is_not_positive_at_the_temperature_is_refused(vbe_on, coefficient, celsius):
+    # Issue 9 item 1: never a forward-active junction with a non-positive V_BE(on) at its temperature.
+    # V_BE(on)(T) = vbe_on + coefficient (T - 25 °C) (the documented constant-drop law).
+    device = ampplan.Transistor(vbe_on=vbe_on, vbe_temperature_coefficient=coefficient)
+    for model in ("constant-drop", "ebers-moll"):
+        with pytest.raises(ampplan.errors.InvalidValueError,
+                           match=rf"transistor Q1: V_BE\(on\) at {celsius:g} °C would be -"):
+            _divider_stage(device).solve(model=model, temperature=celsius)
+    with pytest.raises(ampplan.errors.InvalidValueError, match=r"transistor Q1: V_BE\(on\) .* \(sample 1\)"):
+        _divider_stage(device).solve(batch={"temperature": [25.0, celsius]})
+
+
+@settings(max_examples=80)
+@given(vbe_on=st.floats(0.05, 0.9), coefficient=st.floats(-5e-3, 1e-3), celsius=st.floats(-55.0, 150.0),
+       vbc_on=st.one_of(st.none(), st.floats(0.05, 0.9)), polarity=st.sampled_from(["npn", "pnp"]))
+def test_no_conducting_junction_at_a_non_positive_on_voltage(vbe_on, coefficient, celsius, vbc_on, polarity):
+    # Source: the documented constant-drop law V(T) = V(25 °C) + coefficient (T - 25 °C). Every
+    # device and temperature in the valid range either solves with each conducting junction at a
+    # positive voltage (NPN frame), or is refused naming the transistor.
+    device = ampplan.Transistor(polarity=polarity, vbe_on=vbe_on, vbc_on=vbc_on, vbe_temperature_coefficient=coefficient)
+    on_be = vbe_on + coefficient * (celsius - 25.0)
+    on_bc = (vbe_on if vbc_on is None else vbc_on) + coefficient * (celsius - 25.0)
+    c = _divider_stage(device)
+    if polarity == "pnp":
+        c = ampplan.Circuit()
+        c.voltage_source("VCC", "vcc", "gnd", -12.0)
+        for name, a, b, r in (("R1", "vcc", "b", 82e3), ("R2", "b", "gnd", 15e3), ("RC", "vcc", "c", 5.6e3),
+                              ("RE", "e", "gnd", 1.2e3)):
+            c.resistor(name, a, b, r)
+        c.bjt("Q1", collector="c", base="b", emitter="e", device=device)
+    if min(on_be, on_bc) <= 0.0:
+        with pytest.raises(ampplan.errors.InvalidValueError, match=r"transistor Q1: V_B[EC]\(on\)"):
+            c.solve(temperature=celsius)
+        return
+    t = c.solve(temperature=celsius).transistors["Q1"]
+    s = device.sign
+    if t.region in ("forward-active", "saturation"):
+        assert s * t.vbe == pytest.approx(on_be, rel=1e-9) and s * t.vbe > 0
+    if t.region == "reverse-active":
+        assert s * (t.vbe - t.vce) == pytest.approx(on_bc, rel=1e-9) and s * (t.vbe - t.vce) > 0

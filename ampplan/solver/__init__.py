@@ -15,6 +15,7 @@ from typing import Literal, get_args
 import numpy as np
 
 from ..circuit import Circuit
+from ..devices import thermal_voltage
 from ..validation import shown
 from ..errors import (ConvergenceError, InvalidValueError, NoConsistentRegionError, UnknownModelError,
                       UnknownNameError)
@@ -146,22 +147,12 @@ def _newton_start(layout, params):
 
 
 def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
-    x, converged, iterations, method = em.solve_newton(layout, params, _newton_start(layout, params),
-                                                      warm_start=warm_start)
-    if single and method[0] == "overdriven":
-        raise ConvergenceError(
-            "no physical operating point: a junction of "
-            f"{', '.join(q.name for q in layout.bjts)} is driven beyond "
-            f"{em.EXP_LIMIT:g}·n·V_T (about {em.EXP_LIMIT * 0.0257:.1f} V) forward, which only ideal sources "
-            "can do; put a resistance in series with the source driving it",
-            iterations=int(iterations[0]))
+    x, converged, iterations, method, rejected = em.solve_newton(layout, params, _newton_start(layout, params),
+                                                                 warm_start=warm_start)
     if single and not converged[0]:
-        raise ConvergenceError(
-            f"Ebers–Moll Newton did not converge for the circuit with transistors "
-            f"{', '.join(q.name for q in layout.bjts) or '(none)'}, after {int(iterations[0])} iterations "
-            "including the conductance ladder and source stepping; check for a node held only through "
-            "reverse-biased junctions, or use model='constant-drop'",
-            iterations=int(iterations[0]))
+        raise ConvergenceError(_em_failure_message(layout, params, method[0], rejected, int(iterations[0])),
+                               iterations=int(iterations[0]),
+                               last_iterate=dict(zip(layout.nodes, rejected[0, :layout.n_nodes].tolist())))
     regions, checks = em.classify(layout, params, x)
     status = np.where(converged, "ok", "no-convergence")
     names, values, limits, margins = checks
@@ -171,11 +162,56 @@ def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
                   "ebers-moll", " + ".join(methods), int(iterations.max(initial=0)), single)
 
 
+def _em_failure_message(layout, params, method, rejected, iterations):
+    """Why a single Ebers–Moll solve has no answer, in terms of what was measured."""
+    from ..units import format_quantity as fq
+    names = ", ".join(q.name for q in layout.bjts) or "(none)"
+    temperature = float(params.temperature[0])
+    if method == "overdriven":
+        dev = params.at_temperature
+        nvt = dev["emission_coefficient"][0] * thermal_voltage(temperature)
+        s = layout.sign
+        x = rejected[:1]
+        v_be = (s * (x[:, layout.q_b] - x[:, layout.q_e]))[0]
+        v_bc = (s * (x[:, layout.q_b] - x[:, layout.q_c]))[0]
+        over = np.maximum(v_be, v_bc) / nvt
+        j = int(np.argmax(over))
+        junction, volts = ("base-emitter", v_be[j]) if v_be[j] >= v_bc[j] else ("base-collector", v_bc[j])
+        i_s = float(dev["saturation_current"][0, j])
+        reach = i_s * np.exp(em.EXP_LIMIT)   # the largest current the exponential law carries
+        head = (f"no operating point within the Ebers–Moll law's range: the only answer found holds the "
+                f"{junction} junction of {layout.bjts[j].name} at {volts:.4g} V, beyond {em.EXP_LIMIT:g}·n·V_T = "
+                f"{em.EXP_LIMIT * nvt[j]:.4g} V at {temperature:g} °C, where the exponential is continued as a "
+                f"straight line; ")
+        if reach > 1.0:
+            return head + (f"the law would carry {reach:.3g} A there, so only a source with too little series "
+                           "resistance can hold the junction that far forward: put a resistance in series with it")
+        return head + (f"at its saturation current ({fq(i_s, 'A')} at {temperature:g} °C) the law carries at "
+                       f"most {fq(reach, 'A')} before that, less than the circuit asks of it: the saturation "
+                       "current is too small")
+    if method == "residual too large":
+        check = em.residuals(layout, take_samples(params, np.array([0])), rejected[:1])
+        parts = []
+        if check.kcl[0] > check.kcl_allowed[0]:
+            parts.append(f"Kirchhoff's current law by {fq(check.kcl[0], 'A')} at node "
+                         f"{layout.nodes[int(check.kcl_node[0])]} (allowed {fq(check.kcl_allowed[0], 'A')})")
+        if check.device[0] > check.device_allowed[0]:
+            parts.append(f"the device equations of {layout.bjts[int(check.device_transistor[0])].name} by "
+                         f"{fq(check.device[0], 'A')} (allowed {fq(check.device_allowed[0], 'A')})")
+        return (f"Ebers–Moll Newton stopped at an answer for transistors {names} that misses "
+                + " and ".join(parts) + f" (relative tolerance {em.RESIDUAL_TOLERANCE:g}), so it is not reported; "
+                "this happens when the equations are too ill-conditioned for double precision, for example "
+                "with a saturation current or a resistance far outside the usual range")
+    return (f"Ebers–Moll Newton did not converge for the circuit with transistors {names}, after {iterations} "
+            "iterations including the conductance ladder and source stepping; check for a node held only through "
+            "reverse-biased junctions, or use model='constant-drop'")
+
+
 # -- constant-drop --------------------------------------------------------------------------------
 def _em_guess(layout, params, rows, warm_start=True):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
     sub = take_samples(params, rows)
-    x, converged, iterations, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
+    x, converged, iterations, _, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
     regions, _ = em.classify(layout, sub, x)
     regions[~converged] = cd.ACTIVE
     return regions.astype(np.int8), int(iterations.max(initial=0))

@@ -22,7 +22,7 @@ import numpy as np
 
 from ..circuit import (GROUND, VALUE_BOUNDS, VALUE_FIELD, Bjt, Capacitor, Circuit, CurrentSource, Resistor,
                        VoltageSource, did_you_mean)
-from ..devices import ABSOLUTE_ZERO, check_parameter
+from ..devices import check_parameter, check_temperature, scaled_to_temperature
 from ..devices import PARAMETERS as DEVICE_PARAMETERS
 from ..errors import InvalidValueError, UnknownNameError
 from ..validation import check_number, check_samples
@@ -53,13 +53,17 @@ class Parameters:
     device : dict of str -> ndarray of shape (S, n_transistors)
         Every numeric transistor parameter, at 25 °C.
     temperature : ndarray, shape (S,)
-        Degrees Celsius.
+        Degrees Celsius, within :data:`ampplan.devices.TEMPERATURE_RANGE`.
+    at_temperature : dict of str -> ndarray of shape (S, n_transistors)
+        ``device`` moved to ``temperature`` by :func:`ampplan.devices.scaled_to_temperature`
+        (computed once here, read by both device models).
     """
     conductance: np.ndarray
     voltage: np.ndarray
     current: np.ndarray
     device: dict
     temperature: np.ndarray
+    at_temperature: dict
 
     @property
     def size(self) -> int:
@@ -211,11 +215,14 @@ class Layout:
         InvalidValueError
             A batch that is not a dict, a key that is not text, a parameter a batch cannot vary
             (``polarity``), arrays of different lengths, or a bad value (naming the key and the
-            index of the first bad sample); a bad ``temperature``.
+            index of the first bad sample); a ``temperature`` outside
+            :data:`ampplan.devices.TEMPERATURE_RANGE`; a transistor whose constant-drop
+            on-voltage (``vbe_on`` or ``vbc_on``) is not positive at its temperature (naming the
+            transistor, the temperature and the sample).
         UnknownNameError
             A batch key that names no element or transistor parameter.
         """
-        temperature = check_number(temperature, "temperature", minimum=ABSOLUTE_ZERO, unit="°C")
+        temperature = check_temperature(temperature)
         if batch is not None and not isinstance(batch, Mapping):
             raise InvalidValueError(f"batch must be a dict of name -> values, got {type(batch).__name__}")
         if not batch:
@@ -265,7 +272,7 @@ class Layout:
         for key, value in batch.items():
             target = targets[key]
             if target == "temperature":
-                arrays[key] = check_samples(value, f"batch[{key!r}]:", minimum=ABSOLUTE_ZERO, unit="°C")
+                arrays[key] = check_temperature(value, f"batch[{key!r}]:", samples=True)
             elif isinstance(target, tuple):
                 arrays[key] = check_parameter(target[1], value, where=f"batch[{key!r}]:", samples=True)
             else:
@@ -298,13 +305,35 @@ class Layout:
             device[pname] = col
         # vbc_on None means "same as vbe_on"; resolved here, after the batch's overrides of either.
         device["vbc_on"] = np.where(np.isnan(device["vbc_on"]), device["vbe_on"], device["vbc_on"])
+        at_temperature = scaled_to_temperature(device, temp[:, None])
+        self._check_on_voltages(device, at_temperature, temp, single=not sizes)
         return Parameters(
             conductance=column(self.resistors, "resistance", lambda r: 1.0 / np.asarray(r, dtype=float)),
             voltage=column(self.voltage_sources, "voltage"),
             current=column(self.current_sources, "current"),
             device=device,
             temperature=temp,
+            at_temperature=at_temperature,
         )
+
+    def _check_on_voltages(self, device: dict, at_temperature: dict, temperature: np.ndarray, single: bool) -> None:
+        """Refuse a transistor whose constant-drop on-voltage is not positive at its temperature.
+
+        V_BE(on) moves by ``vbe_temperature_coefficient`` per kelvin; a device and temperature
+        that take it to zero or below would make a junction "conduct" at a reverse voltage.
+        """
+        for pname, label in (("vbe_on", "V_BE(on)"), ("vbc_on", "V_BC(on)")):
+            bad = at_temperature[pname] <= 0.0
+            if not bad.any():
+                continue
+            k, j = (int(i) for i in np.argwhere(bad)[0])
+            q = self.bjts[j]
+            at = "" if single else f" (sample {k})"
+            raise InvalidValueError(
+                f"transistor {q.name}: {label} at {temperature[k]:g} °C would be "
+                f"{at_temperature[pname][k, j]:.4g} V{at}, from {pname} = {device[pname][k, j]:g} V at 25 °C "
+                f"moving {device['vbe_temperature_coefficient'][k, j]:g} V/K; an on-voltage must stay positive: "
+                "raise it, or bring the temperature coefficient or the temperature back")
 
 
 def take_samples(params, rows, device: bool = True):
@@ -312,4 +341,5 @@ def take_samples(params, rows, device: bool = True):
     return Parameters(conductance=params.conductance[rows], voltage=params.voltage[rows],
                       current=params.current[rows],
                       device={k: v[rows] for k, v in params.device.items()} if device else {},
-                      temperature=params.temperature[rows])
+                      temperature=params.temperature[rows],
+                      at_temperature={k: v[rows] for k, v in params.at_temperature.items()} if device else {})

@@ -11,22 +11,37 @@ every terminal current):
     i_b  = (I_S / β_F) · (e_be - 1) + (I_S / β_R) · (e_bc - 1)
     i_e  = i_c + i_b
 
-Newton's method runs on the same unknowns as the constant-drop model (node voltages, source
-currents, I_B and I_C per transistor), so Kirchhoff's law stays linear and holds to rounding at
-every iterate; only the two device rows per transistor are linearised. Each junction voltage is
-limited between iterates (logarithmic steps above the critical voltage where the exponential
-turns steep), and exponents above 80 continue linearly so nothing overflows.
+Newton's method iterates on the node voltages and voltage-source currents only (the reduced
+system of :meth:`~ampplan.solver.assembly.Layout.assemble`): each transistor's currents, linearised
+about the last iterate (its companion model), are stamped straight into the node rows. I_B and I_C
+are then recovered from the same linearisation, so the returned unknowns have the full layout of
+both models (node voltages, source currents, I_B and I_C per transistor) and Kirchhoff's law
+holds to rounding at every iterate. Each junction voltage is limited between iterates
+(logarithmic steps above the critical voltage where the exponential turns steep), and exponents
+above 80 continue linearly so nothing overflows.
 
 When plain Newton fails, two fallbacks follow in order: a conductance ladder (a conductance from
 every node to ground, 1 mS stepped down tenfold to zero) and source stepping (every source
 scaled 0 → 1 in twenty steps). Every loop is bounded.
+
+An answer counts only when it meets the equations it claims to solve: after Newton, every
+converged sample is checked afresh (:func:`residuals`) for Kirchhoff's current law at every node
+and for the device equations at every transistor, each to :data:`RESIDUAL_TOLERANCE` of the
+currents involved. A sample that fails either check is not converged.
+
+Regions are classified from the solution by :func:`classify`, with the rule and the check table
+of :mod:`.regions`: a junction conducts when it injects at least
+:data:`~ampplan.solver.regions.CONDUCTION_CURRENT` at that device's I_S and temperature.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from ..devices import scaled_to_temperature, thermal_voltage
+from dataclasses import dataclass
+
+from ..devices import thermal_voltage
+from . import regions as rg
 from .assembly import take_samples
 from .linear import solve_batch
 
@@ -45,6 +60,12 @@ VOLTAGE_TOLERANCE = 1e-9    # volts
 CURRENT_TOLERANCE = 1e-15   # amperes
 #: Amperes: the device-versus-linearised current test is relative above this (nA currents included).
 FIT_TOLERANCE = 1e-21
+#: Relative tolerance of the final check of every answer: Kirchhoff's current law at each node, to
+#: this fraction of the sum of the magnitudes of the currents meeting there, and each transistor's
+#: I_B and I_C against the device equations, to this fraction of the larger of the two values
+#: (each plus CURRENT_TOLERANCE). A hundred times Newton's own 1e-9: room for rounding, none for an
+#: answer that does not solve the equations.
+RESIDUAL_TOLERANCE = 1e-7
 
 
 def _exp(arg):
@@ -110,9 +131,8 @@ class NewtonProblem:
     def __init__(self, layout, params):
         self.layout = layout
         self.params = params
-        temperature = params.temperature[:, None]
-        self.dev = scaled_to_temperature(params.device, temperature)
-        self.v_t = thermal_voltage(temperature)
+        self.dev = params.at_temperature
+        self.v_t = thermal_voltage(params.temperature[:, None])
         nvt = self.dev["emission_coefficient"] * self.v_t
         self.nvt = nvt
         self.v_crit = nvt * np.log(nvt / (np.sqrt(2.0) * self.dev["saturation_current"]))
@@ -289,7 +309,12 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
     iterations : ndarray of int, shape (S,)
     method : ndarray of str, shape (S,)
         ``"newton"``, ``"conductance ladder"`` or ``"source stepping"``; ``"overdriven"`` for a
-        sample whose only answer holds a junction beyond EXP_LIMIT·n·V_T (not converged).
+        sample whose only answer holds a junction beyond EXP_LIMIT·n·V_T, and ``"residual too
+        large"`` for one whose answer misses Kirchhoff's law or the device equations by more than
+        :data:`RESIDUAL_TOLERANCE` (neither converged).
+    rejected : ndarray, shape (S, size + 1)
+        The answer an ``"overdriven"`` or ``"residual too large"`` sample was refused for (NaN
+        elsewhere), for the message that explains it.
     """
     problem = NewtonProblem(layout, params)
     s_count = params.size
@@ -372,17 +397,53 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
         over = np.any((vbe > limit) | (vbc > limit), axis=1)
         converged[done[over]] = False
         method[done[over]] = "overdriven"
+    # Every answer is checked against its own equations before it counts.
+    done = np.flatnonzero(converged)
+    if done.size:
+        missed = ~residuals(layout, take_samples(params, done), x[done]).ok
+        converged[done[missed]] = False
+        method[done[missed]] = "residual too large"
+    rejected = np.where(converged[:, None], np.nan, x)
     x[~converged] = np.nan
-    return x, converged, iterations, method.astype(str)
+    return x, converged, iterations, method.astype(str), rejected
+
+
+def conduction_voltage(dev, v_t):
+    """Junction voltage at which a junction injects :data:`~ampplan.solver.regions.CONDUCTION_CURRENT`.
+
+    ``n·V_T·ln(1 + CONDUCTION_CURRENT / I_S)``, from the junction law I = I_S·(exp(V/(n·V_T)) − 1)
+    of the module docstring, with I_S and V_T at the solve temperature.
+
+    Parameters
+    ----------
+    dev : dict of str -> ndarray (S, N)
+        Device parameters at the solve temperature.
+    v_t : ndarray, shape (S, 1)
+        Thermal voltage, volts.
+
+    Returns
+    -------
+    ndarray, shape (S, N)
+        Volts.
+    """
+    return dev["emission_coefficient"] * v_t * np.log1p(rg.CONDUCTION_CURRENT / dev["saturation_current"])
 
 
 def classify(layout, params, x):
     """Regions of an Ebers–Moll solution, with the checks that decided them.
 
-    Thresholds (NPN frame, documented in DESIGN §4): a junction conducts when its voltage is at
-    least its constant-drop on-voltage less 0.2 V (0.5 V for the default 0.7 V). Neither
-    conducting: cutoff. Otherwise forward-active when V_CE >= V_CE(sat), reverse-active when
-    V_CE <= -V_CE(sat), saturation in between.
+    The rule (:mod:`.regions`, NPN frame): a junction conducts when its voltage is at least
+    :func:`conduction_voltage` (it then injects at least ``CONDUCTION_CURRENT`` at this device's
+    I_S and temperature). Neither conducting: cutoff. Otherwise forward-active when
+    V_CE >= V_CE(sat), reverse-active when V_CE <= -V_CE(sat), saturation in between.
+
+    Parameters
+    ----------
+    layout : ampplan.solver.assembly.Layout
+    params : ampplan.solver.assembly.Parameters
+        S samples.
+    x : ndarray, shape (S, size + 1)
+        Unknowns.
 
     Returns
     -------
@@ -390,40 +451,124 @@ def classify(layout, params, x):
         Codes into ``REGIONS``.
     checks : tuple (names, values, limits, margins), each ndarray (S, N, 2)
     """
-    dev = scaled_to_temperature(params.device, params.temperature[:, None])
+    dev = params.at_temperature
+    on = conduction_voltage(dev, thermal_voltage(params.temperature[:, None]))
     s = layout.sign
     v_be = s * (x[:, layout.q_b] - x[:, layout.q_e])
     v_bc = s * (x[:, layout.q_b] - x[:, layout.q_c])
     v_ce = v_be - v_bc
-    on_be = dev["vbe_on"] - CONDUCTION_MARGIN
-    on_bc = dev["vbc_on"] - CONDUCTION_MARGIN
     sat = dev["vce_sat"]
-    be, bc = v_be >= on_be, v_bc >= on_bc
-    regions = np.where(~be & ~bc, 0, np.where(v_ce >= sat, 1, np.where(v_ce <= -sat, 3, 2)))
-    # Table lookup of each region's two checks (as in constant_drop): quantities
-    # (v_be, v_bc, v_ce), limits (on_be, on_bc, V_CE(sat), -V_CE(sat)), direction +1 for
-    # "value above limit".
-    quantities = np.stack([v_be, v_bc, v_ce], axis=-1)
-    bounds = np.stack([on_be, on_bc, sat, -sat], axis=-1)
-    values = np.take_along_axis(quantities, _EM_QUANTITY[regions], axis=2)
-    limits = np.take_along_axis(bounds, _EM_LIMIT[regions], axis=2)
-    margins = np.where(_EM_DIRECTION[regions] > 0, values - limits, limits - values)
-    names = _EM_NAMES[(s < 0).astype(np.intp)[None, :, None], regions[:, :, None], np.arange(2)[None, None, :]]
-    return regions, (names, values, limits, margins)
+    conducting = (v_be >= on) | (v_bc >= on)
+    regions = np.where(~conducting, rg.CUTOFF, np.where(v_ce >= sat, rg.ACTIVE,
+                                                        np.where(v_ce <= -sat, rg.REVERSE, rg.SATURATION)))
+    i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
+    quantities = np.stack([v_be, v_bc, v_ce, -v_bc, i_b, i_c], axis=-1)
+    limits = np.stack([on, on, sat, np.zeros_like(on), dev["beta"] * i_b, -sat], axis=-1)
+    table = rg.table("ebers-moll")
+    values, bounds, margins = table.evaluate(quantities, limits, regions)
+    return regions, (table.check_names(regions, s), values, bounds, margins)
 
 
-#: Volts below the constant-drop on-voltage at which a junction counts as conducting.
-CONDUCTION_MARGIN = 0.2
+@dataclass(frozen=True)
+class Residuals:
+    """How far answers miss their own equations (see :func:`residuals`); arrays of shape (S,).
 
-# The classification checks per region (rows: cutoff, forward-active, saturation, reverse-active).
-_EM_QUANTITY = np.array([[0, 1], [0, 2], [2, 2], [1, 2]])
-_EM_LIMIT = np.array([[0, 1], [0, 2], [2, 3], [1, 3]])
-_EM_DIRECTION = np.array([[-1, -1], [1, 1], [-1, 1], [1, -1]])
-_EM_NAMES = np.array([[["V_BE < V_BE(on) - 0.2 V", "V_BC < V_BC(on) - 0.2 V"],
-                          ["V_BE >= V_BE(on) - 0.2 V", "V_CE >= V_CE(sat)"],
-                          ["V_CE < V_CE(sat)", "V_CE > -V_CE(sat)"],
-                          ["V_BC >= V_BC(on) - 0.2 V", "V_CE <= -V_CE(sat)"]],
-                      [["V_EB < V_EB(on) - 0.2 V", "V_CB < V_CB(on) - 0.2 V"],
-                          ["V_EB >= V_EB(on) - 0.2 V", "V_EC >= V_EC(sat)"],
-                          ["V_EC < V_EC(sat)", "V_EC > -V_EC(sat)"],
-                          ["V_CB >= V_CB(on) - 0.2 V", "V_EC <= -V_EC(sat)"]]], dtype=str)   # [npn, pnp]
+    Attributes
+    ----------
+    ok : ndarray of bool
+        Both residuals within :data:`RESIDUAL_TOLERANCE`.
+    kcl : ndarray
+        Largest net current leaving a node, amperes.
+    kcl_node : ndarray of int
+        Index of that node in ``layout.nodes``.
+    kcl_allowed : ndarray
+        What the tolerance allows at that node, amperes.
+    device : ndarray
+        Largest difference between a reported I_B or I_C and the device equations, amperes.
+    device_transistor : ndarray of int
+        Index of that transistor in ``layout.bjts``.
+    device_allowed : ndarray
+        What the tolerance allows there, amperes.
+    """
+    ok: np.ndarray
+    kcl: np.ndarray
+    kcl_node: np.ndarray
+    kcl_allowed: np.ndarray
+    device: np.ndarray
+    device_transistor: np.ndarray
+    device_allowed: np.ndarray
+
+
+def residuals(layout, params, x) -> Residuals:
+    """Kirchhoff's current law and the device equations, re-evaluated at answers ``x``.
+
+    Independent of how Newton got there: the net current leaving every node is summed from the
+    element currents (resistors g·ΔV, source currents, I_B and I_C as reported), and each
+    transistor's reported I_B and I_C are compared with :func:`device_currents` at its junction
+    voltages. One vectorised pass over the elements, none over the samples.
+
+    Parameters
+    ----------
+    layout : ampplan.solver.assembly.Layout
+    params : ampplan.solver.assembly.Parameters
+        S samples.
+    x : ndarray, shape (S, size + 1)
+        Unknowns, ground last.
+
+    Returns
+    -------
+    Residuals
+    """
+    s_count = x.shape[0]
+    n_full = layout.size + 1
+    net = np.zeros((s_count, n_full))
+    scale = np.zeros((s_count, n_full))
+
+    def leave(node, current):
+        # A loop over the circuit's elements (never over samples): each adds one column.
+        net[:, node] += current
+        scale[:, node] += np.abs(current)
+
+    with np.errstate(all="ignore"):
+        r_i = (x[:, layout.r_a] - x[:, layout.r_b]) * params.conductance
+        for k, (a, b) in enumerate(zip(layout.r_a, layout.r_b)):
+            leave(a, r_i[:, k])
+            leave(b, -r_i[:, k])
+        for plus, minus, row in zip(layout.vs_plus, layout.vs_minus, layout.vs_row):
+            leave(plus, x[:, row])
+            leave(minus, -x[:, row])
+        for k, (f, t) in enumerate(zip(layout.cs_from, layout.cs_to)):
+            leave(f, params.current[:, k])
+            leave(t, -params.current[:, k])
+        i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
+        for j, (b, c, e, sg) in enumerate(zip(layout.q_b, layout.q_c, layout.q_e, layout.sign)):
+            leave(b, sg * i_b[:, j])
+            leave(c, sg * i_c[:, j])
+            leave(e, -sg * (i_b[:, j] + i_c[:, j]))
+        nodes = slice(0, layout.n_nodes)
+        kcl_allowed = RESIDUAL_TOLERANCE * scale[:, nodes] + CURRENT_TOLERANCE
+        kcl = np.abs(net[:, nodes])
+
+        s = layout.sign
+        v_be = s * (x[:, layout.q_b] - x[:, layout.q_e])
+        v_bc = s * (x[:, layout.q_b] - x[:, layout.q_c])
+        true_b, true_c, _ = device_currents(v_be, v_bc, params.at_temperature,
+                                            thermal_voltage(params.temperature[:, None]))
+        miss = np.maximum(np.abs(true_b - i_b), np.abs(true_c - i_c))
+        dev_allowed = RESIDUAL_TOLERANCE * np.maximum(np.maximum(np.abs(true_b), np.abs(true_c)),
+                                                      np.maximum(np.abs(i_b), np.abs(i_c))) + CURRENT_TOLERANCE
+    kcl_ok, kcl_at = _worst(kcl, kcl_allowed)
+    dev_ok, dev_at = _worst(miss, dev_allowed)
+    rows = np.arange(s_count)
+    pad = lambda a: np.concatenate([a, np.zeros((s_count, 1))], axis=1)  # noqa: E731  (N may be 0)
+    return Residuals(kcl_ok & dev_ok, pad(kcl)[rows, kcl_at], kcl_at, pad(kcl_allowed)[rows, kcl_at],
+                     pad(miss)[rows, dev_at], dev_at, pad(dev_allowed)[rows, dev_at])
+
+
+def _worst(residual, allowed):
+    """Per sample: whether every residual is within what is allowed, and the index of the worst."""
+    with np.errstate(all="ignore"):
+        excess = np.nan_to_num(residual / allowed, nan=np.inf)
+    if excess.shape[1] == 0:
+        return np.ones(excess.shape[0], dtype=bool), np.zeros(excess.shape[0], dtype=np.intp)
+    return np.all(excess <= 1.0, axis=1), np.argmax(excess, axis=1)
