@@ -128,8 +128,9 @@ def test_capacitor_coupled_chain_equals_its_stages_alone(data, stages):
 @settings(max_examples=10)
 @given(data=st.data(), stages=st.integers(3, 6), size=st.integers(2, 6))
 def test_batch_of_a_chain_equals_its_single_solves(data, stages, size):
-    # Source: issue 6 §3: each batch sample equals the single solve of that sample (1e-12; both follow
-    # one search, so they agree to rounding), a failed one carries its status and NaN.
+    # Source: issue 6 §2/§3: each batch sample equals the single solve of that sample (to 1e-9, the
+    # issue's tolerance: both follow one search, and only the rounding of the assembled sums, whose
+    # order depends on the batch size, differs), a failed one carries its status and NaN.
     draw = _hypothesis_draw(data.draw)
     elements = ref.build_chain(draw, stages=stages)
     names = [e.name for e in elements if e.kind == "R"][:6] + [e.name for e in ref.transistors_of(elements)][:2]
@@ -151,7 +152,7 @@ def test_batch_of_a_chain_equals_its_single_solves(data, stages, size):
         assert op_b.status[k] == "ok"
         got = op_b.sample(k)
         assert regions_of(got) == regions_of(op_1)
-        bad = compare(as_solution(got), as_solution(op_1), 1e-12, sample)
+        bad = compare(as_solution(got), as_solution(op_1), 1e-9, sample)
         assert not bad, f"sample {k}:\n" + "\n".join(bad)
 
 

@@ -495,3 +495,60 @@ def test_base_bias_defaults_and_template_emitter_variants_still_build():
         built = p.compile().stages[0]
         names = set(built.elements)
         assert ("s1_re" in names) == (re is not None) and ("s1_re_bypassed" in names) == (re_b is not None)
+
+
+def _latch():
+    """Two cross-coupled common-emitter stages: the textbook circuit with more than one DC operating
+    point (Sedra & Smith, bistable multivibrator, from memory)."""
+    c = ampplan.Circuit()
+    c.voltage_source("VCC", "vcc", GROUND, 5.0)
+    c.resistor("RC1", "vcc", "c1", 1e3)
+    c.resistor("RC2", "vcc", "c2", 1e3)
+    c.resistor("RB1", "c2", "b1", 10e3)
+    c.resistor("RB2", "c1", "b2", 10e3)
+    c.bjt("Q1", collector="c1", base="b1", emitter=GROUND, device=ampplan.Transistor())
+    c.bjt("Q2", collector="c2", base="b2", emitter=GROUND, device=ampplan.Transistor())
+    return c
+
+
+def test_alternatives_behave_as_a_tuple_of_operating_points():
+    # Source: the OperatingPoint docstring: alternatives is a sequence of OperatingPoint, found on
+    # first use, equal to (and pickled as) a tuple. The latch has other consistent points.
+    import pickle
+    op = _latch().solve(model="constant-drop")
+    alternatives = op.alternatives
+    assert len(alternatives) >= 1
+    as_tuple = tuple(alternatives)
+    assert all(isinstance(a, solver_result.OperatingPoint) for a in as_tuple)
+    assert alternatives == as_tuple and alternatives[0] is as_tuple[0] and alternatives != as_tuple[:-1]
+    assert alternatives != "not a sequence of points"
+    restored = pickle.loads(pickle.dumps(alternatives))   # NaN fields (forced beta in cutoff) defeat ==
+    assert type(restored) is tuple and [repr(p) for p in restored] == [repr(p) for p in as_tuple]
+    assert repr(alternatives) == repr(as_tuple)
+    assert "other consistent operating point(s)" in repr(op)
+    assert len(op.to_dict()["alternatives"]) == len(as_tuple)
+
+
+def test_field_types_say_which_fields_are_arrays_in_a_batch():
+    # Source: the result annotations (issue 6 §5): a field typed Figure, Text or Flag is a float,
+    # str or bool in a single solve and an ndarray of shape (S,) in a batch; every other field keeps
+    # its type. Checked on the real results of both models.
+    import typing
+    scalar_of = {solver_result.Figure: float, solver_result.Text: str, solver_result.Flag: bool}
+    c = _latch()
+    for model in ("constant-drop", "ebers-moll"):
+        single = c.solve(model=model)
+        batch = c.solve(model=model, batch={"RC2": np.array([1e3, 1.2e3, 1.5e3])})
+        for cls, one, many in [(solver_result.OperatingPoint, single, batch),
+                               (solver_result.TransistorResult, single.transistors["Q1"], batch.transistors["Q1"]),
+                               (solver_result.Check, single.transistors["Q1"].checks[0],
+                                batch.transistors["Q1"].checks[0])]:
+            hints = typing.get_type_hints(cls, vars(solver_result))
+            for name, hint in hints.items():
+                if hint in scalar_of:
+                    assert isinstance(getattr(one, name), scalar_of[hint]), (model, cls.__name__, name)
+                    assert isinstance(getattr(many, name), np.ndarray), (model, cls.__name__, name)
+                    assert getattr(many, name).shape == (3,), (model, cls.__name__, name)
+        for mapping in ("v", "i"):
+            assert all(isinstance(value, float) for value in getattr(single, mapping).values())
+            assert all(np.shape(value) == (3,) for value in getattr(batch, mapping).values())

@@ -8,7 +8,7 @@ sample gets a status and NaN fields and the others carry on.
 
 from __future__ import annotations
 
-import dataclasses
+import math
 from collections.abc import Mapping
 from typing import Literal, get_args
 
@@ -22,7 +22,7 @@ from ..errors import (ConvergenceError, InvalidValueError, NoConsistentRegionErr
 from . import constant_drop as cd
 from .assembly import layout_of, take_samples
 from . import ebers_moll as em
-from .result import REGIONS, UNSOLVED, Check, OperatingPoint, TransistorResult
+from .result import REGIONS, UNSOLVED, Alternatives, Check, OperatingPoint, TransistorResult
 
 __all__ = ["solve", "Model", "MODELS", "ActiveEdge", "ACTIVE_EDGES", "OperatingPoint", "TransistorResult",
            "Check", "REGIONS"]
@@ -259,8 +259,10 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
         if stale.size:
             result.x[stale], result.ok[stale] = problem.solve(stale, result.regions[stale])
             iterations += stale.size
+            for whole, part in zip(result.checks, problem.checks(stale, result.regions[stale], result.x[stale])):
+                whole[stale] = part
         x[rows], regions[rows], found[rows] = result.x, result.regions, result.found & result.ok
-        for whole, part in zip(checks, problem.checks(local, result.regions, result.x)):
+        for whole, part in zip(checks, result.checks):
             whole[rows] = part
 
     if single and not found[0]:
@@ -270,13 +272,12 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
              "enumeration" if n_q <= cd.ENUMERATION_LIMIT else "local search")
     method = ", ".join(steps[:deepest]) + em_note
     status = np.where(found, "ok", "no-consistent-region")
-    op = _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + tuple(checks), status,
-                "constant-drop", method, iterations, single)
+    alternatives = ()
     if single and n_q:
-        others = _alternatives(circuit, layout, params, problem, regions[0], method)
-        if others:
-            op = dataclasses.replace(op, alternatives=others)
-    return op
+        chosen = regions[0].copy()
+        alternatives = Alternatives(lambda: _alternatives(circuit, layout, params, problem, chosen, method))
+    return _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + tuple(checks), status,
+                  "constant-drop", method, iterations, single, alternatives)
 
 
 def _nearest(candidates, guess):
@@ -343,16 +344,23 @@ def _distinct_others(x, candidates, pick, layout):
 
 
 # -- results --------------------------------------------------------------------------------------
-def _build(circuit, layout, params, x, regions, checks, status, model, method, iterations, single):
-    """Assemble an OperatingPoint from unknowns ``x`` (S, size + 1) and regions (S, N)."""
+def _build(circuit, layout, params, x, regions, checks, status, model, method, iterations, single,
+           alternatives=()):
+    """Assemble an OperatingPoint from unknowns ``x`` (S, size + 1) and regions (S, N).
+
+    A single solve takes a lean path (:func:`_build_single`): a handful of array operations, then
+    plain floats.
+    """
+    if single:
+        return _build_single(circuit, layout, params, x[0], regions[0], [c[0] for c in checks], str(status[0]),
+                             model, method, iterations, alternatives)
     # Samples with no answer at all get NaN; an assumption that fails keeps its numbers.
     failed = (status != "ok") & (status != "assumption-fails")
     x = x.copy()
     x[failed] = np.nan
     n = layout.size
     x[:, n] = 0.0
-    # Every quantity is computed for all elements at once, shape (S, count); a single solve then
-    # turns columns into floats.
+    # Every quantity is computed for all elements at once, shape (S, count), then split by column.
     node_v = x[:, :layout.n_nodes]
     r_i = (x[:, layout.r_a] - x[:, layout.r_b]) * params.conductance
     vs_i = -x[:, layout.vs_row]
@@ -363,15 +371,13 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
         forced = np.where(ib != 0, ic / np.where(ib != 0, ib, 1.0), np.nan)
     power = layout.sign * (vce * ic + vbe * ib)
     names, values, limits, margins, holds = checks
-    names = np.where(failed[:, None, None], "", names)
-    values, limits, margins = (np.where(failed[:, None, None], np.nan, a) for a in (values, limits, margins))
-    holds = holds & ~failed[:, None, None]
-    region = np.where(failed[:, None], UNSOLVED, np.array(REGIONS)[np.clip(regions, 0, 3)])
-    if single:
-        cols = lambda a: a[0].tolist()  # noqa: E731
-    else:
-        cols = lambda a: list(np.moveaxis(a, 1, 0))  # noqa: E731  (S, N, ...) -> N of (S, ...)
-    v = {"gnd": 0.0 if single else np.zeros(x.shape[0])}
+    if np.any(failed):
+        names = np.where(failed[:, None, None], "", names)
+        values, limits, margins = (np.where(failed[:, None, None], np.nan, a) for a in (values, limits, margins))
+        holds = holds & ~failed[:, None, None]
+    region = np.array(REGIONS + (UNSOLVED,))[np.where(failed[:, None], len(REGIONS), np.clip(regions, 0, 3))]
+    cols = lambda a: list(np.moveaxis(a, 1, 0))  # noqa: E731  (S, N, ...) -> N of (S, ...)
+    v = {"gnd": np.zeros(x.shape[0])}
     v.update(zip(layout.nodes, cols(node_v)))
     currents = dict(zip((r.name for r in layout.resistors), cols(r_i)))
     currents.update(zip((src.name for src in layout.voltage_sources), cols(vs_i)))
@@ -380,16 +386,47 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
                 cols(power), cols(names), cols(values), cols(limits), cols(holds), cols(margins))
     transistors = {}
     for q, reg, c_, b_, e_, be_, ce_, f_, p_, nm, va, li, ho, ma in per_q:
-        if single:
-            chk = tuple(Check(str(nm[c]), va[c], li[c], bool(ho[c]), ma[c]) for c in range(2))
-        else:
-            chk = tuple(Check(nm[:, c], va[:, c], li[:, c], ho[:, c], ma[:, c]) for c in range(2))
+        chk = tuple(Check(nm[:, c], va[:, c], li[:, c], ho[:, c], ma[:, c]) for c in range(2))
         transistors[q.name] = TransistorResult(
-            name=q.name, polarity=q.device.polarity, region=str(reg) if single else reg,
+            name=q.name, polarity=q.device.polarity, region=reg,
             ic=c_, ib=b_, ie=e_, vbe=be_, vce=ce_, beta_forced=f_, power=p_, checks=chk)
     return OperatingPoint(
-        model=model, v=v, i=currents, transistors=transistors,
-        status=str(status[0]) if single else status.astype(str),
-        temperature=float(params.temperature[0]) if single else params.temperature,
-        method=method, iterations=int(iterations), batch_size=None if single else params.size,
-        circuit=circuit, unknowns=x[0, :n].copy() if single else x[:, :n].copy())
+        model=model, v=v, i=currents, transistors=transistors, status=status.astype(str),
+        temperature=params.temperature, method=method, iterations=int(iterations), batch_size=params.size,
+        circuit=circuit, unknowns=x[:, :n].copy())
+
+
+def _build_single(circuit, layout, params, x, regions, checks, status, model, method, iterations,
+                  alternatives=()):
+    """The OperatingPoint of one solve from unknowns ``x`` (size + 1,), regions (N,) and checks
+    (each (N, 2)): a few array operations, then plain floats."""
+    n, n_q = layout.size, layout.n_bjt
+    failed = status not in ("ok", "assumption-fails")
+    x = np.full(n + 1, np.nan) if failed else x.copy()
+    x[n] = 0.0
+    v = {"gnd": 0.0}
+    v.update(zip(layout.nodes, x[:layout.n_nodes].tolist()))
+    currents = dict(zip([r.name for r in layout.resistors],
+                        ((x[layout.r_a] - x[layout.r_b]) * params.conductance[0]).tolist()))
+    currents.update(zip([src.name for src in layout.voltage_sources], (-x[layout.vs_row]).tolist()))
+    currents.update(zip([src.name for src in layout.current_sources], params.current[0].tolist()))
+    ib, ic = x[layout.q_ib], x[layout.q_ic]
+    vbe, vce = x[layout.q_b] - x[layout.q_e], x[layout.q_c] - x[layout.q_e]
+    figures = np.stack([ic, ib, vbe, vce, layout.sign * (vce * ic + vbe * ib)], axis=1).tolist()
+    if failed:
+        blank = [[math.nan, math.nan]] * n_q
+        names, values, limits, holds, margins = [["", ""]] * n_q, blank, blank, [[False, False]] * n_q, blank
+    else:
+        names, values, limits, margins, holds = (a.tolist() for a in checks)
+    transistors = {}
+    for j, q in enumerate(layout.bjts):
+        c_, b_, be_, ce_, p_ = figures[j]
+        nm, va, li, ho, ma = names[j], values[j], limits[j], holds[j], margins[j]
+        transistors[q.name] = TransistorResult(
+            name=q.name, polarity=q.device.polarity, region=UNSOLVED if failed else REGIONS[regions[j]],
+            ic=c_, ib=b_, ie=b_ + c_, vbe=be_, vce=ce_, beta_forced=c_ / b_ if b_ != 0 else math.nan, power=p_,
+            checks=(Check(nm[0], va[0], li[0], ho[0], ma[0]), Check(nm[1], va[1], li[1], ho[1], ma[1])))
+    return OperatingPoint(
+        model=model, v=v, i=currents, transistors=transistors, status=status,
+        temperature=float(params.temperature[0]), alternatives=alternatives, method=method,
+        iterations=int(iterations), batch_size=None, circuit=circuit, unknowns=x[:n].copy())

@@ -123,6 +123,7 @@ class RegionProblem:
         # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
         # alternatives come back to the same few samples many times.
         self._references: dict = {}
+        self._names = None
 
     def solve(self, samples, regions):
         """Solve the linear equations of assignments ``regions`` for samples ``samples``, directly.
@@ -312,19 +313,22 @@ class RegionProblem:
 
     def check_names(self, regions):
         """Names of the checks of ``regions`` (K, N), as a str array (K, N, 2)."""
-        npn = self.layout.sign > 0
-        edge_slot = 1 if self.active_edge == "vcb-zero" else 0
-        table = np.where(npn[None, :, None], _NAMES_NPN[edge_slot][regions.astype(np.intp)],
-                         _NAMES_PNP[edge_slot][regions.astype(np.intp)])
-        return table
+        if self._names is None:
+            npn = self.layout.sign > 0
+            edge_slot = 1 if self.active_edge == "vcb-zero" else 0
+            # Per transistor, the names of every region's checks in its own polarity's terms (N, 4, 2).
+            self._names = np.where(npn[:, None, None], _NAMES_NPN[edge_slot][None], _NAMES_PNP[edge_slot][None])
+        return self._names[np.arange(regions.shape[1]), regions.astype(np.intp)]
 
-    def consistent(self, samples, regions, x, ok):
+    def consistent(self, samples, regions, x, ok, score: bool = True):
         """True where the solve succeeded and every check of every transistor holds; a violation
-        score (number of failed checks, then their size) for ranking near misses; and the checks
-        themselves (as :meth:`checks` returns them)."""
+        score (number of failed checks, then their size) for ranking near misses (None unless
+        ``score``); and the checks themselves (as :meth:`checks` returns them)."""
         checks = self.checks(samples, regions, x)
         values, limits, margins, holds = checks
         good = ok & np.all(holds, axis=(1, 2))
+        if not score:
+            return good, None, checks
         failed = np.sum(~holds, axis=(1, 2))
         with np.errstate(invalid="ignore"):
             size = np.nansum(np.where(holds, 0.0, -margins), axis=(1, 2))
@@ -439,8 +443,11 @@ class Search:
     x : ndarray, shape (K, size + 1)
         Direct solution of ``regions`` (stale where ``settle`` changed them; see ``stale``).
     ok : ndarray of bool, shape (K,)
+    checks : list of 4 ndarray (K, N, 2)
+        Values, limits, margins and holds of the direct solution (see :meth:`RegionProblem.checks`).
     stale : ndarray of bool, shape (K,)
-        Samples whose ``regions`` changed after their last direct solve.
+        Samples whose ``regions`` changed after their last direct solve (``x``, ``ok`` and
+        ``checks`` are to be renewed).
     ties : dict of int -> ndarray (C, N)
         Samples with several consistent assignments (the caller chooses with :meth:`settle`).
     misses : dict of int -> tuple
@@ -454,6 +461,7 @@ class Search:
     found: np.ndarray
     x: np.ndarray
     ok: np.ndarray
+    checks: list
     stale: np.ndarray
     ties: dict
     misses: dict
@@ -482,7 +490,8 @@ def search(problem: RegionProblem, rows: np.ndarray, starts: np.ndarray) -> Sear
     count, n_q = starts.shape
     regions = starts.copy()
     x, ok = problem.solve(rows, regions)
-    good, _, _ = problem.consistent(rows, regions, x, ok)
+    good, _, checks = problem.consistent(rows, regions, x, ok, score=False)
+    checks = list(checks)
     solves, deepest = count, 1
     # Repair, vectorised over the samples still failing; ``history`` holds what each has tried.
     active = np.flatnonzero(~good)
@@ -502,11 +511,13 @@ def search(problem: RegionProblem, rows: np.ndarray, starts: np.ndarray) -> Sear
         regions[active] = new
         x[active], ok[active] = problem.solve(rows[active], new)
         solves += active.size
-        hit, _, _ = problem.consistent(rows[active], new, x[active], ok[active])
+        hit, _, renewed = problem.consistent(rows[active], new, x[active], ok[active], score=False)
+        for whole, part in zip(checks, renewed):
+            whole[active] = part
         good[active] = hit
         history = [h[~hit] for h in history] + [new[~hit]]
         active = active[~hit]
-    result = Search(regions=regions, found=good, x=x, ok=ok, stale=np.zeros(count, dtype=bool), ties={},
+    result = Search(regions=regions, found=good, x=x, ok=ok, checks=checks, stale=np.zeros(count, dtype=bool), ties={},
                     misses={}, solves=solves, deepest=deepest)
     left = np.flatnonzero(~good)
     if left.size:

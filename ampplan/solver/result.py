@@ -5,14 +5,23 @@ from __future__ import annotations
 import html
 import math
 import operator
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Literal, get_args
+from typing import Literal, TypeAlias, Union, get_args
 
 import numpy as np
 
 from ..errors import InvalidValueError
 
-__all__ = ["Region", "REGIONS", "Status", "STATUSES", "Check", "TransistorResult", "OperatingPoint"]
+__all__ = ["Region", "REGIONS", "Status", "STATUSES", "Figure", "Text", "Flag", "Check", "TransistorResult",
+           "OperatingPoint", "Alternatives"]
+
+#: A number of a single solve (float), or of a batch: one per sample, ndarray of shape (S,).
+Figure: TypeAlias = Union[float, np.ndarray]
+#: A word of a single solve (str), or of a batch: ndarray of str, shape (S,).
+Text: TypeAlias = Union[str, np.ndarray]
+#: A truth of a single solve (bool), or of a batch: ndarray of bool, shape (S,).
+Flag: TypeAlias = Union[bool, np.ndarray]
 
 Region = Literal["cutoff", "forward-active", "saturation", "reverse-active"]
 #: Region names, indexed by the integer codes the solver uses internally.
@@ -82,23 +91,27 @@ def _holds_text(holds) -> str:
 class Check:
     """One condition of a transistor's region, as tested at the solution.
 
+    In a single solve every field is a scalar; in a batch each is an ndarray of shape (S,), one
+    entry per sample (the annotations :data:`Text`, :data:`Figure` and :data:`Flag` say so).
+
     Attributes
     ----------
-    name : str
-        The condition, e.g. ``"V_CE >= V_CE(sat)"`` (``"V_EC >= V_EC(sat)"`` for a PNP).
-    value : float
+    name : str, or ndarray of str (S,) in a batch
+        The condition, e.g. ``"V_CE >= V_CE(sat)"`` (``"V_EC >= V_EC(sat)"`` for a PNP). In a batch
+        it may differ between samples (their regions differ); ``""`` for a failed sample.
+    value : float, or ndarray (S,) in a batch
         The quantity tested, volts or amperes.
-    limit : float
+    limit : float, or ndarray (S,) in a batch
         The bound it is tested against, same unit.
-    holds : bool
-    margin : float
+    holds : bool, or ndarray of bool (S,) in a batch
+    margin : float, or ndarray (S,) in a batch
         Room left, same unit: positive when the condition holds, negative when it fails.
     """
-    name: str
-    value: float
-    limit: float
-    holds: bool
-    margin: float
+    name: Text
+    value: Figure
+    limit: Figure
+    holds: Flag
+    margin: Figure
 
     @property
     def unit(self) -> str:
@@ -135,29 +148,31 @@ class TransistorResult:
 
     Attributes
     ----------
-    name, polarity, region : str
-    ic, ib, ie : float
+    name, polarity : str
+    region : str, or ndarray of str (S,) in a batch
+        One of :data:`REGIONS`; ``"unsolved"`` for a failed batch sample.
+    ic, ib, ie : float, or ndarray (S,) in a batch
         Collector, base and emitter current, amperes; ``ie == ic + ib``.
-    vbe, vce : float
+    vbe, vce : float, or ndarray (S,) in a batch
         V(B) - V(E) and V(C) - V(E), volts.
-    beta_forced : float
+    beta_forced : float, or ndarray (S,) in a batch
         ic / ib, NaN when ib == 0.
-    power : float
+    power : float, or ndarray (S,) in a batch
         Power the transistor dissipates, V_CE·I_C + V_BE·I_B, watts.
-    checks : tuple of Check
-        The conditions of its region with their margins.
+    checks : tuple of two Check
+        The conditions of its region with their margins (arrays in a batch, as the fields above).
     """
     name: str
     polarity: str
-    region: str
-    ic: float
-    ib: float
-    ie: float
-    vbe: float
-    vce: float
-    beta_forced: float
-    power: float
-    checks: tuple = ()
+    region: Text
+    ic: Figure
+    ib: Figure
+    ie: Figure
+    vbe: Figure
+    vce: Figure
+    beta_forced: Figure
+    power: Figure
+    checks: tuple[Check, ...] = ()
 
     @property
     def vcb(self):
@@ -189,49 +204,99 @@ class TransistorResult:
         return _json_safe(out)
 
 
+class Alternatives(Sequence):
+    """The other consistent operating points of a single constant-drop solve, found when first read.
+
+    Listing them is a search of its own (every region assignment of a small circuit, the
+    neighbourhood of the answer in a large one), which most callers never need; the solve hands
+    over how to find them and this sequence runs it once, on first use, and keeps the result.
+    It behaves as a tuple of :class:`OperatingPoint` (and pickles as one).
+    """
+
+    def __init__(self, find: Callable[[], tuple]):
+        self._find: Callable[[], tuple] | None = find
+        self._points: tuple | None = None
+
+    def _resolved(self) -> tuple:
+        if self._points is None:
+            self._points = tuple(self._find())
+            self._find = None
+        return self._points
+
+    def __getitem__(self, index):
+        return self._resolved()[index]
+
+    def __len__(self) -> int:
+        return len(self._resolved())
+
+    def __eq__(self, other) -> bool:
+        return isinstance(other, Sequence) and self._resolved() == tuple(other)
+
+    __hash__ = None
+
+    def __repr__(self) -> str:
+        return repr(self._resolved())
+
+    def __reduce__(self):
+        return (tuple, (self._resolved(),))
+
+
 @dataclass(frozen=True)
 class OperatingPoint:
     """The DC operating point of a circuit (or of S samples of it, in a batch).
 
     Attributes
     ----------
+    Fields typed :data:`Figure`, :data:`Text` or :data:`Flag` are scalars in a single solve and
+    ndarrays of shape (S,) in a batch (``batch_size`` is S there, None otherwise).
+
+    Attributes
+    ----------
     model : str
         ``"constant-drop"`` or ``"ebers-moll"``.
-    v : dict of str -> float
-        Node voltages, volts, ``v["gnd"] == 0``; ndarray (S,) per node in a batch.
-    i : dict of str -> float
+    v : dict of str -> float, or of ndarray (S,) in a batch
+        Node voltages, volts, ``v["gnd"] == 0``.
+    i : dict of str -> float, or of ndarray (S,) in a batch
         Element currents, amperes: through a resistor from its node ``a`` to ``b``; the current a
         voltage source delivers out of its plus terminal; a current source's own value.
     transistors : dict of str -> TransistorResult
-    status : str
+    status : str, or ndarray of str (S,) in a batch
         One of :data:`STATUSES` (see :data:`Status`): ``"ok"``, or for a single solve
-        ``"assumption-fails"`` when the regions were imposed; in a batch an array of str, one per
-        sample, where failed samples (``"no-consistent-region"``, ``"no-convergence"``,
-        ``"singular"``) have NaN numeric fields.
-    temperature : float
-        Degrees Celsius (ndarray (S,) in a batch).
-    alternatives : tuple of OperatingPoint
-        Other consistent operating points the constant-drop search found (a latch, say).
+        ``"assumption-fails"`` when the regions were imposed; in a batch one per sample, where
+        failed samples (``"no-consistent-region"``, ``"no-convergence"``, ``"singular"``) have NaN
+        numeric fields.
+    temperature : float, or ndarray (S,) in a batch
+        Degrees Celsius.
+    alternatives : sequence of OperatingPoint
+        Other consistent operating points of a single constant-drop solve (a latch, say), found
+        by a search of their own when first read (:class:`Alternatives`); empty otherwise.
     method : str
-        How the answer was reached (``"enumeration"``, ``"search from Ebers–Moll guess"``,
-        ``"newton"``, ``"conductance ladder"``, ``"source stepping"``).
+        How the answer was reached: the steps of the constant-drop search it took
+        (``"forward-active start, repair by failed checks, enumeration"`` ..., for a batch the
+        furthest any sample went), ``"assumed regions"``, or Newton's (``"newton"``,
+        ``"conductance ladder"``, ``"source stepping"``).
     iterations : int
-        Newton iterations (Ebers–Moll, including the guess for constant-drop) or linear solves.
+        Newton iterations (Ebers–Moll, including any Ebers–Moll guess for constant-drop) or
+        linear solves (constant-drop).
     batch_size : int or None
         S for a batch, None for a single solve.
+    circuit : Circuit
+        The circuit solved (not compared, not shown).
+    unknowns : ndarray (size,), or (S, size) in a batch
+        The solver's unknown vector (node voltages, source currents, I_B and I_C per transistor).
     """
     model: str
-    v: dict
-    i: dict
-    transistors: dict
-    status: object = "ok"
-    temperature: object = 25.0
-    alternatives: tuple = ()
+    v: dict[str, Figure]
+    i: dict[str, Figure]
+    transistors: dict[str, TransistorResult]
+    status: Text = "ok"
+    temperature: Figure = 25.0
+    alternatives: Sequence[OperatingPoint] = ()
     method: str = ""
     iterations: int = 0
     batch_size: int | None = None
     circuit: object = field(default=None, repr=False, compare=False)
-    unknowns: object = field(default=None, repr=False, compare=False)
+    unknowns: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     @property
     def ok(self):

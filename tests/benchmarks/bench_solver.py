@@ -368,12 +368,139 @@ def bench_batch() -> bool:
     return agree
 
 
+# --------------------------------------------------------------------------------------------
+# The constant-drop region search (issue 6 §3, issue 9 item 8)
+# --------------------------------------------------------------------------------------------
+
+TARGET_CD_SINGLE_RATIO = 20.0       # a single constant-drop solve, in dense solves of its nodal matrix
+TARGET_CD_BATCH_S = 1.0             # 100,000 samples of the compiled demo plan
+TARGET_CD_BATCH_MIB = 300.0         # peak memory of that batch (resident set, whole process)
+TARGET_CHAIN_S = 1.0                # one solve of a 12-stage chain ("well under a second")
+CD_BATCH_SAMPLES = 100_000
+
+
+def bench_constant_drop_single() -> None:
+    """One constant-drop solve of the 3-transistor chain against one dense solve of its nodal
+    matrix (numpy.linalg.solve of the full system with every transistor forward-active), timed
+    in interleaved rounds of the same run."""
+    from ampplan.solver import constant_drop as cd
+    from ampplan.solver.assembly import layout_of
+
+    c = to_circuit(CIRCUITS[3])
+    layout = layout_of(c)
+    problem = cd.RegionProblem(layout, layout.parameters())
+    matrix, rhs = problem.matrix.copy(), problem.rhs.copy()
+    problem._stamp(matrix, rhs, np.array([0]), np.full((1, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
+    n = layout.size
+    a, b = matrix[0, :n, :n].copy(), rhs[0, :n].copy()
+    solves, dense, listed = [], [], []
+    for _ in range(ROUNDS):
+        dense.append(median_time(lambda: np.linalg.solve(a, b), repeat=400))
+        solves.append(median_time(lambda: c.solve(model="constant-drop"), repeat=200))
+        listed.append(median_time(lambda: len(c.solve(model="constant-drop").alternatives), repeat=50))
+    t_dense, t_solve, t_listed = min(dense), min(solves), min(listed)
+    ratio = t_solve / t_dense
+    print("(d) single constant-drop solve, 3-transistor chain, against one dense solve of its "
+          f"{n}x{n} nodal matrix (best of {ROUNDS} interleaved rounds of medians)")
+    print(f"    numpy.linalg.solve: {t_dense * 1e6:.1f} µs; c.solve(model='constant-drop'): {t_solve * 1e6:.1f} µs; "
+          f"with op.alternatives read (listed on first use): {t_listed * 1e6:.1f} µs")
+    print(f"    target: single constant-drop solve <= {TARGET_CD_SINGLE_RATIO:g}x one dense solve -> {ratio:.0f}x, "
+          f"{verdict(ratio <= TARGET_CD_SINGLE_RATIO)} (with the alternatives listed: {t_listed / t_dense:.0f}x)")
+    print()
+
+
+_BATCH_SCRIPT = """
+import dataclasses, resource, sys, time
+import numpy as np
+sys.path.insert(0, {root!r})
+import ampplan
+from importlib.resources import files
+from ampplan.circuit import Bjt, Resistor
+circuit = ampplan.Plan.load(files("ampplan") / "data" / "demo_plan.json").compile().circuit
+rng = np.random.default_rng({seed})
+batch = {{}}
+for e in circuit.elements:
+    if isinstance(e, Resistor):
+        batch[e.name] = e.resistance * rng.uniform(0.95, 1.05, {samples})
+    elif isinstance(e, Bjt):
+        batch[e.name + ".beta"] = np.exp(rng.uniform(np.log(100.0), np.log(300.0), {samples}))
+circuit.solve(model="constant-drop")
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+wall, cpu = time.perf_counter(), time.process_time()
+op = circuit.solve(model="constant-drop", batch=batch)
+wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+worst = 0.0
+for k in rng.choice({samples}, 25, replace=False):
+    # The same sample as a circuit of its own, solved alone.
+    alone = ampplan.Circuit()
+    for e in circuit.elements:
+        if isinstance(e, Resistor):
+            e = dataclasses.replace(e, resistance=float(batch[e.name][k]))
+        elif isinstance(e, Bjt):
+            e = dataclasses.replace(e, device=dataclasses.replace(e.device, beta=float(batch[e.name + ".beta"][k])))
+        alone.add(e)
+    single = alone.solve(model="constant-drop")
+    got = op.sample(int(k))
+    for name in op.v:
+        worst = max(worst, abs(got.v[name] - single.v[name]) / max(1.0, abs(single.v[name])))
+    for name, t in got.transistors.items():
+        assert t.region == single.transistors[name].region
+print(wall, cpu, before, peak, int(np.sum(op.status == "ok")), worst)
+"""
+
+
+def bench_constant_drop_batch() -> None:
+    """100,000 samples of the compiled demo plan (resistors ±5 %, β log-uniform 100…300) in one
+    constant-drop batch, in a fresh process so that the peak memory is the batch's own; 25 samples
+    are checked against single solves of the same values."""
+    import subprocess
+    root = str(Path(__file__).resolve().parents[2])
+    script = _BATCH_SCRIPT.format(root=root, seed=RANDOM_STATE, samples=CD_BATCH_SAMPLES)
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=1800)
+    if out.returncode:
+        print(f"(e) constant-drop batch failed:\n{out.stderr}")
+        return
+    wall, cpu, before, peak, n_ok, worst = (float(v) for v in out.stdout.split())
+    print(f"(e) constant-drop batch of {CD_BATCH_SAMPLES:,} samples of the compiled demo plan (own process)")
+    print(f"    {wall:.2f} s wall, {cpu:.2f} s CPU; {int(n_ok):,} consistent; peak resident memory {peak:.0f} MiB "
+          f"({before:.0f} MiB before the batch)")
+    print(f"    25 samples against their single solves: regions equal, node voltages within {worst:.1e} "
+          "(relative, floor 1 V)")
+    print(f"    target: < {TARGET_CD_BATCH_S:g} s -> {wall:.2f} s, {verdict(wall < TARGET_CD_BATCH_S)}; "
+          f"peak < {TARGET_CD_BATCH_MIB:g} MiB -> {peak:.0f} MiB, {verdict(peak < TARGET_CD_BATCH_MIB)}")
+    print()
+
+
+def bench_constant_drop_chains() -> None:
+    """One solve of the demo's first stage repeated 12, 20 and 30 times (capacitor-coupled)."""
+    from importlib.resources import files
+    demo = ampplan.Plan.load(files("ampplan") / "data" / "demo_plan.json")
+    print("(f) single constant-drop solves of long chains (the demo's first stage repeated), median wall "
+          "time of a solve once the layout is built")
+    for stages in (12, 20, 30):
+        plan = ampplan.Plan(supply=12.0)
+        for _ in range(stages):
+            plan.add(demo.stages[0])
+        c = plan.compile().circuit
+        c.solve(model="constant-drop")
+        t = median_time(lambda: c.solve(model="constant-drop"), repeat=3, warmup=0)
+        line = f"    {stages} stages ({stages} transistors): {t * 1e3:.1f} ms"
+        if stages == 12:
+            line += f"; target: < {TARGET_CHAIN_S:g} s -> {verdict(t < TARGET_CHAIN_S)}"
+        print(line)
+    print()
+
+
 def main() -> int:
     print(f"ampplan {ampplan.__version__} solver benchmark — Python {platform.python_version()}, "
           f"numpy {np.__version__}, scipy {scipy.__version__}, {os.cpu_count()} CPU(s), {platform.machine()}")
     print()
     bench_single()
     agree = bench_batch()
+    bench_constant_drop_single()
+    bench_constant_drop_batch()
+    bench_constant_drop_chains()
     if not agree:
         print("the batched and the reference answers disagree: the speed figures above are not valid")
         return 1
