@@ -252,8 +252,9 @@ class CompiledPlan:
                 circuit_batch[where.key] = checked
         if len(set(sizes.values())) > 1:
             raise InvalidValueError("batch arrays differ in length: " + ", ".join(f"{k}: {n}" for k, n in sizes.items()))
-        if any(n == 0 for n in sizes.values()):
-            raise InvalidValueError("batch arrays are empty")
+        empty = [k for k, n in sizes.items() if n == 0]
+        if empty:
+            raise InvalidValueError(f"batch arrays are empty: {', '.join(empty)}")
         return circuit_batch, plan_values
 
     def _not_batchable(self, address):
