@@ -59,8 +59,12 @@ def analyse_plan(plan, model: str = "constant-drop", active_edge: str = "vce-sat
 
 
 def incremental_system(compiled) -> IncrementalSystem:
-    """The incremental solves of a compiled plan (cached on it): the source drive, then per stage
-    its input-resistance cut, output-resistance cut, AC and DC load-line ports."""
+    """The incremental solves of a compiled plan: the source drive, then per stage its
+    input-resistance cut, output-resistance cut, AC and DC load-line ports.
+
+    They depend on the circuit's topology only, so they are kept (a few at a time) for every
+    compiled plan of the same topology: a slider that moves a value re-solves without rebuilding them.
+    """
     cached = compiled.cache.get("incremental")
     if cached is None:
         owner = compiled.owner
@@ -72,8 +76,32 @@ def incremental_system(compiled) -> IncrementalSystem:
             variants += [Variant(inject=nodes.input, ground=upstream), Variant(inject=nodes.output, ground=downstream),
                          Variant(capacitors="short", port=index[nodes.transistor]),
                          Variant(capacitors="open", port=index[nodes.transistor])]
-        cached = compiled.cache["incremental"] = IncrementalSystem(compiled.circuit, variants)
+        key = (_topology(compiled.circuit), tuple((v.capacitors, v.excite, v.inject, tuple(sorted(
+            (k, tuple(sorted(n))) for k, n in v.ground.items())), v.port) for v in variants))
+        cached = _SYSTEMS.get(key)
+        if cached is None:
+            cached = IncrementalSystem(compiled.circuit, variants)
+            _SYSTEMS[key] = cached
+            while len(_SYSTEMS) > _SYSTEMS_KEPT:
+                _SYSTEMS.pop(next(iter(_SYSTEMS)))
+        compiled.cache["incremental"] = cached
     return cached
+
+
+#: Incremental systems by topology, oldest first; at most _SYSTEMS_KEPT are kept.
+_SYSTEMS: dict = {}
+_SYSTEMS_KEPT = 16
+
+
+def _topology(circuit) -> tuple:
+    """What an incremental system depends on: each element's kind, name, nodes and polarity."""
+    out = []
+    for e in circuit.elements:
+        device = getattr(e, "device", None)
+        nodes = tuple(getattr(e, f) for f in ("a", "b", "plus", "minus", "from_node", "to_node", "collector",
+                                              "base", "emitter") if hasattr(e, f))
+        out.append((type(e).__name__, e.name, nodes, device.sign if device is not None else 0))
+    return tuple(out)
 
 
 def _ratio(a, b):

@@ -230,7 +230,14 @@ class IncrementalSystem:
                                                lambda a: a[:, 1] * size + a[:, 2])
         self._rhs_plan = self._scatter_plan(np.concatenate(rhs_stamps), size, lambda a: a[:, 1])
         self._base_plan = self._scatter_plan(stamps[0], size * size, lambda a: a[:, 1] * size + a[:, 2])
-        self._edits = [self._edit_plan(stamps[0], st) for st in stamps[1:]]
+        self._edit_plans = None
+
+    @property
+    def _edits(self):
+        """Each variant as edits of the base (built when a batch first needs them)."""
+        if self._edit_plans is None:
+            self._edit_plans = [self._edit_plan(self._stamps[0], st) for st in self._stamps[1:]]
+        return self._edit_plans
 
     @staticmethod
     def _scatter_plan(stamps, per_variant, position):

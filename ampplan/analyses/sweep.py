@@ -1,5 +1,8 @@
 """Quasi-static large-signal sweep of a source: where does the first transistor leave forward-active?
 
+The bisected reference: plans find their clipping with :mod:`.clipping` (exact for constant-drop,
+a guided search for Ebers–Moll); the tests hold that to this sweep.
+
 The coupling and bypass capacitors are held at their Q-point voltages (each becomes a voltage
 source of that value), the source EMF is stepped away from its Q-point value in both directions,
 and every step is one sample of one batched solve. A coarse logarithmic grid brackets the first
