@@ -179,7 +179,7 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
     models = transistor_models(op, params)
     port_beta = np.where(np.isfinite(models.beta_ac) & (models.beta_ac > 0), models.beta_ac, params.device["beta"])
     system = incremental_system(compiled)
-    x = system.solve(params.conductance, models, port_beta=port_beta)     # (S, V, size)
+    x = system.solve(params.conductance, models, port_beta=port_beta, shared=not single)     # (S, V, size)
     index = system.index
     node = lambda v, name: x[:, v, index[name]] if name in index and index[name] < system.size \
         else np.zeros(s_count)  # noqa: E731  (ground)

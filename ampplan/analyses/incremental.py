@@ -326,7 +326,7 @@ class IncrementalSystem:
             out[:, positions] = np.add.reduceat(table[:, columns] * coefficients, starts, axis=1)
         return out
 
-    def solve(self, conductance, models: TransistorModels, port_beta=None) -> np.ndarray:
+    def solve(self, conductance, models: TransistorModels, port_beta=None, shared: bool = True) -> np.ndarray:
         """Solve every variant for every sample.
 
         One factorisation per sample: the base variant's matrix M0 is inverted once, and every
@@ -334,8 +334,8 @@ class IncrementalSystem:
         is solved from it by the Sherman–Morrison–Woodbury identity (Golub & Van Loan, *Matrix
         Computations*, the section on updating matrix factorisations, from memory), followed by
         one step of iterative refinement. Samples are taken in blocks of :data:`BLOCK`, so memory
-        stays bounded; samples whose base matrix is singular, and blocks of at most
-        :data:`STACKED` samples (a single solve), are solved variant by variant.
+        stays bounded; samples whose base matrix is singular, and a single solve
+        (``shared=False``), are solved variant by variant.
 
         Parameters
         ----------
@@ -344,6 +344,10 @@ class IncrementalSystem:
         models : TransistorModels
         port_beta : ndarray, shape (S, N), optional
             β giving I_B = 1/β of a port excitation (default ``models.beta_ac``).
+        shared : bool
+            Share one factorisation per sample (a batch). False solves each variant's matrix on
+            its own, which is cheaper for a single solve. Either way a sample's answer does not
+            depend on the other samples in its batch, bit for bit.
 
         Returns
         -------
@@ -356,18 +360,18 @@ class IncrementalSystem:
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         x = np.empty((s_count, n_var, n))
         for at in range(0, s_count, BLOCK):
-            x[at:at + BLOCK] = self._solve_block(table[at:at + BLOCK])
+            x[at:at + BLOCK] = self._solve_block(table[at:at + BLOCK], shared)
         for v, gone in enumerate(self.vanished):
             if gone:
                 x[:, v, gone] = np.nan
         return x
 
-    def _solve_block(self, table):
+    def _solve_block(self, table, shared):
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         rhs = self._scatter(table, self._rhs_plan, n_var * n).reshape(s_count, n_var, n)
-        if s_count <= STACKED:
-            # A few samples: every variant's matrix on its own, all in one batched solve (cheaper
-            # than the updates below when there is no factorisation to share).
+        if not shared:
+            # Every variant's matrix on its own, all in one batched solve (cheaper than the
+            # updates below when there is no factorisation to share).
             matrix = self._scatter(table, self._matrix_plan, n_var * n * n).reshape(s_count * n_var, n, n)
             xs, _ = solve_batch(matrix, rhs.reshape(s_count * n_var, n))
             return xs.reshape(s_count, n_var, n)
@@ -416,8 +420,6 @@ def _mv(matrix, vector):
     return (matrix @ vector[..., None])[..., 0]
 
 
-#: Up to this many samples the variants are solved one matrix each (no shared factorisation).
-STACKED = 8
 #: Samples per block of :meth:`IncrementalSystem.solve` (bounds the working arrays).
 BLOCK = 2048
 
