@@ -218,8 +218,9 @@ def test_regular_install_places_the_config_file(tmp_path):
     # Installing that wheel into a prefix puts the file where jupyter_core looks for a
     # environment's configuration (<sys.prefix>/etc/jupyter for the running environment).
     prefix = tmp_path / "prefix"
+    # --ignore-installed: never uninstall the development environment's own ampplan on the way.
     done = subprocess.run([sys.executable, "-m", "pip", "install", "--no-deps", "--no-index", "--quiet",
-                           "--prefix", str(prefix), str(wheel)], capture_output=True, text=True, timeout=300)
+                           "--ignore-installed", "--prefix", str(prefix), str(wheel)], capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr[-2000:]
     placed = prefix / "etc" / "jupyter" / "jupyter_server_config.d" / "ampplan.json"
     assert json.loads(placed.read_text()) == json.loads(CONFIG_FILE.read_text())

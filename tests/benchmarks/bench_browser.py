@@ -12,8 +12,8 @@ Baseline printed beside them, measured in the same run: the same round trip with
 callback does no solve (it moves the point by the slider value only), i.e. the cost of the
 browser/kernel/BokehJS plumbing itself.
 
-The notebook is the walkthrough's live plan (``ampplan.notebook.LivePlan.demo()``, its editor and
-canvas) when this checkout has it, otherwise the browser tests' stand-in notebook (same plumbing,
+The notebook is issue 7's workflow on the live plan (``ampplan.notebook.LivePlan.demo()``, one editor
+per stage, the canvas, the summary) when this checkout has it, otherwise the browser tests' stand-in notebook (same plumbing,
 a plain solve per value); the output says which.
 
 Run with ``make bench`` (prints a line and exits 0 when no Chromium is found). Timings on a shared
@@ -22,7 +22,6 @@ Run with ``make bench`` (prints a line and exits 0 when no Chromium is found). T
 
 from __future__ import annotations
 
-import importlib
 import os
 import pathlib
 import statistics
@@ -44,20 +43,7 @@ SLIDER = ".ampplan-control-s1-rc .noUi-handle"
 SOURCE = "ampplan-s1-qpoint"
 
 
-def has_live_plan() -> bool:
-    try:
-        return hasattr(importlib.import_module("ampplan.notebook"), "LivePlan")
-    except ImportError:
-        return False
-
-
-def live_notebook(model: str) -> nbformat.NotebookNode:
-    cells = ["%load_ext ampplan",
-             f"from ampplan import notebook as nb\nlive = nb.LivePlan.demo()\nlive.model = {model!r}",
-             'live.editor("s1")', "live.canvas()"]
-    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell(c) for c in cells])
-    nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
-    return nb
+has_live_plan = fixture_notebook.has_live_plan
 
 
 def baseline_notebook() -> nbformat.NotebookNode:
@@ -121,7 +107,7 @@ def main() -> int:
                 base_median = statistics.median(base)
                 print(line("baseline: no solve in the callback", base, None, None))
                 for model, target in TARGETS_MS.items():
-                    nb = live_notebook(model) if live else fixture_notebook.build(model)
+                    nb = fixture_notebook.build_best(model)
                     times = measure(server, browser, f"bench-{model}.ipynb", nb)
                     print(line(model, times, target, base_median))
                 browser.close()

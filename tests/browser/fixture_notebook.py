@@ -104,6 +104,41 @@ picture_handle = display(Image(data=picture(result), format="png"), display_id=T
 ]
 
 
+def has_live_plan() -> bool:
+    """Whether this checkout has the notebook face's live plan (``ampplan.notebook.LivePlan``)."""
+    import importlib
+
+    try:
+        return hasattr(importlib.import_module("ampplan.notebook"), "LivePlan")
+    except ImportError:
+        return False
+
+
+#: The designer's workflow of issue 7 on the demo plan: one editor per stage, canvas, summary.
+LIVE_CELLS = [
+    "%load_ext ampplan",
+    'from ampplan import notebook as nb\nlive = nb.LivePlan.demo()\nlive.model = "constant-drop"',
+    'live.editor("s1")',
+    'live.editor("s2")',
+    'live.editor("s3")',
+    "live.canvas()",
+    "live.summary()",
+]
+
+
+def build_live(model: str = "constant-drop") -> nbformat.NotebookNode:
+    """The live-plan notebook (issue 7's workflow), without outputs, solving with ``model``."""
+    cells = [c.replace('live.model = "constant-drop"', f"live.model = {model!r}") for c in LIVE_CELLS]
+    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell(source) for source in cells])
+    nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
+    return nb
+
+
+def build_best(model: str = "constant-drop") -> nbformat.NotebookNode:
+    """The live-plan notebook where this checkout has the live plan, else the stand-in."""
+    return build_live(model) if has_live_plan() else build(model)
+
+
 def build(model: str = "constant-drop") -> nbformat.NotebookNode:
     """The notebook, without outputs, with the python3 kernel, solving with device ``model``."""
     cells = [c.replace('MODEL = "constant-drop"', f"MODEL = {model!r}") for c in CELLS]

@@ -35,8 +35,36 @@ MAX_RECORD_BYTES = 1_000_000
 
 def write_notebook(folder: pathlib.Path) -> pathlib.Path:
     path = folder / NOTEBOOK_NAME
-    nbformat.write(fixture_notebook.build(), path)
+    nbformat.write(fixture_notebook.build_best(), path)
     return path
+
+
+def demo_value(address: str) -> float:
+    from importlib.resources import files
+
+    import ampplan
+
+    return ampplan.Plan.load(files("ampplan") / "data" / "demo_plan.json").get(address)
+
+
+def shown_values_drift(page) -> list[str]:
+    """Controls whose shown value differs from the demo plan's after Run All, untouched.
+
+    Displaying an editor must not edit the plan: a slider whose front end snaps the value to its
+    step grid and sends it back would silently change the design (and fill the undo history).
+    """
+    from ampplan.units import parse_quantity
+
+    drift = []
+    for address in ("s1.rb1", "s1.rb2", "s1.rc", "s1.re", "s2.rc", "s3.re"):
+        field = page.locator(f".ampplan-control-{address.replace('.', '-')} .ampplan-control-text input")
+        if field.count() == 0:
+            continue
+        text = field.first.input_value()
+        expected = demo_value(address)
+        if abs(parse_quantity(text, "Ω") - expected) > 1e-6 * expected:
+            drift.append(f"{address} shows {text!r}, the demo plan has {expected:g} Ω")
+    return drift
 
 
 def error_outputs(page) -> list[str]:
@@ -72,6 +100,11 @@ def test_walkthrough_live_in_jupyterlab(lab, browser, request):
         lab_page.wait_source(page, CANVAS_SOURCE)
         page.locator(SLIDER).first.wait_for(timeout=30_000)
         assert error_outputs(page) == []
+        if fixture_notebook.has_live_plan():
+            page.wait_for_timeout(1000)   # let any value a slider view sends back arrive
+            drift = shown_values_drift(page)
+            assert drift == [], ("showing the editors changed the plan (a slider view snapping the value "
+                                 "to its step grid and syncing it back?): " + "; ".join(drift))
 
         # BokehJS came from ampplan's route on this server, the installed version, no CDN.
         served = [u for u in requests if "/ampplan/bokehjs/js/bokeh.min.js" in u]
