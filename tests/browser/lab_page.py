@@ -95,23 +95,45 @@ def save(page) -> None:
     page.wait_for_function("() => !window.jupyterapp.shell.currentWidget.context.model.dirty")
 
 
-def press_and_time(page, handle_selector: str, sources: list[str], presses: int, key_cycle=("ArrowRight",),
-                   settle_s: float = 0.25, timeout: float = 30_000) -> list[float]:
-    """Press keys on a slider handle and return the in-page times (ms) from keydown to bokeh data change.
+JS_KERNEL_IDLE = """() => {
+  const w = window.jupyterapp.shell.currentWidget;
+  return w.sessionContext.session.kernel.status === 'idle';
+}"""
 
-    Each press waits for its change signal (so presses never overlap and every time is one round
-    trip: browser → kernel → solve → views → BokehJS), then ``settle_s`` so the kernel is idle.
+
+def wait_kernel_idle(page, quiet_s: float = 0.3, timeout: float = 120_000) -> None:
+    """Wait until the kernel has been idle for ``quiet_s`` (all work of the last message done)."""
+    deadline = time.monotonic() + timeout / 1000
+    while time.monotonic() < deadline:
+        page.wait_for_function(JS_KERNEL_IDLE, timeout=timeout, polling=20)
+        time.sleep(quiet_s)
+        if page.evaluate(JS_KERNEL_IDLE):
+            return
+    raise TimeoutError("the kernel did not become idle")
+
+
+def press_and_time(page, handle_selector: str, sources: list[str], presses: int, key_cycle=("ArrowRight",),
+                   timeout: float = 60_000) -> tuple[list[float], list[float]]:
+    """Press keys on a slider handle; return in-page times (ms) from keydown to bokeh data change,
+    and wall times (ms) from the press until the kernel was idle again.
+
+    Before each press the kernel is idle (so every time is one round trip, browser → kernel →
+    solve → views → BokehJS, not a wait behind the previous press's remaining work).
     """
     page.evaluate(JS_INSTALL_TIMER, sources)
     handle = page.locator(handle_selector).first
     handle.focus()
+    busy = []
     for k in range(presses):
+        wait_kernel_idle(page)
         before = page.evaluate("() => window.__ampplan_timer.times.length")
+        start = time.perf_counter()
         handle.press(key_cycle[k % len(key_cycle)])
         page.wait_for_function(f"() => window.__ampplan_timer.times.length > {before}", timeout=timeout,
                                polling="raf")
-        time.sleep(settle_s)
-    return list(page.evaluate("() => window.__ampplan_timer.times"))
+        wait_kernel_idle(page, quiet_s=0.05)
+        busy.append((time.perf_counter() - start) * 1000 - 50)
+    return list(page.evaluate("() => window.__ampplan_timer.times")), busy
 
 
 def screenshot_element(page, selector: str, path: str) -> None:
