@@ -119,8 +119,8 @@ def test_walkthrough_live_in_jupyterlab(lab, browser, request):
         handle.focus()
         handle.press("ArrowRight")
         page.wait_for_function(
-            f"(old) => JSON.stringify(({lab_page.JS_SOURCE_DATA})({json.dumps(CANVAS_SOURCE)})) !== old",
-            arg=json.dumps(before), timeout=30_000)
+            f"(old) => JSON.stringify(({lab_page.JS_SOURCE_DATA})({json.dumps(CANVAS_SOURCE)})) !== JSON.stringify(old)",
+            arg=before, timeout=30_000)
         page.wait_for_function("([sel, old]) => document.querySelector(sel).innerText !== old",
                                arg=[NEXT_STAGE_VIEW, view_before], timeout=30_000)
         after = lab_page.source_data(page, CANVAS_SOURCE)
