@@ -55,7 +55,7 @@ lab: $(VENV)/.stamp-lab $(SERVER_CONFIG) $(LAB_OVERRIDES)
 # headless Chromium by the browser test's screenshot helper (needs Debian's chromium).
 screenshot: $(VENV)/.stamp-test $(SERVER_CONFIG)
 	AMPPLAN_REQUIRE_BROWSER=1 $(BIN)/python -m pytest -q -p no:cacheprovider \
-		tests/browser/test_lab.py::test_walkthrough_live_in_jupyterlab --screenshot-to=docs/canvas.png
+		tests/browser/test_lab.py::test_notebook_live_in_jupyterlab -k workflow --screenshot-to=docs/canvas.png
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .hypothesis
