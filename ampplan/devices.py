@@ -239,6 +239,25 @@ PARAMETER_MAXIMA = {
     "vce_sat": 10.0,
     "vbe_temperature_coefficient": 0.1,
 }
+#: Range each numeric parameter usually takes, for controls such as slider ends (common practice,
+#: no source): small-signal and power silicon parts, room temperature, the drift silicon junctions
+#: show. Well inside the hard bounds above, which only refuse what cannot be meant.
+TYPICAL_RANGES: dict[str, tuple[float, float]] = {
+    "beta": (20.0, 800.0),
+    "vbe_on": (0.5, 0.9),
+    "vce_sat": (0.05, 0.5),
+    "beta_reverse": (0.1, 10.0),
+    "vbc_on": (0.4, 0.9),
+    "saturation_current": (1e-16, 1e-12),
+    "early_voltage": (20.0, 300.0),
+    "emission_coefficient": (1.0, 2.0),
+    "vbe_temperature_coefficient": (-2.5e-3, -1.5e-3),
+    "bandgap_energy": (0.6, 1.5),
+    "saturation_current_exponent": (2.0, 4.0),
+    "max_power": (0.1, 100.0),
+    "max_collector_current": (0.01, 10.0),
+    "max_vce": (10.0, 400.0),
+}
 #: Parameters that may be infinite (no Early effect, no rating).
 MAY_BE_INFINITE = {"early_voltage", "max_power", "max_collector_current", "max_vce"}
 

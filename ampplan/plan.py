@@ -7,6 +7,7 @@ the analyses of :mod:`ampplan.analyses` on that one operating point.
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
 import numbers
 import re
@@ -21,10 +22,10 @@ from .devices import DEVICE_UNITS, MAY_BE_INFINITE, PARAMETER_BOUNDS, PARAMETER_
 from .devices import FIELDS as DEVICE_FIELDS
 from .devices import PARAMETERS as DEVICE_PARAMETERS
 from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
-from .stages import Parameter, Rails, Stage, StageNodes
+from .stages import Parameter, Rails, Stage, StageNodes, declared, declared_parameters
 from .validation import MAX_TEXT_LENGTH, check_samples, check_text, shown
 
-__all__ = ["Plan", "Coupling", "COUPLINGS", "CompiledPlan", "PlanAddress", "PLAN_PARAMETERS"]
+__all__ = ["Plan", "PlanValues", "Coupling", "COUPLINGS", "CompiledPlan", "PlanAddress", "PLAN_PARAMETERS"]
 
 Coupling = Literal["capacitor", "direct"]
 COUPLINGS: tuple[str, ...] = get_args(Coupling)
@@ -40,27 +41,53 @@ EMF_NODE, SOURCE_NODE, LOAD_NODE = "emf", "source_out", "load"
 #: VOLTAGE_LIMIT, which leaves the analyses room to drive the source beyond the rails.
 SUPPLY_LIMIT = VOLTAGE_LIMIT / 100
 
-#: Plan-level numbers, declared once: validation, the plan-file schema and docs come from here.
-PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in (
-    Parameter("supply", "V", 12.0, "positive supply rail, volts", minimum=0.0, maximum=SUPPLY_LIMIT,
-              optional=False, scale="linear"),
-    Parameter("negative_supply", "V", 0.0, "lower rail (0 for ground, negative for a split supply), volts",
-              minimum=-SUPPLY_LIMIT, minimum_inclusive=True, maximum=0.0, optional=False, scale="linear"),
-    # 0 or within RESISTANCE_RANGE; the gap below its lower end is refused by Plan itself.
-    Parameter("source_resistance", "Ω", 0.0, "signal source resistance, ohms (0 for an ideal source)",
-              minimum=0.0, minimum_inclusive=True, maximum=RESISTANCE_RANGE[1], optional=False),
-    Parameter("load_resistance", "Ω", None, "load resistance, ohms (None: no load)",
-              minimum=RESISTANCE_RANGE[0], minimum_inclusive=True, maximum=RESISTANCE_RANGE[1]),
-    Parameter("temperature", "°C", 25.0, "ambient and junction temperature, degrees Celsius",
-              minimum=TEMPERATURE_RANGE[0], minimum_inclusive=True, maximum=TEMPERATURE_RANGE[1], optional=False,
-              scale="linear"),
-    Parameter("resistor_power_rating", "W", 0.25, "power rating of every resistor, watts (common practice)",
-              optional=False),
-    Parameter("min_headroom", "V", 1.0, "caution when V_CE is closer than this to the forward-active edge, volts",
-              minimum=0.0, minimum_inclusive=True, maximum=SUPPLY_LIMIT, optional=False, scale="linear"),
-    Parameter("coupling_capacitance", "F", None, "value of every coupling capacitor, farads (None: not chosen)"),
-    Parameter("bypass_capacitance", "F", None, "default bypass capacitor value, farads (None: not chosen)"),
-)}
+@dataclass(frozen=True)
+class PlanValues:
+    """The plan's own numbers, each declared once as a field with its :class:`~ampplan.stages.Parameter`.
+
+    Validation (``Plan.<name>`` in messages), the :class:`Plan` properties, the plan-file schema,
+    the docs and the controls all come from these fields (see :data:`PLAN_PARAMETERS`). Typical
+    ranges are common practice, no source.
+    """
+    # Rails within SUPPLY_LIMIT, so that the plan never holds a value its circuit would refuse.
+    supply: float = field(default=12.0, metadata=declared(
+        "V", "positive supply rail, volts", typical=(3.0, 48.0), minimum=0.0, maximum=SUPPLY_LIMIT,
+        scale="linear"))
+    negative_supply: float = field(default=0.0, metadata=declared(
+        "V", "lower rail (0 for ground, negative for a split supply), volts", typical=(-24.0, 0.0),
+        minimum=-SUPPLY_LIMIT, minimum_inclusive=True, maximum=0.0, scale="linear"))
+    # 0 or within RESISTANCE_RANGE; the gap below its lower end is refused in __post_init__.
+    source_resistance: float = field(default=0.0, metadata=declared(
+        "Ω", "signal source resistance, ohms (0 for an ideal source)", typical=(10.0, 100e3),
+        minimum=0.0, minimum_inclusive=True, maximum=RESISTANCE_RANGE[1]))
+    load_resistance: float | None = field(default=None, metadata=declared(
+        "Ω", "load resistance, ohms (None: no load)", typical=(100.0, 1e6),
+        minimum=RESISTANCE_RANGE[0], minimum_inclusive=True, maximum=RESISTANCE_RANGE[1]))
+    temperature: float = field(default=25.0, metadata=declared(
+        "°C", "ambient and junction temperature, degrees Celsius", typical=(-40.0, 125.0),
+        minimum=TEMPERATURE_RANGE[0], minimum_inclusive=True, maximum=TEMPERATURE_RANGE[1], scale="linear"))
+    resistor_power_rating: float = field(default=0.25, metadata=declared(
+        "W", "power rating of every resistor, watts (common practice)", typical=(0.125, 2.0)))
+    min_headroom: float = field(default=1.0, metadata=declared(
+        "V", "caution when V_CE is closer than this to the forward-active edge, volts", typical=(0.0, 5.0),
+        minimum=0.0, minimum_inclusive=True, maximum=SUPPLY_LIMIT, scale="linear"))
+    coupling_capacitance: float | None = field(default=None, metadata=declared(
+        "F", "value of every coupling capacitor, farads (None: not chosen)", typical=(100e-9, 100e-6)))
+    bypass_capacitance: float | None = field(default=None, metadata=declared(
+        "F", "default bypass capacitor value, farads (None: not chosen)", typical=(1e-6, 1e-3)))
+
+    def __post_init__(self):
+        for p in PLAN_PARAMETERS.values():
+            object.__setattr__(self, p.name, p.check(getattr(self, p.name), f"Plan.{p.name}"))
+        if 0 < self.source_resistance < RESISTANCE_RANGE[0]:
+            # Below the circuit's smallest resistance the source would swamp the equations' precision;
+            # 0 is the ideal source.
+            raise InvalidValueError(f"Plan.source_resistance: must be 0 (an ideal source) or >= "
+                                    f"{RESISTANCE_RANGE[0]:g} Ω, got {shown(self.source_resistance)}")
+
+
+#: Plan-level numbers by name, read from :class:`PlanValues`' declarations.
+PLAN_PARAMETERS: dict[str, Parameter] = {p.name: p for p in declared_parameters(PlanValues)}
 
 
 #: Plan-level addresses that hold words, not numbers.
@@ -306,23 +333,20 @@ class Plan:
         #: Number of the next automatic id ("s<n>"); it only grows, so no id comes back.
         self._next_number = 1
         self.description = description
-        for name, value in (("supply", supply), ("negative_supply", negative_supply),
-                            ("source_resistance", source_resistance), ("load_resistance", load_resistance),
-                            ("temperature", temperature), ("resistor_power_rating", resistor_power_rating),
-                            ("min_headroom", min_headroom), ("coupling_capacitance", coupling_capacitance),
-                            ("bypass_capacitance", bypass_capacitance)):
-            self._set_plan_value(name, value)
+        self._values = PlanValues(supply=supply, negative_supply=negative_supply, source_resistance=source_resistance,
+                                  load_resistance=load_resistance, temperature=temperature,
+                                  resistor_power_rating=resistor_power_rating, min_headroom=min_headroom,
+                                  coupling_capacitance=coupling_capacitance, bypass_capacitance=bypass_capacitance)
         self.load_coupling = load_coupling
 
     # -- plan-level values --------------------------------------------------------------------
+    @property
+    def values(self) -> PlanValues:
+        """The plan's numbers as one frozen, validated :class:`PlanValues`."""
+        return self._values
+
     def _set_plan_value(self, name, value):
-        number = PLAN_PARAMETERS[name].check(value, f"Plan.{name}")
-        if name == "source_resistance" and number is not None and 0 < number < RESISTANCE_RANGE[0]:
-            # Below the circuit's smallest resistance the source would swamp the equations' precision;
-            # 0 is the ideal source.
-            raise InvalidValueError(f"Plan.source_resistance: must be 0 (an ideal source) or >= "
-                                    f"{RESISTANCE_RANGE[0]:g} Ω, got {shown(value)}")
-        object.__setattr__(self, "_" + name, number)
+        self._values = dataclasses.replace(self._values, **{name: value})
 
     @property
     def description(self) -> str:
@@ -538,7 +562,8 @@ class Plan:
         raise InvalidValueError(f"{address} holds {held}, not a number, so it has no unit")
 
     def copy(self) -> "Plan":
-        """An independent copy (stages are immutable)."""
+        """An independent copy: a deep copy, since a CustomStage holds a mutable Circuit (template
+        stages are frozen, but a custom stage's circuit can be changed in place)."""
         return copy.deepcopy(self)
 
     # -- compile and solve --------------------------------------------------------------------
@@ -562,6 +587,7 @@ class Plan:
             owner[SOURCE_RESISTOR] = 0.0
             previous = SOURCE_NODE
         nodes, sids = [], []
+        plan_values = dataclasses.asdict(self._values)
         for k, entry in enumerate(self._entries, start=1):
             sid = entry.id
             sids.append(sid)
@@ -571,9 +597,8 @@ class Plan:
                 owner[f"{sid}_coupling"] = k - 0.5
             else:
                 input_node = previous
-            stage = entry.stage
-            if getattr(stage, "c_bypass", "absent") is None and self.bypass_capacitance is not None:
-                stage = stage.replace(c_bypass=self.bypass_capacitance)
+            # A capacitor left None takes the plan value its declaration names (bypass_capacitance).
+            stage = entry.stage.with_plan_defaults(plan_values)
             built: StageNodes = stage.build(c, sid, input_node, rails)
             for name in built.elements:
                 owner[name] = float(k)
@@ -724,7 +749,7 @@ def _addresses(circuit: Circuit, ids, stages, built) -> dict:
 def _plan_value(name: str) -> property:
     """The validated property of one declared plan value."""
     p = PLAN_PARAMETERS[name]
-    return property(lambda self: getattr(self, "_" + name), lambda self, value: self._set_plan_value(name, value),
+    return property(lambda self: getattr(self._values, name), lambda self, value: self._set_plan_value(name, value),
                     doc=f"{p.help} ({p.unit}).")
 
 

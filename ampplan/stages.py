@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import typing
 from dataclasses import dataclass, field
 from typing import ClassVar, Literal, get_args
 
@@ -37,7 +38,12 @@ LOWER_NODE = "lower"
 
 @dataclass(frozen=True)
 class Parameter:
-    """One declared parameter of a stage template.
+    """One declared number: of a stage template or of a plan.
+
+    It is declared once, in the metadata of the dataclass field that holds the value
+    (:func:`declared`); the field gives the name and the default, and the field's annotation says
+    whether None is allowed (``float | None``). Validation, the docstring, the plan-file schema and
+    the controls of a notebook all read it.
 
     Attributes
     ----------
@@ -58,6 +64,13 @@ class Parameter:
         None is allowed and means "not fitted".
     help : str
         One line for a tooltip and the docstring.
+    typical : (float, float)
+        The range a designer usually moves it in, for controls such as slider ends; well inside
+        the hard bounds (``minimum``, ``maximum``), which only refuse what cannot be meant. For a
+        ``"log"`` scale both ends are > 0. Common practice, no source, unless the help says so.
+    plan_default : str or None
+        Name of the plan value that stands in when this one is None (``"bypass_capacitance"``
+        for a bypass capacitor left unchosen).
     """
     name: str
     unit: str
@@ -68,6 +81,8 @@ class Parameter:
     scale: Scale = "log"
     optional: bool = True
     minimum_inclusive: bool = False
+    typical: tuple[float, float] | None = None
+    plan_default: str | None = None
 
     def check(self, value, where: str):
         """Return ``value`` as float (or None), raising InvalidValueError naming ``where``.
@@ -100,15 +115,57 @@ class StageNodes:
     elements: tuple[str, ...]
 
 
-def _r(p, help_, default=None, optional=True):
-    # Resistances take their bounds from the circuit's RESISTANCE_RANGE, so that a stage never
-    # holds a value its circuit would refuse.
-    return Parameter(p, "Ω", default, help_, optional=optional, minimum=RESISTANCE_RANGE[0],
-                     minimum_inclusive=True, maximum=RESISTANCE_RANGE[1])
+#: Key of a field's metadata that holds its :class:`Parameter`.
+PARAMETER_KEY = "parameter"
 
 
-def _c(p, help_):
-    return Parameter(p, "F", None, help_)
+def declared(unit: str, help: str, typical: tuple[float, float], **bounds) -> dict:
+    """Field metadata declaring a number: ``field(default=..., metadata=declared(...))``.
+
+    The name, the default and whether None is allowed come from the field itself (filled in by
+    :func:`declared_parameters`); ``bounds`` are the other :class:`Parameter` attributes.
+    """
+    return {PARAMETER_KEY: Parameter("", unit, None, help, typical=typical, **bounds)}
+
+
+def resistance(help: str, typical: tuple[float, float]) -> dict:
+    """Field metadata of a resistance: ohms, bounds from the circuit's RESISTANCE_RANGE (so that a
+    stage never holds a value its circuit would refuse), log scale."""
+    return declared("Ω", help, typical, minimum=RESISTANCE_RANGE[0], minimum_inclusive=True,
+                    maximum=RESISTANCE_RANGE[1])
+
+
+def capacitance(help: str, typical: tuple[float, float], plan_default: str | None = None) -> dict:
+    """Field metadata of a capacitance: farads, > 0, log scale (open at DC, short at midband)."""
+    return declared("F", help, typical, plan_default=plan_default)
+
+
+def declared_parameters(cls) -> tuple[Parameter, ...]:
+    """The :class:`Parameter` of every declared field of dataclass ``cls``, in field order, with
+    the field's name and default filled in and ``optional`` read from its annotation."""
+    hints = typing.get_type_hints(cls)
+    out = []
+    for f in dataclasses.fields(cls):
+        p = f.metadata.get(PARAMETER_KEY)
+        if p is None:
+            continue
+        default = None if f.default is dataclasses.MISSING else f.default
+        out.append(dataclasses.replace(p, name=f.name, default=default,
+                                       optional=type(None) in typing.get_args(hints[f.name])))
+    return tuple(out)
+
+
+def parameter_doc(parameters) -> list[str]:
+    """numpydoc lines of declared parameters: name, type, help, unit, bounds and default."""
+    lines = []
+    for p in parameters:
+        default = "None" if p.default is None else f"{p.default:g}"
+        lines += [f"{p.name} : float{' or None' if p.optional else ''}",
+                  f"    {p.help} ({p.unit or 'dimensionless'}, {p.bounds_text()}; default {default}; "
+                  f"typically {p.typical[0]:g} to {p.typical[1]:g})."]
+    return lines
+
+
 
 
 class Stage:
@@ -156,6 +213,13 @@ class Stage:
         """True when the stage biases its own input (a divider or base resistor)."""
         return True
 
+    def with_plan_defaults(self, values: dict) -> "Stage":
+        """A copy where each parameter left None takes the plan value its declaration names
+        (``plan_default``), when that value is set; ``values`` maps plan value names to values."""
+        changes = {p.name: values[p.plan_default] for p in self.PARAMETERS
+                   if p.plan_default and getattr(self, p.name) is None and values.get(p.plan_default) is not None}
+        return self.replace(**changes) if changes else self
+
     def build(self, circuit: Circuit, sid: str, input_node: str, rails: Rails) -> StageNodes:
         """Add this stage's elements to ``circuit`` with names prefixed ``sid`` (e.g. ``s1_rc``)."""
         raise NotImplementedError
@@ -191,21 +255,20 @@ class Stage:
             added += [f"{sid}_re_bypassed", f"{sid}_c_bypass"]
 
 
-def _template(name: str, kind: str, parameters: tuple[Parameter, ...], summary: str, base=Stage):
-    """Make a frozen dataclass stage template from its parameter declarations."""
-    fields = [(p.name, float | None, field(default=p.default)) for p in parameters]
-    fields.append(("device", Transistor, field(default_factory=Transistor)))
-    cls = dataclasses.make_dataclass(name, fields, bases=(base,), frozen=True,
-                                     namespace={"kind": kind, "PARAMETERS": parameters})
-    lines = [summary, "", "Parameters", "----------"]
-    for p in parameters:
-        default = "None" if p.default is None else f"{p.default:g}"
-        lines += [f"{p.name} : float{' or None' if p.optional else ''}",
-                  f"    {p.help} ({p.unit}, {p.bounds_text()}; default {default})."]
-    lines += ["device : Transistor", "    The stage's transistor (its polarity decides the orientation)."]
-    cls.__doc__ = "\n".join(lines)
-    cls.__module__ = __name__
-    return cls
+def _template(kind: str):
+    """Class decorator of a stage template, applied above ``@dataclass(frozen=True)``.
+
+    Reads the declared fields into ``PARAMETERS``, sets ``kind`` (the plan-file name) and appends
+    the numpydoc Parameters section, generated from the declarations, to the class docstring.
+    """
+    def finish(cls):
+        cls.kind = kind
+        cls.PARAMETERS = declared_parameters(cls)
+        lines = [(cls.__doc__ or "").strip(), "", "Parameters", "----------", *parameter_doc(cls.PARAMETERS),
+                 "device : Transistor", "    The stage's transistor (its polarity decides the orientation)."]
+        cls.__doc__ = "\n".join(lines)
+        return cls
+    return finish
 
 
 class _CommonEmitter(Stage):
@@ -230,16 +293,25 @@ class _CommonEmitter(Stage):
         return StageNodes(input_node, c, f"{sid}_q", tuple(added) + (f"{sid}_q",))
 
 
-CommonEmitter = _template(
-    "CommonEmitter", "common-emitter",
-    (_r("rb1", "bias resistor from the supply to the base"),
-     _r("rb2", "bias resistor from the base to the lower rail"),
-     _r("rc", "collector resistor", 4.7e3, optional=False),
-     _r("re", "unbypassed emitter resistor (degeneration)"),
-     _r("re_bypassed", "emitter resistor bypassed to ground at midband"),
-     _r("rf", "collector-to-base feedback resistor"),
-     _c("c_bypass", "emitter bypass capacitor")),
-    "Common-emitter stage: input at the base, output at the collector.", base=_CommonEmitter)
+@_template("common-emitter")
+@dataclass(frozen=True)
+class CommonEmitter(_CommonEmitter):
+    """Common-emitter stage: input at the base, output at the collector."""
+    rb1: float | None = field(default=None, metadata=resistance(
+        "bias resistor from the supply to the base", typical=(10e3, 1e6)))
+    rb2: float | None = field(default=None, metadata=resistance(
+        "bias resistor from the base to the lower rail", typical=(1e3, 470e3)))
+    rc: float = field(default=4.7e3, metadata=resistance("collector resistor", typical=(100.0, 100e3)))
+    re: float | None = field(default=None, metadata=resistance(
+        "unbypassed emitter resistor (degeneration)", typical=(10.0, 10e3)))
+    re_bypassed: float | None = field(default=None, metadata=resistance(
+        "emitter resistor bypassed to ground at midband", typical=(100.0, 10e3)))
+    rf: float | None = field(default=None, metadata=resistance(
+        "collector-to-base feedback resistor", typical=(10e3, 1e6)))
+    c_bypass: float | None = field(default=None, metadata=capacitance(
+        "emitter bypass capacitor (None: the plan's bypass_capacitance)", typical=(1e-6, 1e-3),
+        plan_default="bypass_capacitance"))
+    device: Transistor = field(default_factory=Transistor)
 
 
 class _CommonCollector(Stage):
@@ -262,14 +334,18 @@ class _CommonCollector(Stage):
         return StageNodes(input_node, e, f"{sid}_q", tuple(added) + (f"{sid}_q",))
 
 
-CommonCollector = _template(
-    "CommonCollector", "common-collector",
-    (_r("rb1", "bias resistor from the supply to the base"),
-     _r("rb2", "bias resistor from the base to the lower rail"),
-     _r("re", "emitter resistor", 1e3, optional=False),
-     _r("rc", "collector resistor (None: collector on the rail)")),
-    "Common-collector stage (emitter follower): input at the base, output at the emitter.",
-    base=_CommonCollector)
+@_template("common-collector")
+@dataclass(frozen=True)
+class CommonCollector(_CommonCollector):
+    """Common-collector stage (emitter follower): input at the base, output at the emitter."""
+    rb1: float | None = field(default=None, metadata=resistance(
+        "bias resistor from the supply to the base", typical=(10e3, 1e6)))
+    rb2: float | None = field(default=None, metadata=resistance(
+        "bias resistor from the base to the lower rail", typical=(1e3, 470e3)))
+    re: float = field(default=1e3, metadata=resistance("emitter resistor", typical=(100.0, 100e3)))
+    rc: float | None = field(default=None, metadata=resistance(
+        "collector resistor (None: collector on the rail)", typical=(10.0, 10e3)))
+    device: Transistor = field(default_factory=Transistor)
 
 
 class _CommonBase(Stage):
@@ -290,14 +366,23 @@ class _CommonBase(Stage):
         return StageNodes(input_node, c, f"{sid}_q", tuple(added) + (f"{sid}_q",))
 
 
-CommonBase = _template(
-    "CommonBase", "common-base",
-    (_r("rb1", "base divider resistor from the supply", 47e3),
-     _r("rb2", "base divider resistor to the lower rail", 10e3),
-     _r("rc", "collector resistor", 4.7e3, optional=False),
-     _r("re", "emitter resistor (the stage's input)", 1e3, optional=False),
-     _c("c_base", "base bypass capacitor")),
-    "Common-base stage: base bypassed, input at the emitter, output at the collector.", base=_CommonBase)
+@_template("common-base")
+@dataclass(frozen=True)
+class CommonBase(_CommonBase):
+    """Common-base stage: base bypassed, input at the emitter, output at the collector."""
+    # rb1 and rb2 are None-able in type so that CommonBase(rb1=None) reaches the stage's own
+    # message ("needs both rb1 and rb2") rather than a bare "is required".
+    rb1: float | None = field(default=47e3, metadata=resistance(
+        "base divider resistor from the supply", typical=(10e3, 1e6)))
+    rb2: float | None = field(default=10e3, metadata=resistance(
+        "base divider resistor to the lower rail", typical=(1e3, 470e3)))
+    rc: float = field(default=4.7e3, metadata=resistance("collector resistor", typical=(100.0, 100e3)))
+    re: float = field(default=1e3, metadata=resistance("emitter resistor (the stage's input)",
+                                                       typical=(100.0, 100e3)))
+    c_base: float | None = field(default=None, metadata=capacitance(
+        "base bypass capacitor (None: the plan's bypass_capacitance)", typical=(1e-6, 1e-3),
+        plan_default="bypass_capacitance"))
+    device: Transistor = field(default_factory=Transistor)
 
 
 @dataclass(frozen=True)
@@ -315,6 +400,13 @@ class CustomStage(Stage):
         The stage's input and output nodes: nodes of its own, not rails (InvalidValueError).
     transistor : str
         Name of the transistor whose Q-point, swing and load lines the stage reports.
+
+    Notes
+    -----
+    Unlike the templates, whose values are plain floats, this stage holds a :class:`Circuit`, which
+    can be changed in place. The stage takes its own copy when it is made, so later changes to the
+    circuit you passed in do not reach it; change the stage through :meth:`replace` (or
+    ``plan.set("s2.r1", ...)``), which validates, and treat ``stage.circuit`` as read-only.
     """
 
     kind: ClassVar[str] = "custom"
@@ -327,6 +419,7 @@ class CustomStage(Stage):
     def __post_init__(self):
         if not isinstance(self.circuit, Circuit):
             raise InvalidValueError("CustomStage.circuit must be an ampplan.Circuit")
+        object.__setattr__(self, "circuit", self.circuit.copy())
         nodes = set(self.circuit.nodes) | {GROUND}
         rails = (SUPPLY_NODE, LOWER_NODE, GROUND)
         for what in ("input", "output", "transistor"):

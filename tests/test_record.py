@@ -31,7 +31,7 @@ from ampplan.devices import FIELDS as DEVICE_FIELDS
 from ampplan.devices import PRESETS, Transistor
 from ampplan.errors import InvalidValueError, PlanFileError
 from ampplan.plan import PLAN_PARAMETERS, Plan
-from ampplan.record import (FORMAT, MAX_FILE_BYTES, MAX_PROBLEMS, PLAN_SCHEMA, VERSION, load_plan,
+from ampplan.record import (FORMAT, MAX_FILE_BYTES, MAX_PROBLEMS, PLAN_SCHEMA, PLAN_SCHEMAS, VERSION, load_plan,
                             plan_from_dict, plan_to_dict, read_plan_file, save_plan)
 from ampplan.stages import TEMPLATES, CommonBase, CommonCollector, CommonEmitter, CustomStage
 
@@ -151,8 +151,10 @@ def test_round_trip_of_arbitrary_floats_is_bit_exact(rc, re, rb1, beta, supply, 
 # The schema: generated from the declarations, checked by jsonschema itself
 # ------------------------------------------------------------------------------------------------
 
-def test_schema_is_valid_draft_2020_12():
-    jsonschema.Draft202012Validator.check_schema(PLAN_SCHEMA)
+def test_schemas_are_valid_draft_2020_12():
+    # Checked by the jsonschema library itself (the module no longer checks at import time).
+    for schema in PLAN_SCHEMAS.values():
+        jsonschema.Draft202012Validator.check_schema(schema)
 
 
 def test_files_we_write_pass_jsonschema_directly(document):
@@ -160,19 +162,49 @@ def test_files_we_write_pass_jsonschema_directly(document):
                         cls=jsonschema.Draft202012Validator)
 
 
-def test_schema_follows_the_declarations():
-    defs = PLAN_SCHEMA["$defs"]
-    assert set(defs["device"]["properties"]) == set(DEVICE_FIELDS)
-    assert defs["device"]["properties"]["polarity"]["enum"] == ["npn", "pnp"]
+def _bound_cases():
+    """(template, parameter, value at a hard bound, value just beyond it) for every declared bound."""
     for kind, cls in TEMPLATES.items():
-        props = defs[f"stage.{kind}"]["properties"]
         for p in cls.PARAMETERS:
-            assert p.name in props, (kind, p.name)
-            text = json.dumps(props[p.name], ensure_ascii=False)
-            assert p.unit in text, (kind, p.name)
-    top = PLAN_SCHEMA["properties"]
-    assert set(PLAN_PARAMETERS) | {"load_coupling", "stages", "format", "version", "description"} == set(top)
-    assert "description" not in PLAN_SCHEMA["required"]
+            if math.isfinite(p.maximum):
+                yield kind, p.name, p.maximum, p.maximum * 1.001
+            if p.minimum_inclusive:
+                yield kind, p.name, p.minimum, p.minimum * 0.999 if p.minimum > 0 else -1e-3
+            else:
+                yield kind, p.name, None, p.minimum
+
+
+@pytest.mark.parametrize("kind, name, inside, beyond", list(_bound_cases()))
+def test_schema_holds_every_declared_bound(document, kind, name, inside, beyond):
+    # jsonschema (an outside library) must accept a value at each declared bound and refuse one
+    # just beyond it, at the parameter's path: the generated schema carries the declarations'
+    # bounds, not only their names.
+    k = next(i for i, stage in enumerate(document["stages"]) if stage["kind"] == kind)
+    validator = jsonschema.Draft202012Validator(PLAN_SCHEMA)
+    data = copy.deepcopy(document)
+    if inside is not None:
+        data["stages"][k][name] = inside
+        assert not list(validator.iter_errors(data)), (kind, name, inside)
+    data["stages"][k][name] = beyond
+    assert any(tuple(e.absolute_path) == ("stages", k, name) or
+               any(tuple(c.absolute_path) == ("stages", k, name) for c in (e.context or ()))
+               for e in validator.iter_errors(data)), (kind, name, beyond)
+
+
+def test_schema_requires_every_declared_value(document):
+    validator = jsonschema.Draft202012Validator(PLAN_SCHEMA)
+    for k, stage in enumerate(document["stages"]):
+        for name in [n for n in stage if n != "kind"]:
+            data = copy.deepcopy(document)
+            del data["stages"][k][name]
+            assert list(validator.iter_errors(data)), (k, name)
+    for name in [*PLAN_PARAMETERS, "load_coupling", "stages"]:
+        data = copy.deepcopy(document)
+        del data[name]
+        assert list(validator.iter_errors(data)), name
+    data = copy.deepcopy(document)
+    del data["description"]
+    assert not list(validator.iter_errors(data))          # the one value that may be left out
 
 
 # ------------------------------------------------------------------------------------------------

@@ -40,8 +40,9 @@ words with the JSON path of each bad value (``stages[1].rc: must be > 0 Ω, got 
 from .convert import plan_from_dict, plan_to_dict
 from .files import MAX_FILE_BYTES, load_plan, parse_plan_text, read_plan_file, save_plan
 from .messages import MAX_PROBLEMS
-from .schema import ELEMENT_TYPES, FORMAT, INFINITY, PLAN_SCHEMA, VERSION, validate_plan_dict
+from .schema import ELEMENT_TYPES, FORMAT, INFINITY, PLAN_SCHEMA, PLAN_SCHEMAS, VERSION, validate_plan_dict
 
-__all__ = ["FORMAT", "VERSION", "INFINITY", "MAX_FILE_BYTES", "MAX_PROBLEMS", "PLAN_SCHEMA", "ELEMENT_TYPES",
+__all__ = ["FORMAT", "VERSION", "INFINITY", "MAX_FILE_BYTES", "MAX_PROBLEMS", "PLAN_SCHEMA", "PLAN_SCHEMAS",
+           "ELEMENT_TYPES",
            "save_plan", "load_plan", "read_plan_file", "parse_plan_text", "plan_to_dict", "plan_from_dict",
            "validate_plan_dict"]
