@@ -19,7 +19,8 @@ forward-active; each bracket is then narrowed to a part in 10^9 of the excursion
 confirmed by a solve just below and just above its estimate, with bisection where the margins say
 nothing useful. The margins come from the quantities the checks test (V_BE, V_CE, V_BC, I_C, I_B,
 identified at the Q-point), so they are known on both sides of the edge. All samples and both
-directions go through one batched solve per step.
+directions go through one batched solve per step, every point Newton-started from its own
+constant-drop answer (the points of a step lie too far apart for one to start the others).
 """
 
 from __future__ import annotations
@@ -209,13 +210,14 @@ def _searched(out, todo, compiled, op, params, stages, span, active_edge, batch,
         picked = np.take_along_axis(q, np.maximum(which, 0), axis=2)
         return np.where(which >= 0, direction_of[samples] * (picked - limits[samples]), np.nan)
 
-    def evaluate(samples, steps):
+    def evaluate(samples, steps, warm_start=True):
         """Solve the held circuit for (sample, excursion) pairs: all forward-active?, the margins
         of the forward-active checks (K, N, 2), the first transistor out (or -1) and its region."""
         keys = {k: a[samples] for k, a in base_batch.items()}
         keys.update({c: cap_volts[c][samples] for c in caps})
         keys[source] = emf[samples] + steps
-        res = held.solve(model=op.model, temperature=compiled.temperature, active_edge=active_edge, batch=keys)
+        res = held.solve(model=op.model, temperature=compiled.temperature, active_edge=active_edge, batch=keys,
+                         warm_start=warm_start)
         region = np.stack([np.asarray(res.transistors[n].region) for n in names], axis=1)
         failed = np.asarray(res.status) != "ok"
         leaving = (region != "forward-active") | failed[:, None]
@@ -236,7 +238,8 @@ def _searched(out, todo, compiled, op, params, stages, span, active_edge, batch,
     below = np.geomspace(1e-6, 0.5, COARSE_STEPS - len(NEAR_ESTIMATE))
     steps = np.where(guided[:, None], guide[:, None] * np.concatenate([below, NEAR_ESTIMATE])[None, :],
                      reach[:, None] * np.geomspace(1e-7, 1.0, COARSE_STEPS)[None, :])
-    fa, margins, first, entered = evaluate(np.repeat(sample, COARSE_STEPS), (direction[:, None] * steps).ravel())
+    fa, margins, first, entered = evaluate(np.repeat(sample, COARSE_STEPS), (direction[:, None] * steps).ravel(),
+                                           warm_start=False)
     fa = fa.reshape(-1, COARSE_STEPS)
     margins = margins.reshape(-1, COARSE_STEPS, n_q, 2)
     first, entered = first.reshape(-1, COARSE_STEPS), entered.reshape(-1, COARSE_STEPS)
@@ -289,7 +292,7 @@ def _searched(out, todo, compiled, op, params, stages, span, active_edge, batch,
         lo = np.maximum(guess * (1.0 - tau), a + 0.25 * (guess - a))
         hi = np.minimum(guess * (1.0 + tau), b - 0.25 * (b - guess))
         pair_steps = np.stack([lo, hi], axis=1) * direction[open_][:, None]
-        fa2, m2, first2, entered2 = evaluate(np.repeat(sample[open_], 2), pair_steps.ravel())
+        fa2, m2, first2, entered2 = evaluate(np.repeat(sample[open_], 2), pair_steps.ravel(), warm_start=False)
         fa2, m2 = fa2.reshape(-1, 2), m2.reshape(-1, 2, n_q, 2)
         first2, entered2 = first2.reshape(-1, 2), entered2.reshape(-1, 2)
         both_in = fa2[:, 0] & fa2[:, 1]
