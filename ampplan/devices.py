@@ -17,6 +17,7 @@ from scipy import constants
 
 from .errors import InvalidValueError, UnknownModelError, UnknownNameError
 from .validation import check_number, check_samples, shown
+from .units import LINE_WIDTH, format_call, format_quantity
 
 __all__ = [
     "Polarity",
@@ -170,6 +171,16 @@ class Transistor:
         for name in PARAMETERS:
             object.__setattr__(self, name, check_parameter(name, getattr(self, name)))
 
+    def __repr__(self) -> str:
+        return self.formatted()
+
+    def formatted(self, width: int = LINE_WIDTH) -> str:
+        """The repr: the polarity and the parameters that differ from the defaults, in
+        engineering notation, wrapped to ``width`` columns (the full set is in :meth:`to_dict`)."""
+        items = [f"{name}={format_quantity(value, DEVICE_UNITS[name])}" for name in PARAMETERS
+                 if (value := getattr(self, name)) != _DEFAULT_VALUES[name]]
+        return format_call("Transistor", [self.polarity, *items], width)
+
     @property
     def sign(self) -> int:
         """+1 for NPN, -1 for PNP: multiplies voltages and currents into the NPN frame."""
@@ -193,6 +204,9 @@ PARAMETERS: tuple[str, ...] = tuple(f for f in FIELDS if f != "polarity")
 #: Parameters annotated ``float | None``: the only ones that may be None.
 OPTIONAL_PARAMETERS: frozenset = frozenset(
     name for name, hint in typing.get_type_hints(Transistor).items() if type(None) in get_args(hint))
+
+#: Default value of every parameter (the dataclass's own), which the repr leaves out.
+_DEFAULT_VALUES = {f.name: f.default for f in dataclasses.fields(Transistor)}
 
 #: SI unit symbol of each numeric parameter ("" for dimensionless), for messages, files and the CLI.
 DEVICE_UNITS: dict[str, str] = {

@@ -23,6 +23,7 @@ from .circuit import (GROUND, RESISTANCE_RANGE, VALUE_BOUNDS, Bjt, Capacitor, Ci
                       VoltageSource)
 from .devices import Transistor
 from .errors import InvalidValueError, UnknownNameError
+from .units import LINE_WIDTH, format_call, format_quantity
 from .validation import bounds_text, check_number, check_text, shown
 
 __all__ = ["Parameter", "Stage", "CommonEmitter", "CommonCollector", "CommonBase", "CustomStage",
@@ -188,6 +189,15 @@ class Stage:
     def _check(self):
         """Template-specific consistency checks (override)."""
 
+    def __repr__(self) -> str:
+        # The fitted values in engineering notation, wrapped so no line is long (parts not fitted
+        # are left out); the dataclass's own repr would print raw floats on one very long line.
+        name = type(self).__name__
+        items = [f"{p.name}={format_quantity(v, p.unit)}" for p in self.PARAMETERS
+                 if (v := getattr(self, p.name)) is not None]
+        device = self.device.formatted(LINE_WIDTH - len(name) - len("(device="))
+        return format_call(name, [*items, ("device=", device)])
+
     def parameters(self) -> dict:
         """Declared parameter values by name (SI units; None where not fitted)."""
         return {p.name: getattr(self, p.name) for p in self.PARAMETERS}
@@ -263,6 +273,7 @@ def _template(kind: str):
     """
     def finish(cls):
         cls.kind = kind
+        cls.__repr__ = Stage.__repr__      # the dataclass decorator wrote its own
         cls.PARAMETERS = declared_parameters(cls)
         lines = [(cls.__doc__ or "").strip(), "", "Parameters", "----------", *parameter_doc(cls.PARAMETERS),
                  "device : Transistor", "    The stage's transistor (its polarity decides the orientation)."]

@@ -12,7 +12,7 @@ from quantiphy import InvalidNumber, Quantity
 
 from .errors import InvalidValueError
 
-__all__ = ["parse_quantity", "format_quantity", "MAX_QUANTITY_LENGTH"]
+__all__ = ["parse_quantity", "format_quantity", "format_call", "wrap_items", "LINE_WIDTH", "MAX_QUANTITY_LENGTH"]
 
 
 class _Shown(Quantity):
@@ -80,3 +80,50 @@ def format_quantity(value: float, unit: str = "", digits: int = 4) -> str:
     if value == 0:
         return f"0 {unit}".strip()
     return _Shown(value, unit or None).render(prec=digits - 1, strip_zeros=True)
+
+
+#: Longest line a text form (repr, table line) aims for: notebooks wrap longer output lines
+#: anywhere, even in the middle of a number and its unit.
+LINE_WIDTH = 96
+
+
+def format_call(name: str, items, width: int = LINE_WIDTH) -> str:
+    """``name(item, item, ...)`` wrapped at the commas so that no line passes ``width`` columns.
+
+    Continuation lines are indented under the first item, and an item is never split, so a
+    number stays on one line with its unit: ``Transistor(npn, beta=200, early_voltage=100 V)``.
+
+    Parameters
+    ----------
+    name : str
+        What is called (a class name).
+    items : sequence of str or (str, str)
+        Already formatted items (``"rc=4.7 kΩ"``), or (prefix, nested call) pairs whose nested
+        call was formatted for the width left after the indent and the prefix.
+    width : int
+        Target line width, characters.
+    """
+    return wrap_items(f"{name}(", items, width, end=")")
+
+
+def wrap_items(head: str, items, width: int = LINE_WIDTH, end: str = "") -> str:
+    """``head`` followed by ``items`` separated by commas, wrapped as :func:`format_call` wraps
+    (continuation lines indented to the width of ``head``), then ``end``."""
+    indent = " " * len(head)
+    lines, current = [], head
+    for k, item in enumerate(items):
+        # An item may be (prefix, nested call text): its continuation lines line up under the
+        # nested call, e.g. ("device=", repr of a Transistor formatted for the narrower width).
+        prefix, body = item if isinstance(item, tuple) else ("", str(item))
+        piece = prefix + body.replace("\n", "\n" + indent + " " * len(prefix))
+        piece += end if k == len(items) - 1 else ","
+        fresh = current in (head, indent)
+        # An item of several lines starts a line of its own.
+        if not fresh and ("\n" in piece or len(current) + 1 + len(piece.split("\n")[0]) > width):
+            lines.append(current.rstrip())
+            current, fresh = indent, True
+        current += ("" if fresh else " ") + piece
+    if not items:
+        current += end
+    lines.append(current)
+    return "\n".join(lines)

@@ -12,8 +12,9 @@ from ..devices import REFERENCE_TEMPERATURE
 from ..errors import UnknownNameError
 from .addresses import read_result
 from ..solver.result import TransistorResult, _fmt, _json_safe, _plain
+from ..units import format_call
 
-__all__ = ["LoadLine", "LoadLines", "Swing", "Clipping", "StageResult", "PlanResult"]
+__all__ = ["LoadLine", "LoadLines", "Swing", "Clipping", "StageResult", "PlanResult", "STAGE_COLUMNS"]
 
 
 def _gain(value) -> str:
@@ -39,6 +40,28 @@ def _html_table(rows, head=None) -> str:
     thead = "<thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in head) + "</tr></thead>" if head else ""
     body = "".join("<tr>" + "".join(f"<td>{e(str(c))}</td>" for c in row) + "</tr>" for row in rows)
     return f"<table>{thead}<tbody>{body}</tbody></table>"
+
+
+def _flag(stage) -> str:
+    return "!" if (stage.transistor.region != "forward-active" or stage.cautions) else " "
+
+
+#: The per-stage columns, declared once for the text table, the HTML table and the stage views:
+#: (header, the JSON field of StageResult.to_dict it shows, cell text of a stage). Both margins
+#: appear, each in its own unit: volts to the saturation edge, amperes to cutoff.
+STAGE_COLUMNS = (
+    ("stage", "id", lambda s: s.id),
+    ("kind", "kind", lambda s: s.kind),
+    ("region", "transistor.region", lambda s: s.transistor.region),
+    ("I_C", "transistor.ic", lambda s: _fmt(s.transistor.ic, "A")),
+    ("V_CE", "transistor.vce", lambda s: _fmt(s.transistor.vce, "V")),
+    ("sat. margin", "saturation_margin", lambda s: _fmt(s.saturation_margin, "V")),
+    ("cutoff margin", "cutoff_margin", lambda s: _fmt(s.cutoff_margin, "A")),
+    ("swing pk", "swing.peak", lambda s: _fmt(s.swing.peak, "V")),
+    ("gain", "gain", lambda s: _small_signal(s, _gain(s.gain))),
+    ("R_in", "input_resistance", lambda s: _small_signal(s, _fmt(s.input_resistance, "Ω"))),
+    ("R_out", "output_resistance", lambda s: _small_signal(s, _fmt(s.output_resistance, "Ω"))),
+)
 
 
 _LOAD_LINE_HEAD = ("R", "Q-point V_CE", "Q-point I_C", "V_CE at I_C = 0", "I_C at V_CE = 0")
@@ -95,9 +118,10 @@ class LoadLine:
         return ((self.vce_at_zero_current, 0.0), (0.0, self.ic_at_zero_vce))
 
     def __repr__(self) -> str:
-        return (f"LoadLine({_fmt(self.resistance, 'Ω')} through the Q-point V_CE={_fmt(self.q_vce, 'V')}, "
-                f"I_C={_fmt(self.q_ic, 'A')}; meets the V_CE axis at {_fmt(self.vce_at_zero_current, 'V')}, "
-                f"the I_C axis at {_fmt(self.ic_at_zero_vce, 'A')})")
+        return format_call("LoadLine", [
+            f"{_fmt(self.resistance, 'Ω')} through the Q-point V_CE={_fmt(self.q_vce, 'V')}",
+            f"I_C={_fmt(self.q_ic, 'A')}; meets the V_CE axis at {_fmt(self.vce_at_zero_current, 'V')}",
+            f"the I_C axis at {_fmt(self.ic_at_zero_vce, 'A')}"])
 
     def _html_rows(self) -> list:
         return [_fmt(self.resistance, "Ω"), _fmt(self.q_vce, "V"), _fmt(self.q_ic, "A"),
@@ -261,19 +285,19 @@ class StageResult:
         return self.transistor.region
 
     def __repr__(self) -> str:
-        t = self.transistor
-        return (f"StageResult({self.id} {self.kind}: {t.region}, I_C={_fmt(t.ic, 'A')}, V_CE={_fmt(t.vce, 'V')}, "
-                f"headroom={_fmt(self.saturation_margin, 'V')}, swing={_fmt(self.swing.peak, 'V')} peak, "
-                f"gain={_gain(self.gain)}, R_in={_fmt(self.input_resistance, 'Ω')}, "
-                f"R_out={_fmt(self.output_resistance, 'Ω')})")
+        cells = {head: cell(self) for head, _, cell in STAGE_COLUMNS}
+        items = [f"{head}={cells[head]}" for head in ("I_C", "V_CE", "sat. margin", "cutoff margin")]
+        items.append(f"swing={cells['swing pk']} peak ({_fmt(self.swing.toward_saturation, 'V')} to saturation, "
+                     f"{_fmt(self.swing.toward_cutoff, 'V')} to cutoff)")
+        items += [f"{head}={cells[head]}" for head in ("gain", "R_in", "R_out")]
+        return format_call("StageResult", [f"{self.id} {self.kind}: {self.region}", *items])
 
     def _repr_html_(self) -> str:
-        e, t = html.escape, self.transistor
-        figures = (("region", t.region), ("I_C", _fmt(t.ic, "A")), ("V_CE", _fmt(t.vce, "V")),
-                   ("headroom", _fmt(self.saturation_margin, "V")), ("cutoff margin", _fmt(self.cutoff_margin, "A")),
-                   ("swing", f"{_fmt(self.swing.peak, 'V')} peak"), ("gain", f"{_gain(self.gain)} V/V"),
-                   ("R_in", _fmt(self.input_resistance, "Ω")), ("R_out", _fmt(self.output_resistance, "Ω")),
-                   ("dissipation", _fmt(self.dissipation, "W")))
+        e = html.escape
+        figures = [(head, cell(self)) for head, _, cell in STAGE_COLUMNS[2:]]
+        figures.insert(6, ("toward saturation / cutoff", f"{_fmt(self.swing.toward_saturation, 'V')} / "
+                                                        f"{_fmt(self.swing.toward_cutoff, 'V')}"))
+        figures.append(("dissipation", _fmt(self.dissipation, "W")))
         power = [(name, _fmt(p, "W")) for name, p in self.resistor_power.items()]
         cautions = "".join(f"<li>{e(c)}</li>" for c in self.cautions)
         return (f"<div><strong>Stage {e(self.id)} ({e(self.kind)})</strong>" + _html_table(figures)
@@ -377,15 +401,8 @@ class PlanResult:
     def table(self) -> str:
         """A fixed-width text table a designer reads at a glance; ``!`` marks a stage out of
         forward-active or with a caution."""
-        rows = [("stage", "kind", "region", "I_C", "V_CE", "sat. margin", "cutoff margin", "swing pk", "gain",
-                 "R_in", "R_out")]
-        for s in self.stages:
-            t = s.transistor
-            flag = "!" if (t.region != "forward-active" or s.cautions) else " "
-            rows.append((f"{flag}{s.id}", s.kind, t.region, _fmt(t.ic, "A"), _fmt(t.vce, "V"),
-                         _fmt(s.saturation_margin, "V"), _fmt(s.cutoff_margin, "A"), _fmt(s.swing.peak, "V"),
-                         _small_signal(s, _gain(s.gain)), _small_signal(s, _fmt(s.input_resistance, "Ω")),
-                         _small_signal(s, _fmt(s.output_resistance, "Ω"))))
+        rows = [tuple(head for head, _, _ in STAGE_COLUMNS)]
+        rows += [(_flag(s) + s.id,) + tuple(cell(s) for _, _, cell in STAGE_COLUMNS[1:]) for s in self.stages]
         widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
         right = set(range(3, len(widths)))
 
@@ -400,8 +417,15 @@ class PlanResult:
 
     def summary(self) -> str:
         """The chain figures, one per line."""
+        figures = self.chain_figures()
+        width = max(len(name) for name, _ in figures)
+        return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
+
+    def chain_figures(self) -> list:
+        """The chain figures as (label, text) pairs, the one source of the text summary and the
+        HTML table (for a batch, each figure's range over the samples)."""
         if self.batch_size is not None:
-            return self._batch_summary()
+            return self._batch_figures()
         gain = self.gain
         decibels = f" ({20 * math.log10(abs(gain)):.1f} dB)" if gain and math.isfinite(gain) else ""
         out = [s for s in self.stages if s.transistor.region != "forward-active"]
@@ -428,10 +452,9 @@ class PlanResult:
             ("supply current", _fmt(self.supply_current, "A")),
             ("supply power", _fmt(self.supply_power, "W")),
         ]
-        width = max(len(name) for name, _ in figures)
-        return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
+        return figures
 
-    def _batch_summary(self) -> str:
+    def _batch_figures(self) -> list:
         """The chain figures of a batch: each as its range over the samples."""
         status = np.asarray(self.status)
         figures = [
@@ -446,8 +469,7 @@ class PlanResult:
             ("supply power", _fmt(self.supply_power, "W")),
             ("samples with cautions", str(int(np.sum(self.cautions.any)))),
         ]
-        width = max(len(name) for name, _ in figures)
-        return "\n".join(f"  {name.ljust(width)}  {value}" for name, value in figures)
+        return figures
 
     def __repr__(self) -> str:
         if self.batch_size is not None:
@@ -461,20 +483,16 @@ class PlanResult:
 
     def _repr_html_(self) -> str:
         e = html.escape
-        head = ("stage", "kind", "region", "I_C", "V_CE", "headroom", "swing pk", "gain", "R_in", "R_out")
+        head = tuple(h for h, _, _ in STAGE_COLUMNS)
         rows = []
         for s in self.stages:
-            t = s.transistor
-            cells = (s.id, s.kind, t.region, _fmt(t.ic, "A"), _fmt(t.vce, "V"), _fmt(s.saturation_margin, "V"),
-                     _fmt(s.swing.peak, "V"), _small_signal(s, _gain(s.gain)),
-                     _small_signal(s, _fmt(s.input_resistance, "Ω")), _small_signal(s, _fmt(s.output_resistance, "Ω")))
-            style = "" if t.region == "forward-active" else " style='font-weight:bold'"
-            rows.append(f"<tr{style}>" + "".join(f"<td>{e(c)}</td>" for c in cells) + "</tr>")
+            style = "" if s.transistor.region == "forward-active" and not s.cautions else " style='font-weight:bold'"
+            rows.append(f"<tr{style}>" + "".join(f"<td>{e(cell(s))}</td>" for _, _, cell in STAGE_COLUMNS) + "</tr>")
         cautions = "".join(f"<li>{e(c)}</li>" for c in self.cautions)
-        summary = "<br>".join(e(line) for line in self.summary().splitlines())
+        summary = _html_table([(name.strip(), value) for name, value in self.chain_figures()])
         return (f"<div><strong>Plan result ({e(self.model)})</strong><table><thead><tr>"
                 + "".join(f"<th>{e(h)}</th>" for h in head) + "</tr></thead><tbody>" + "".join(rows)
-                + f"</tbody></table><p>{summary}</p>"
+                + f"</tbody></table><p><strong>Chain</strong></p>{summary}"
                 + (f"<p>Cautions:</p><ul>{cautions}</ul>" if cautions else "<p>No cautions.</p>") + "</div>")
 
     def to_dict(self) -> dict:

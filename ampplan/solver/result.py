@@ -12,6 +12,7 @@ from typing import Literal, TypeAlias, Union, get_args
 import numpy as np
 
 from ..errors import InvalidValueError
+from ..units import format_call, wrap_items
 
 __all__ = ["Region", "REGIONS", "Status", "STATUSES", "Figure", "Text", "Flag", "Check", "TransistorResult",
            "OperatingPoint", "Alternatives"]
@@ -180,9 +181,10 @@ class TransistorResult:
         return self.vce - self.vbe
 
     def __repr__(self) -> str:
-        return (f"TransistorResult({self.name} {self.polarity}: {_fmt(self.region)}, "
-                f"I_C={_fmt(self.ic, 'A')}, V_CE={_fmt(self.vce, 'V')}, I_B={_fmt(self.ib, 'A')}, "
-                f"V_BE={_fmt(self.vbe, 'V')}, forced beta={_fmt(self.beta_forced)})")
+        return format_call("TransistorResult", [
+            f"{self.name} {self.polarity}: {_fmt(self.region)}", f"I_C={_fmt(self.ic, 'A')}",
+            f"V_CE={_fmt(self.vce, 'V')}", f"I_B={_fmt(self.ib, 'A')}", f"V_BE={_fmt(self.vbe, 'V')}",
+            f"forced beta={_fmt(self.beta_forced)}"])
 
     def _repr_html_(self) -> str:
         e = html.escape
@@ -379,8 +381,9 @@ class OperatingPoint:
         for t in self.transistors.values():
             lines.append(f"  {t.name}: {_fmt(t.region)}, I_C={_fmt(t.ic, 'A')}, V_CE={_fmt(t.vce, 'V')}, "
                          f"I_B={_fmt(t.ib, 'A')}")
-        nodes = ", ".join(f"{n}={_fmt(v, 'V')}" for n, v in self.v.items() if n != "gnd")
-        lines.append(f"  nodes: {nodes}")
+        # Node voltages wrapped at the commas, so a long circuit does not make one endless line.
+        lines.append(wrap_items("  nodes: ", [f"{n}={_fmt(v, 'V')}" for n, v in self.v.items() if n != "gnd"]
+                                or ["none"]))
         if self.alternatives:
             lines.append(f"  {len(self.alternatives)} other consistent operating point(s) on .alternatives")
         return "\n".join(lines)
