@@ -129,18 +129,20 @@ def test_notebook_live_in_jupyterlab(lab, browser, request, which):
 
         before = lab_page.source_data(page, CANVAS_SOURCE)
         view = page.locator(f"{NEXT_STAGE_VIEW}").first
-        view_before = view.inner_text()
+        # textContent, not innerText: a cell scrolled out of view under content-visibility windowing
+        # is not rendered, and its innerText does not follow the DOM.
+        view_before = view.text_content()
         handle = page.locator(SLIDER).first
         handle.focus()
         handle.press("ArrowRight")
         page.wait_for_function(
             f"(old) => JSON.stringify(({lab_page.JS_SOURCE_DATA})({json.dumps(CANVAS_SOURCE)})) !== JSON.stringify(old)",
             arg=before, timeout=30_000)
-        page.wait_for_function("([sel, old]) => document.querySelector(sel).innerText !== old",
+        page.wait_for_function("([sel, old]) => document.querySelector(sel).textContent !== old",
                                arg=[NEXT_STAGE_VIEW, view_before], timeout=30_000)
         after = lab_page.source_data(page, CANVAS_SOURCE)
         assert after != before                                 # the Q-point moved
-        assert view.inner_text() != view_before                # the direct-coupled next stage followed
+        assert view.text_content() != view_before              # the direct-coupled next stage followed
         assert error_outputs(page) == []
 
         # The saved notebook (executed in JupyterLab, widget state included) stays small.
@@ -213,7 +215,8 @@ def test_record_reads_offline_as_html(tmp_path, browser):
         assert page.evaluate("(img) => img.complete && img.naturalWidth > 0", picture.element_handle())
         tables = page.locator(".jp-OutputArea-output table")
         assert tables.count() >= 1 and tables.first.is_visible()
-        assert "s1" in tables.first.inner_text() and "forward-active" in page.inner_text("body")
+        body = page.inner_text("body")
+        assert "s1" in body and "forward-active" in body and "Ω" in tables.first.inner_text()
     finally:
         context.close()
     # whatever the page asked for beyond the file itself was refused, not fetched
