@@ -35,6 +35,7 @@ bench: $(VENV)/.stamp-test $(SERVER_CONFIG)
 	$(BIN)/python tests/benchmarks/bench_solver.py
 	$(BIN)/python tests/benchmarks/bench_browser.py
 	$(BIN)/python tests/benchmarks/bench_plan.py
+	$(BIN)/python tests/benchmarks/bench_whatif.py
 
 # JupyterLab listens on this machine only; root (a container, say) needs --allow-root.
 ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)

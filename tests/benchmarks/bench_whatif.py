@@ -1,0 +1,120 @@
+"""What-if benchmark: a script, not a test (``make bench`` runs it after the plan benchmark).
+
+For the 3-stage demo plan (ampplan/data/demo_plan.json), CPU time (``time.process_time``):
+
+(a) a tolerance run (``plan.tolerance``, default spreads, constant-drop) of ``--samples`` samples
+    (100,000 by default), beside the same samples through a loop of ``plan.solve()`` extrapolated
+    from ``--loop`` of them (200 by default), after checking that the two agree on those samples;
+    targets (issue 8): under 2 s, at least 1,000× the loop;
+(b) the same run with Ebers–Moll; target under 10 s;
+(c) the peak memory (maximum resident set, in a fresh interpreter) of a run of
+    ``--memory-samples`` samples (1,000,000 by default) in chunks; target under 1 GiB. The same
+    interpreter's resident set after a 1,000-sample run is printed beside it, so the growth is
+    visible.
+
+Missing a target is reported, not failed: speed is measured here, never asserted in the tests.
+Timings on a shared machine are noisy. Smaller counts (``--samples 20000``) give a quicker look;
+the figures are then extrapolated linearly and marked so.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+
+import ampplan  # noqa: E402
+from ampplan.analyses.whatif.runs import CHUNK  # noqa: E402
+
+DEMO = Path(ampplan.__file__).parent / "data" / "demo_plan.json"
+TARGETS = {"constant-drop": 2.0, "ebers-moll": 10.0}   # seconds for 100,000 samples
+FULL, MEMORY_SAMPLES, GIB = 100_000, 1_000_000, 2 ** 30
+
+MEMORY_SCRIPT = r"""
+import json, resource, sys
+import ampplan
+plan = ampplan.Plan.load(sys.argv[1])
+plan.tolerance(samples=1000, seed=1)
+small = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+result = plan.tolerance(samples=int(sys.argv[2]), seed=1, chunk_size=int(sys.argv[3]))
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+print(json.dumps({"small": small, "peak": peak, "yield": result.yield_fraction}))
+"""
+
+
+def cpu(call):
+    start = time.process_time()
+    value = call()
+    return time.process_time() - start, value
+
+
+def loop_baseline(plan, result, count: int):
+    """Seconds per sample of single ``plan.solve()`` calls on the run's first samples; checks them."""
+    seconds = 0.0
+    for i in range(count):
+        trial = plan.copy()
+        for address, values in result.parameters.items():
+            trial.set(address, float(values[i]))
+        spent, single = cpu(lambda: trial.solve(model=result.model))
+        seconds += spent
+        batched = result.sweep["s2.vce"][i]
+        if not np.isclose(batched, single["s2.vce"], rtol=1e-9 if result.model == "constant-drop" else 1e-6):
+            raise SystemExit(f"sample {i}: the batched run gives s2.vce {batched}, a single solve {single['s2.vce']}")
+        expected = single.all_forward_active and not single.cautions
+        if bool(result.passed[i]) != bool(expected):
+            raise SystemExit(f"sample {i}: passed {result.passed[i]} against the check rule's {expected}")
+    return seconds / count
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--samples", type=int, default=FULL)
+    parser.add_argument("--loop", type=int, default=200)
+    parser.add_argument("--memory-samples", type=int, default=MEMORY_SAMPLES)
+    parser.add_argument("--chunk-size", type=int, default=None)
+    parser.add_argument("--models", nargs="+", default=list(TARGETS))
+    args = parser.parse_args(argv)
+    plan = ampplan.Plan.load(DEMO)
+    chunk = {} if args.chunk_size is None else {"chunk_size": args.chunk_size}
+    scale = FULL / args.samples
+    note = "" if args.samples == FULL else f" (x{scale:g}, extrapolated from {args.samples} samples)"
+    print(f"tolerance run of the 3-stage demo, default spreads, CPU seconds:")
+    for model in args.models:
+        plan.tolerance(samples=200, seed=1, model=model)  # warm caches
+        seconds, result = cpu(lambda: plan.tolerance(samples=args.samples, seed=1, model=model, **chunk))
+        full = seconds * scale
+        per_sample = loop_baseline(plan, result, min(args.loop, args.samples))
+        loop_full = per_sample * FULL
+        ratio = loop_full / full
+        target = TARGETS[model]
+        verdict = "met" if full < target else "MISSED"
+        line = (f"  {model:13s} {FULL} samples: {full:8.2f} s{note}  target < {target:g} s: {verdict};"
+                f"  loop of plan.solve(): {per_sample * 1e3:.1f} ms/sample -> {loop_full:.0f} s, ratio {ratio:.0f}x")
+        if model == "constant-drop":
+            line += f"  target >= 1000x: {'met' if ratio >= 1000 else 'MISSED'}"
+        print(line + f"  (yield {100 * result.yield_fraction:.2f} %)")
+    if args.memory_samples:
+        chunk_size = args.chunk_size or CHUNK
+        done = subprocess.run([sys.executable, "-c", MEMORY_SCRIPT, str(DEMO), str(args.memory_samples),
+                               str(chunk_size)], capture_output=True, text=True, check=True)
+        report = json.loads(done.stdout.strip().splitlines()[-1])
+        peak, small = report["peak"] / GIB, report["small"] / GIB
+        estimate, how = peak, ""
+        if args.memory_samples != MEMORY_SAMPLES:
+            # Linear in the samples beyond the small run: an overestimate, as the chunk's share is fixed.
+            estimate = small + (peak - small) * (MEMORY_SAMPLES - 1000) / max(args.memory_samples - 1000, 1)
+            how = f", extrapolated linearly to 1,000,000 samples: {estimate:.3f} GiB"
+        print(f"peak memory of {args.memory_samples} samples in chunks of {chunk_size}: {peak:.3f} GiB "
+              f"(after a 1,000-sample run: {small:.3f} GiB{how})  target < 1 GiB: "
+              f"{'met' if estimate < 1.0 else 'MISSED'}")
+
+
+if __name__ == "__main__":
+    main()
