@@ -48,7 +48,6 @@ import itertools
 
 import numpy as np
 
-from ..devices import scaled_to_temperature
 from .linear import solve_batch
 
 #: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
@@ -65,7 +64,7 @@ MAX_TRANSISTORS = 100
 MAX_MATRIX_BYTES = 64 * 2**20
 #: Bytes of working arrays one batched step may hold: samples and candidate assignments are
 #: processed in blocks of this size, so memory stays flat however large the batch.
-WORK_BYTES = 24 * 2**20
+WORK_BYTES = 16 * 2**20
 
 CUTOFF, ACTIVE, SATURATION, REVERSE = 0, 1, 2, 3
 
@@ -110,7 +109,7 @@ class RegionProblem:
     def __init__(self, layout, params, active_edge: str = "vce-sat"):
         self.layout = layout
         self.params = params
-        dev = scaled_to_temperature(params.device, params.temperature[:, None])
+        dev = params.at_temperature
         self.dev = dev
         self.vbe_on = dev["vbe_on"]
         self.vbc_on = dev["vbc_on"]
