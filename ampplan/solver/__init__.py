@@ -224,12 +224,14 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
     single solve does, so every sample equals its single solve."""
     cd.check_size(layout)
     s_count, n_q = params.size, layout.n_bjt
-    x = np.empty((s_count, layout.size + 1))
-    regions = np.empty((s_count, n_q), dtype=np.int8)
-    found = np.empty(s_count, dtype=bool)
-    checks = [np.empty((s_count, n_q, 2)) for _ in range(3)] + [np.empty((s_count, n_q, 2), dtype=bool)]
-    iterations, deepest, em_note = 0, 1, ""
-    for rows in cd.blocks(s_count, layout):
+    blocks = list(cd.blocks(s_count, layout))
+    if len(blocks) > 1:
+        # x, regions, found, values, limits, margins, holds of every sample, filled block by block.
+        whole = [np.empty((s_count, layout.size + 1)), np.empty((s_count, n_q), dtype=np.int8),
+                 np.empty(s_count, dtype=bool)] + [np.empty((s_count, n_q, 2)) for _ in range(3)] + [
+                 np.empty((s_count, n_q, 2), dtype=bool)]
+    iterations, deepest, notes = 0, 1, []
+    for rows in blocks:
         sub = _part(params, rows, s_count)
         problem = cd.RegionProblem(layout, sub, active_edge)
         local = np.arange(rows.size)
@@ -244,9 +246,9 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
             iterations += em_iterations
             for k, g in zip(tied, guess):
                 result.settle(k, _nearest(result.ties[k], g))
-            em_note = ", Ebers–Moll tie-break" if tied else ""
+            notes += ["Ebers–Moll tie-break"] if tied else []
             if restart:
-                em_note += ", search from the Ebers–Moll guess"
+                notes.append("search from the Ebers–Moll guess")
                 again = cd.search(problem, np.array(restart), guess[len(tied):])
                 iterations += again.solves
                 for i, k in enumerate(restart):
@@ -261,16 +263,20 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
             iterations += stale.size
             for whole, part in zip(result.checks, problem.checks(stale, result.regions[stale], result.x[stale])):
                 whole[stale] = part
-        x[rows], regions[rows], found[rows] = result.x, result.regions, result.found & result.ok
-        for whole, part in zip(checks, result.checks):
-            whole[rows] = part
+        part = (result.x, result.regions, result.found & result.ok, *result.checks)
+        if len(blocks) > 1:
+            for array, values in zip(whole, part):
+                array[rows] = values
+        else:
+            whole = part   # one block (every single solve, every small batch) is used as it is
+    x, regions, found, *checks = whole
 
     if single and not found[0]:
         misses = _closest(problem, *result.misses[0]) if 0 in result.misses else []
         raise NoConsistentRegionError(_no_region_message(layout, misses), closest=misses)
     steps = ("forward-active start", "repair by failed checks",
              "enumeration" if n_q <= cd.ENUMERATION_LIMIT else "local search")
-    method = ", ".join(steps[:deepest]) + em_note
+    method = ", ".join(steps[:deepest] + tuple(dict.fromkeys(notes)))
     status = np.where(found, "ok", "no-consistent-region")
     alternatives = ()
     if single and n_q:

@@ -48,7 +48,6 @@ import itertools
 
 import numpy as np
 
-from ..devices import scaled_to_temperature
 from .linear import solve_batch
 
 #: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
@@ -65,7 +64,7 @@ MAX_TRANSISTORS = 100
 MAX_MATRIX_BYTES = 64 * 2**20
 #: Bytes of working arrays one batched step may hold: samples and candidate assignments are
 #: processed in blocks of this size, so memory stays flat however large the batch.
-WORK_BYTES = 24 * 2**20
+WORK_BYTES = 16 * 2**20
 
 CUTOFF, ACTIVE, SATURATION, REVERSE = 0, 1, 2, 3
 
@@ -110,7 +109,7 @@ class RegionProblem:
     def __init__(self, layout, params, active_edge: str = "vce-sat"):
         self.layout = layout
         self.params = params
-        dev = scaled_to_temperature(params.device, params.temperature[:, None])
+        dev = params.at_temperature
         self.dev = dev
         self.vbe_on = dev["vbe_on"]
         self.vbc_on = dev["vbc_on"]
@@ -375,10 +374,8 @@ _NAMES_PNP = tuple(np.array(t, dtype=str) for t in (
 def all_assignments(n: int) -> np.ndarray:
     """Every region assignment of n transistors, shape (4^n, n), all forward-active first (read-only).
 
-    Only for n <= ENUMERATION_LIMIT.
+    Called only for n <= ENUMERATION_LIMIT (4^5 = 1024 rows).
     """
-    if n > ENUMERATION_LIMIT:
-        raise ValueError(f"all_assignments: {n} transistors is beyond the enumeration limit")  # pragma: no cover
     order = (ACTIVE, CUTOFF, SATURATION, REVERSE)
     table = np.array(list(itertools.product(order, repeat=n)), dtype=np.int8).reshape(4 ** n, n)
     table.flags.writeable = False
@@ -387,10 +384,10 @@ def all_assignments(n: int) -> np.ndarray:
 
 @functools.lru_cache(maxsize=64)
 def _changes(n: int, distance: int):
-    """Which transistor and by how much each neighbour changes: (rows, columns, steps), read-only.
+    """How each neighbour of a centre differs from it: (count, rows, columns, steps), read-only.
 
-    Neighbour r (of 1 + 3n + 9·n(n-1)/2 ... for the given distance; row 0 is the centre itself)
-    adds ``steps`` (mod 4) to the region codes at ``columns`` of the rows ``rows``.
+    ``count`` is 1 + 3n (+ 9·n(n-1)/2 for distance 2); row 0 is the centre itself. Entry i adds
+    ``steps[i]`` (mod 4) to the region code in column ``columns[i]`` of neighbour ``rows[i]``.
     """
     rows, cols, steps = [], [], []
     count = 1
