@@ -367,8 +367,11 @@ def _check_model(model) -> None:
 
 
 def _same(old, new) -> bool:
+    """True when setting ``new`` would not change ``old`` (so nothing needs solving)."""
     if old is None or new is None:
         return old is new
-    if isinstance(old, float) and isinstance(new, (int, float)) and not isinstance(new, bool):
+    if isinstance(new, bool):
+        return False  # refused later by the plan's own check; never "the same" as a number
+    if isinstance(old, float) and isinstance(new, (int, float)):
         return old == float(new)
-    return False
+    return type(old) is type(new) and old == new

@@ -8,7 +8,6 @@ also shows its static record (:mod:`.record`), refreshed on every change.
 from __future__ import annotations
 
 import html
-import math
 
 import ipywidgets as widgets
 
@@ -16,12 +15,12 @@ from ..analyses.plane import plan_planes
 from ..devices import PRESETS, preset
 from ..plan import COUPLINGS, PLAN_PARAMETERS
 from ..stages import Parameter
-from ..units import format_quantity as fq
+from . import tables
 from .controls import ChoiceControl, QuantityControl
 from .record import StaticRecord, html_block
+from .tables import CUSTOM_DEVICE, preset_of
 
-__all__ = ["StageEditor", "PlanEditor", "CanvasView", "SummaryView", "stage_result_html", "summary_html",
-           "status_html", "DEVICE_PARAMETERS", "CUSTOM_DEVICE"]
+__all__ = ["StageEditor", "PlanEditor", "CanvasView", "SummaryView", "DEVICE_PARAMETERS", "PLAN_CONTROLS"]
 
 #: The device parameters each stage editor offers, declared like the templates' parameters, with
 #: the slider range each starts with (common practice for small-signal silicon parts, no source).
@@ -33,99 +32,23 @@ DEVICE_PARAMETERS: tuple = (
     (Parameter("vce_sat", "V", 0.2, "collector-emitter voltage in saturation (constant-drop model)",
                minimum=0.0, minimum_inclusive=True, maximum=2.0, optional=False, scale="linear"), (0.0, 1.0)),
 )
-#: The preset choice when the stage's transistor is not one of the presets.
-CUSTOM_DEVICE = "custom (the values below)"
 #: Plan values the plan editor offers.
 PLAN_CONTROLS = ("supply", "negative_supply", "source_resistance", "load_resistance", "temperature")
-
-_REGION_WORDS = {
-    "forward-active": "forward-active: amplifying",
-    "saturation": "SATURATED: both junctions forward-biased, no gain",
-    "cutoff": "CUT OFF: no collector current",
-    "reverse-active": "REVERSE-ACTIVE: collector and emitter swapped",
-}
-
 
 def _e(text) -> str:
     return html.escape(str(text))
 
 
-def _table(rows) -> str:
-    body = "".join(f"<tr><th style='text-align:left;padding-right:1em'>{_e(k)}</th><td>{_e(v)}</td></tr>"
-                   for k, v in rows)
-    return f"<table>{body}</table>"
-
-
-def _gain(g: float) -> str:
-    if g is None or not math.isfinite(g):
-        return fq(g)
-    db = f" ({20 * math.log10(abs(g)):.1f} dB)" if g != 0 else ""
-    return f"{g:.4g} V/V{db}"
-
-
-def _cautions(cautions) -> str:
-    if not cautions:
-        return "<p>No cautions.</p>"
-    return "<p><b>Cautions:</b></p><ul>" + "".join(f"<li>{_e(c)}</li>" for c in cautions) + "</ul>"
-
-
 def status_html(live) -> str:
-    """The live plan's status in words (``ampplan-status``)."""
-    s = live.status
-    if s.kind == "ok":
-        return f"<span style='color:#1b5e20'>✓ solved ({_e(live.model)} model)</span>"
-    words = {"refused": "refused (the plan is unchanged)",
-             "unsettled": "not settled — the views show the last good result",
-             "error": "a view failed"}[s.kind]
-    return (f"<span style='color:#a01a1a'><b>⚠ {_e(words)}</b>: {_e(s.message)}</span>")
+    return tables.status_html(live.status, live.model)
 
 
 def stage_result_html(live, sid: str) -> str:
-    """One stage's result in words and figures (the editor's result view and its static record)."""
-    result = live.result
-    if sid not in live.plan.stage_ids:
-        return f"<p>Stage {_e(sid)} is no longer in the plan.</p>"
-    if result is None or sid not in [s.id for s in result.stages]:
-        return f"<p>Stage {_e(sid)} has no result yet: {_e(live.status.message or 'not solved')}</p>"
-    s = result.stage(sid)
-    t = s.transistor
-    pnp = t.polarity == "pnp"
-    vce_name = "V_EC" if pnp else "V_CE"
-    rows = [("region", _REGION_WORDS.get(t.region, t.region)),
-            ("I_C", fq(t.ic, "A")),
-            (vce_name, fq(-t.vce if pnp else t.vce, "V")),
-            ("headroom to saturation", fq(s.saturation_margin, "V")),
-            ("margin to cutoff (I_C)", fq(s.cutoff_margin, "A")),
-            ("swing toward saturation", f"{fq(s.swing.toward_saturation, 'V')} peak at the output"),
-            ("swing toward cutoff", f"{fq(s.swing.toward_cutoff, 'V')} peak at the output"),
-            ("gain v(out)/v(in)", _gain(s.gain)),
-            ("R_in / R_out", f"{fq(s.input_resistance, 'Ω')} / {fq(s.output_resistance, 'Ω')}"),
-            ("dissipation", fq(s.dissipation, "W"))]
-    stale = "" if live.result_is_current else (
-        "<p style='color:#a01a1a'><b>Last good result</b>: the plan as it is now did not settle.</p>")
-    return stale + _table(rows) + _cautions(s.cautions)
+    return tables.stage_result_html(live.plan, live.result, sid, live.result_is_current)
 
 
 def summary_html(live) -> str:
-    """The chain figures (the summary view and its static record)."""
-    r = live.result
-    if r is None:
-        return f"<p>No result: {_e(live.status.message or 'not solved')}</p>"
-    if r.limiting_stage:
-        amplitude = f"{fq(r.max_source_amplitude, 'V')} peak, limited by {r.limiting_stage}"
-    else:
-        amplitude = "no stage clips within the sweep"
-    rows = [("gain (load / source EMF)", _gain(r.gain)),
-            ("input resistance", fq(r.input_resistance, "Ω")),
-            ("output resistance", fq(r.output_resistance, "Ω")),
-            ("largest source amplitude", amplitude),
-            ("supply current", fq(r.supply_current, "A")),
-            ("supply power", fq(r.supply_power, "W")),
-            ("stages", ", ".join(f"{s.id} {s.region}" for s in r.stages)),
-            ("model", r.model)]
-    stale = "" if live.result_is_current else (
-        "<p style='color:#a01a1a'><b>Last good result</b>: the plan as it is now did not settle.</p>")
-    return stale + _table(rows) + _cautions(r.cautions)
+    return tables.summary_html(live.result, live.result_is_current)
 
 
 class _View(widgets.VBox):
@@ -160,7 +83,7 @@ class StageEditor(_View):
             address = f"{sid}.{p.name}"
             self.controls[address] = QuantityControl(address, p, live.get(address), live.set, label=p.name)
         self.controls[f"{sid}.device"] = ChoiceControl(f"{sid}.device", [*PRESETS, CUSTOM_DEVICE],
-                                                       _preset_of(stage.device), self._set_device,
+                                                       preset_of(stage.device), self._set_device,
                                                        "device preset")
         for p, typical in DEVICE_PARAMETERS:
             address = f"{sid}.device.{p.name}"
@@ -203,7 +126,7 @@ class StageEditor(_View):
             if not present:
                 continue
             if address == f"{self.sid}.device":
-                control.sync(_preset_of(self.live.plan.stage(self.sid).device))
+                control.sync(preset_of(self.live.plan.stage(self.sid).device))
             else:
                 control.sync(self.live.get(address))
             if change is not None and change.status.kind != "refused" and change.address == address:
@@ -214,14 +137,8 @@ class StageEditor(_View):
         self.record.refresh()
 
     def _record_bundle(self) -> dict:
-        values = []
-        if self.sid in self.live.plan.stage_ids:
-            stage = self.live.plan.stage(self.sid)
-            for name, value in stage.parameters().items():
-                values.append((name, "not fitted" if value is None else fq(value, stage.unit(name))))
-            values.append(("device", _preset_of(stage.device)))
-            values.append(("coupling", self.live.get(f"{self.sid}.coupling")))
-        body = (self._header_html() + "<div style='display:flex;gap:2em'>" + _table(values)
+        values = tables.stage_values(self.live.plan, self.sid) if self.sid in self.live.plan.stage_ids else []
+        body = (self._header_html() + "<div style='display:flex;gap:2em'>" + tables.table(values)
                 + "<div>" + stage_result_html(self.live, self.sid) + "</div></div>")
         text = f"stage {self.sid}: " + ", ".join(f"{k} {v}" for k, v in values)
         return {"text/html": html_block(body, f"Static record of stage {self.sid} (latest state)"),
@@ -260,10 +177,8 @@ class PlanEditor(_View):
         self.record.refresh()
 
     def _record_bundle(self) -> dict:
-        plan = self.live.plan
-        values = [(name, fq(plan.get(name), PLAN_PARAMETERS[name].unit)) for name in PLAN_CONTROLS]
-        values.append(("load_coupling", plan.load_coupling))
-        return {"text/html": html_block(_table(values), "Static record of the plan values (latest state)"),
+        values = tables.plan_values(self.live.plan)
+        return {"text/html": html_block(tables.table(values), "Static record of the plan values (latest state)"),
                 "text/plain": ", ".join(f"{k} {v}" for k, v in values)}
 
 
@@ -356,13 +271,6 @@ class CanvasView(_View):
         png = draw_png(self._planes, stale=not self.live.result_is_current)
         return {"image/png": png,
                 "text/plain": "Static picture of the canvas: " + "; ".join(p.title for p in self._planes.stages)}
-
-
-def _preset_of(device) -> str:
-    for role, transistor in PRESETS.items():
-        if transistor == device:
-            return role
-    return CUSTOM_DEVICE
 
 
 def _ensure_bokehjs() -> None:
