@@ -212,8 +212,11 @@ class ObservablePlan:
             before = self._snapshot(f"set {address}")
             self._plan.set(address, value)
         except AmpplanError as exc:
-            self._refuse(exc, "set", address)
-            raise
+            named = _named(exc, address)
+            self._refuse(named, "set", address)
+            if named is exc:
+                raise
+            raise named from exc
         self._push(before)
         self._solve("set", address)
 
@@ -359,6 +362,21 @@ class ObservablePlan:
     def __repr__(self) -> str:
         return (f"{type(self).__name__}({len(self._plan.stage_ids)} stage(s), model={self._model}, "
                 f"status {self._status})")
+
+
+def _named(exc: AmpplanError, address) -> AmpplanError:
+    """``exc`` led by the plan address (``s1.rc: ...``) when its message does not start with it.
+
+    The plan's own messages name a stage's parameter by its template (``CommonEmitter.rc``); the
+    designer at a live plan thinks in addresses.
+    """
+    message = str(exc)
+    if not isinstance(address, str) or message.startswith(address):
+        return exc
+    try:
+        return type(exc)(f"{address}: {message}")
+    except TypeError:  # an error class with another constructor: keep it as it is
+        return exc
 
 
 def _check_model(model) -> None:

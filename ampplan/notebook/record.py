@@ -3,9 +3,14 @@ display id and refreshed in place on every change, so that a saved notebook read
 
 The record of a view is one display output (``text/html``, or ``image/png`` with ``text/plain``)
 whose display id the view keeps; :meth:`StaticRecord.refresh` rewrites it wherever it was shown
-(nbclient and JupyterLab both rewrite the stored output in place). A refresh that comes from a
-widget event (a slider being dragged) may be deferred and merged with the next ones, so the
-picture never holds the kernel up; a refresh from code run in a cell is made at once.
+(nbclient and JupyterLab both rewrite the stored output in place). Refreshes are merged so that
+the picture (a few hundred milliseconds to draw) never holds the kernel up more than once:
+
+* during a cell's code, every record that changed is rewritten once, when the cell ends (IPython's
+  ``post_run_cell`` event), however many edits the cell made;
+* during a widget event (a slider being dragged), the latest state is drawn
+  :data:`DEFER_SECONDS` after the last event;
+* outside a kernel, at once.
 """
 
 from __future__ import annotations
@@ -23,21 +28,52 @@ STATIC_CLASS = "ampplan-static"
 DEFER_SECONDS = 0.4
 
 
-def in_widget_event() -> bool:
-    """True while the kernel handles a widget message (not the code of a cell)."""
+def _shell():
     try:
         from IPython import get_ipython
     except ImportError:  # pragma: no cover - IPython comes with ipywidgets
-        return False
-    shell = get_ipython()
-    kernel = getattr(shell, "kernel", None)
+        return None
+    return get_ipython()
+
+
+def _handling() -> str | None:
+    """The type of the kernel message being handled (``"execute_request"``, ``"comm_msg"``), if any."""
+    kernel = getattr(_shell(), "kernel", None)
     if kernel is None:
-        return False
+        return None
     try:
         parent = kernel.get_parent("shell") or {}
     except TypeError:  # older kernels take no channel
         parent = kernel.get_parent() or {}
-    return parent.get("header", {}).get("msg_type") == "comm_msg"
+    return parent.get("header", {}).get("msg_type")
+
+
+def in_widget_event() -> bool:
+    """True while the kernel handles a widget message (not the code of a cell)."""
+    return _handling() == "comm_msg"
+
+
+#: Records to rewrite when the running cell ends.
+_AT_CELL_END: dict = {}
+_HOOKED = []
+
+
+def _flush_at_cell_end(*_):
+    pending = list(_AT_CELL_END.values())
+    _AT_CELL_END.clear()
+    for record in pending:
+        record._flush()
+
+
+def _defer_to_cell_end(record) -> bool:
+    shell = _shell()
+    if shell is None or not hasattr(shell, "events"):
+        return False
+    if not _HOOKED:
+        shell.events.register("post_run_cell", _flush_at_cell_end)
+        _HOOKED.append(shell)
+    _AT_CELL_END[record.display_id] = record
+    return True
 
 
 class StaticRecord:
@@ -47,14 +83,10 @@ class StaticRecord:
     ----------
     render : callable
         Returns the output's mime bundle (a dict of mime type to data) for the view as it is now.
-    defer : bool
-        Merge refreshes that come from widget events and draw the latest one after
-        :data:`DEFER_SECONDS` (for the picture, which takes a while to draw).
     """
 
-    def __init__(self, render: Callable[[], dict], defer: bool = False):
+    def __init__(self, render: Callable[[], dict]):
         self._render = render
-        self._defer = defer
         self.display_id = f"ampplan-{uuid.uuid4().hex}"
         self.shown = False
         self._pending = None
@@ -71,10 +103,13 @@ class StaticRecord:
         self.shown = True
 
     def refresh(self) -> None:
-        """Rewrite the record wherever it was shown (deferred during widget events, see above)."""
+        """Rewrite the record wherever it was shown, merged with other refreshes (see above)."""
         if not self.shown:
             return
-        if self._defer and in_widget_event():
+        handling = _handling()
+        if handling == "execute_request" and _defer_to_cell_end(self):
+            return
+        if handling == "comm_msg":
             try:
                 loop = asyncio.get_running_loop()
             except RuntimeError:

@@ -235,7 +235,7 @@ class CanvasView(_View):
         self.plot.add_class("ampplan-canvas-plot")
         super().__init__(children=[self.status, self.note, self.plot])
         self.add_class("ampplan-canvas")
-        self.record = StaticRecord(self._record_bundle, defer=True)
+        self.record = StaticRecord(self._record_bundle)
 
     def _ipython_display_(self):
         _ensure_bokehjs()
@@ -291,5 +291,6 @@ def _inline_bokehjs() -> None:
         return
     from bokeh.io import output_notebook
     from bokeh.resources import INLINE
+    print("ampplan: BokehJS is inlined into this notebook (about 4 MB): ampplan's loader is not available here.")
     output_notebook(resources=INLINE, hide_banner=True)
     _INLINE_DONE.append(True)
