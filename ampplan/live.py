@@ -78,7 +78,7 @@ class Change:
     Attributes
     ----------
     what : str
-        ``"set"``, ``"add"``, ``"remove"``, ``"model"``, ``"undo"``, ``"redo"`` or ``"refresh"``.
+        ``"set"``, ``"add"``, ``"remove"``, ``"move"``, ``"model"``, ``"undo"``, ``"redo"`` or ``"refresh"``.
     address : str or None
         The address set, or the stage id added or removed.
     status : Status
@@ -220,11 +220,11 @@ class ObservablePlan:
         self._push(before)
         self._solve("set", address)
 
-    def add(self, stage, coupling: str = "capacitor", **options) -> str:
+    def add(self, stage, coupling: str = "capacitor", *, id: str | None = None) -> str:
         """Append a stage (see :meth:`Plan.add`), re-solve once; returns the new stage's id."""
         before = self._snapshot("add")
         try:
-            sid = self._plan.add(stage, coupling=coupling, **options)
+            sid = self._plan.add(stage, coupling=coupling, id=id)
         except AmpplanError as exc:
             self._refuse(exc, "add", None)
             raise
@@ -249,6 +249,20 @@ class ObservablePlan:
             self._set_status(Status("ok"))
             self._notify(Change("remove", sid, self._status, solved=False, structure=True))
         return stage
+
+    def move(self, sid: str, position: int) -> None:
+        """Move stage ``sid`` to ``position`` in the chain (see :meth:`Plan.move`), re-solve once.
+
+        The stage keeps its id, so its editor keeps editing it.
+        """
+        before = self._snapshot(f"move {sid}")
+        try:
+            self._plan.move(sid, position)
+        except AmpplanError as exc:
+            self._refuse(exc, "move", sid)
+            raise
+        self._push(before)
+        self._solve("move", sid, structure=True)
 
     def undo(self) -> bool:
         """Take back the latest edit and re-solve; False when there is nothing to undo."""

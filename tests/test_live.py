@@ -184,3 +184,29 @@ def test_change_record_says_what_happened(live):
     live.refresh()
     assert [c.what for c in changes] == ["set", "refresh"]
     assert isinstance(changes[0], Change) and changes[0].address == "s1.rc" and changes[0].solved
+
+
+def test_removing_a_middle_stage_keeps_the_other_ids_and_undo_puts_it_back(live):
+    s3 = live.plan.stage("s3")
+    live.remove("s2")
+    assert live.stage_ids == ("s1", "s3") and live.plan.stage("s3") is s3
+    assert [s.id for s in live.result.stages] == ["s1", "s3"]
+    live.undo()
+    assert live.stage_ids == ("s1", "s2", "s3")
+    same_result(live.result, ObservablePlan.demo().result)
+    # Ids are never reused: the next stage added is s4, not s2.
+    live.remove("s3")
+    assert live.add(ampplan.CommonCollector(re=1.8e3), coupling="direct") == "s4"
+
+
+def test_move_keeps_ids_resolves_and_undoes(live):
+    changes = []
+    live.observe(changes.append, kind="change")
+    live.add(ampplan.CommonEmitter(rb1=100e3, rb2=22e3, rc=4.7e3, re=1e3), id="pre")
+    live.move("pre", 0)
+    assert live.stage_ids == ("pre", "s1", "s2", "s3") and changes[-1].what == "move" and changes[-1].structure
+    assert [s.id for s in live.result.stages] == list(live.stage_ids)
+    live.undo()
+    assert live.stage_ids == ("s1", "s2", "s3", "pre")
+    with pytest.raises(errors.UnknownNameError, match="s9"):
+        live.move("s9", 0)

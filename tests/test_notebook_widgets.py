@@ -283,3 +283,29 @@ def test_quantity_control_reports_an_exception_in_its_callback():
     control = QuantityControl("s1.rc", p, 4.7e3, broken)
     control.value = 1e3
     assert "kaboom" in control.message.value and control.value == 4.7e3
+
+
+def test_removing_a_middle_stage_keeps_every_other_editor_on_its_stage(live):
+    e3, canvas = live.editor("s3"), live.canvas().canvas
+    figure_s3 = canvas.panels["s3"].figure
+    live.remove("s2")
+    assert set(canvas.panels) == {"s1", "s3"} and canvas.panels["s3"].figure is figure_s3
+    # s3 now hangs from s1's collector: its editor still edits s3 and shows s3's new result.
+    r = live.plan.copy().solve()
+    assert format_quantity(r.stage("s3").transistor.ic, "A") in e3.result_view.value
+    e3.controls["s3.re"].value = 2.2e3
+    assert live.get("s3.re") == 2.2e3
+    live.undo()
+    live.undo()
+    assert live.stage_ids == ("s1", "s2", "s3") and set(canvas.panels) == {"s1", "s2", "s3"}
+    assert e3.controls["s3.re"].value == 1.8e3
+
+
+def test_moving_a_stage_reorders_the_canvas_without_rebuilding(live):
+    canvas = live.canvas().canvas
+    figures = {sid: p.figure for sid, p in canvas.panels.items()}
+    live.add(ampplan.CommonEmitter(rb1=100e3, rb2=22e3, rc=4.7e3, re=1e3), id="pre")
+    live.move("pre", 0)
+    shown = [f for r in canvas.layout.children for f in r.children]
+    assert shown[:4] == [canvas.panels[sid].figure for sid in ("pre", "s1", "s2", "s3")]
+    assert all(canvas.panels[sid].figure is f for sid, f in figures.items())

@@ -274,23 +274,6 @@ class CanvasView(_View):
 
 
 def _ensure_bokehjs() -> None:
-    """Put BokehJS on the page before the first canvas (h6's loader when present)."""
-    try:
-        from .resources import ensure_bokehjs
-    except ImportError:
-        _inline_bokehjs()
-        return
+    """Put BokehJS on the page before the first canvas (idempotent; see :mod:`.resources`)."""
+    from .resources import ensure_bokehjs
     ensure_bokehjs()
-
-
-_INLINE_DONE = []
-
-
-def _inline_bokehjs() -> None:
-    if _INLINE_DONE:
-        return
-    from bokeh.io import output_notebook
-    from bokeh.resources import INLINE
-    print("ampplan: BokehJS is inlined into this notebook (about 4 MB): ampplan's loader is not available here.")
-    output_notebook(resources=INLINE, hide_banner=True)
-    _INLINE_DONE.append(True)
