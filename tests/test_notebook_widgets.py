@@ -309,3 +309,46 @@ def test_moving_a_stage_reorders_the_canvas_without_rebuilding(live):
     shown = [f for r in canvas.layout.children for f in r.children]
     assert shown[:4] == [canvas.panels[sid].figure for sid in ("pre", "s1", "s2", "s3")]
     assert all(canvas.panels[sid].figure is f for sid, f in figures.items())
+
+
+def test_static_record_refreshes_merge_to_one_per_cell(monkeypatch):
+    # In a cell, every change marks the record; it is drawn once when the cell ends (IPython's
+    # post_run_cell event), however many edits the cell made.
+    from ampplan.notebook import record as rec
+
+    class Events:
+        def __init__(self):
+            self.callbacks = []
+
+        def register(self, name, callback):
+            assert name == "post_run_cell"
+            self.callbacks.append(callback)
+
+    class Shell:
+        events = Events()
+
+    shell = Shell()
+    drawn = []
+    monkeypatch.setattr(rec, "_shell", lambda: shell)
+    monkeypatch.setattr(rec, "_handling", lambda: "execute_request")
+    monkeypatch.setattr(rec, "_HOOKED", [])
+    monkeypatch.setattr(rec, "_AT_CELL_END", {})
+    record = rec.StaticRecord(lambda: {"text/plain": "x"})
+    monkeypatch.setattr(record, "_flush", lambda: drawn.append(1))
+    record.shown = True
+    for _ in range(5):
+        record.refresh()
+    assert drawn == [] and len(shell.events.callbacks) == 1
+    shell.events.callbacks[0]()
+    assert drawn == [1]
+    shell.events.callbacks[0]()  # nothing changed since: nothing drawn
+    assert drawn == [1]
+
+
+def test_canvas_sends_only_what_changed(live):
+    canvas = live.canvas().canvas
+    sources = {(sid, name): s for sid, p in canvas.panels.items() for name, s in p.sources.items()}
+    before = {k: s.data for k, s in sources.items()}
+    live.set("s3.re", 2.2e3)  # the follower: s1 and s2 keep their Q-points
+    assert sources[("s1", "qpoint")].data is before[("s1", "qpoint")]
+    assert sources[("s3", "qpoint")].data is not before[("s3", "qpoint")]

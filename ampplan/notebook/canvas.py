@@ -2,6 +2,10 @@
 
 Figures are made once per stage and kept; an edit replaces each data source's ``.data`` in one step
 (all columns at once, numpy arrays) and sets the titles and ranges, and never rebuilds a figure.
+Only what changed is sent: every property or data change is one message to the browser, so a
+source whose data is the same, a title that says the same, and a range that still holds the
+panel are left alone (the axes also stay put while a slider moves, unless the panel outgrows
+them or shrinks to less than half of them).
 Adding or removing a stage adds or drops that stage's figure from the layout. Data sources are
 named ``ampplan-<sid>-<layer>`` (``ampplan-s1-qpoint``) and ``ampplan-chain-<layer>``, so a browser
 can find them with ``Bokeh.documents[i].get_model_by_name(...)``.
@@ -35,12 +39,55 @@ def _data(layer) -> dict:
             "text": np.asarray(layer.text, dtype=object)}
 
 
+#: Relative difference below which a coordinate counts as unchanged: the solver's rounding moves
+#: values by a few parts in 1e16 between solves of the same operating point.
+_SAME = 1e-12
+
+
+def _same_data(old: dict, new: dict) -> bool:
+    if old.keys() != new.keys():
+        return False
+    for key, value in new.items():
+        before = old[key]
+        if len(before) != len(value):
+            return False
+        if key == "text" or key == "x" and len(value) and isinstance(value[0], tuple):
+            if list(before) != list(value):
+                return False
+        elif not np.allclose(np.asarray(before, dtype=float), value, rtol=_SAME, atol=0.0, equal_nan=True):
+            return False
+    return True
+
+
+def _put(source: ColumnDataSource, data: dict) -> None:
+    """Replace ``source.data`` in one step, unless it already holds the same."""
+    if not _same_data(source.data, data):
+        source.data = data
+
+
+def _set(model, **properties) -> None:
+    """Set the properties that differ from the model's (each change is a message)."""
+    changed = {k: v for k, v in properties.items() if getattr(model, k) != v}
+    if changed:
+        model.update(**changed)
+
+
+def _hold(current_start: float, current_end: float, low: float, high: float) -> tuple:
+    """A range that holds [low, high]: the current one while it does and is not more than twice as
+    wide, else the new extent."""
+    width = current_end - current_start
+    if current_start <= low and high <= current_end and (high - low) >= 0.5 * width:
+        return current_start, current_end
+    return low, high
+
+
 class _StagePanel:
     """One stage's figure and its named data sources."""
 
     def __init__(self, sid: str):
         self.sid = sid
-        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None,
+        # No toolbar tools but hover: every model in the document costs time on every change.
+        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None, tools="",
                              x_range=Range1d(0, 1), y_range=Range1d(0, 1), name=f"ampplan-{sid}-panel")
         self.figure.title.text_font_size = "9pt"
         self.sources = {name: ColumnDataSource(data=dict(_EMPTY), name=f"ampplan-{sid}-{name}")
@@ -68,19 +115,23 @@ class _StagePanel:
     def update(self, plane: StagePlane, stale: bool):
         scale, unit = current_scale(plane.i_max)
         for layer in stage_layers(plane):
-            self.sources[layer.name].data = _data(layer)
+            _put(self.sources[layer.name], _data(layer))
         f = self.figure
-        f.x_range.update(start=0.0, end=plane.v_max)
-        f.y_range.update(start=-0.04 * plane.i_max * scale, end=plane.i_max * scale)
-        f.xaxis.axis_label = f"{plane.voltage_label} (V)"
-        f.yaxis.axis_label = f"{plane.current_label} ({unit})"
-        f.title.text = _wrap((STALE_NOTE + ": " if stale else "") + plane.title)
-        f.background_fill_color = COLOURS["stale"] if stale else "#ffffff"
+        if unit != getattr(self, "_unit", None):  # another scale: the old range means nothing
+            f.y_range.update(start=0.0, end=0.0)
+            self._unit = unit
+        _set(f.x_range, **dict(zip(("start", "end"), _hold(f.x_range.start, f.x_range.end, 0.0, plane.v_max))))
+        top = plane.i_max * scale
+        _set(f.y_range, **dict(zip(("start", "end"), _hold(f.y_range.start, f.y_range.end, -0.04 * top, top))))
+        _set(f.xaxis[0], axis_label=f"{plane.voltage_label} (V)")
+        _set(f.yaxis[0], axis_label=f"{plane.current_label} ({unit})")
+        _set(f.title, text=_wrap((STALE_NOTE + ": " if stale else "") + plane.title))
+        _set(f, background_fill_color=COLOURS["stale"] if stale else "#ffffff")
 
 
 class _ChainPanel:
     def __init__(self):
-        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None,
+        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None, tools="",
                              x_range=FactorRange(factors=[]), y_range=Range1d(0, 1), name="ampplan-chain-panel")
         self.figure.title.text_font_size = "9pt"
         self.sources = {name: ColumnDataSource(data={"x": [], "y": np.zeros(0), "text": []},
@@ -100,15 +151,16 @@ class _ChainPanel:
         chain = planes.chain
         have, need = chain_layers(chain)
         # Grouped bars: each stage id with a "has" and a "demanded" sub-factor.
-        self.figure.x_range.factors = [(sid, what) for sid in chain.sids for what in ("has", "demanded")]
+        _set(self.figure.x_range, factors=[(sid, what) for sid in chain.sids for what in ("has", "demanded")])
         for name, layer, what in (("available", have, "has"), ("demanded", need, "demanded")):
-            self.sources[name].data = {"x": [(sid, what) for sid in chain.sids],
-                                       "y": np.asarray(layer.y, dtype=float),
-                                       "text": list(layer.text)}
+            _put(self.sources[name], {"x": [(sid, what) for sid in chain.sids],
+                                      "y": np.asarray(layer.y, dtype=float),
+                                      "text": list(layer.text)})
         top = max([*have.y, *need.y, 1e-3]) * 1.25
-        self.figure.y_range.update(start=0.0, end=top)
-        self.figure.title.text = _wrap((STALE_NOTE + ": " if stale else "") + chain.title)
-        self.figure.background_fill_color = COLOURS["stale"] if stale else "#ffffff"
+        _set(self.figure.y_range, **dict(zip(("start", "end"),
+                                             _hold(self.figure.y_range.start, self.figure.y_range.end, 0.0, top))))
+        _set(self.figure.title, text=_wrap((STALE_NOTE + ": " if stale else "") + chain.title))
+        _set(self.figure, background_fill_color=COLOURS["stale"] if stale else "#ffffff")
 
 
 class Canvas:
@@ -154,4 +206,4 @@ class Canvas:
         for panel in [*self.panels.values(), self.chain]:
             panel.figure.background_fill_color = COLOURS["stale"]
             if not panel.figure.title.text.startswith(STALE_NOTE):
-                panel.figure.title.text = _wrap(f"{STALE_NOTE}: {note}")
+                panel.figure.title.text = _wrap(f"{STALE_NOTE}: {note}; " + panel.figure.title.text.replace("\n", " "))

@@ -88,6 +88,13 @@ def current_scale(i_max: float) -> tuple[float, str]:
     return 1e6, "µA"
 
 
+def _next_decade(x: float) -> float:
+    """The power of ten at or above ``x`` (> 0), times ten."""
+    if not (math.isfinite(x) and x > 0):
+        return 1.0
+    return 10.0 ** (math.ceil(math.log10(x)) + 1)
+
+
 def _point_text(plane: StagePlane, what: str, v: float, i: float) -> str:
     return (f"{what}: {plane.voltage_label} = {format_quantity(v, 'V')}, "
             f"{plane.current_label} = {format_quantity(i, 'A')}")
@@ -106,9 +113,11 @@ def stage_layers(plane: StagePlane) -> tuple:
     """The layers of one stage's panel (see :data:`LAYER_NAMES`), currents scaled by
     :func:`current_scale` of the panel's ``i_max``."""
     scale, _ = current_scale(plane.i_max)
-    v_max, i_top = plane.v_max, plane.i_max * scale
+    # The bands reach past the panel to the next decade, so they do not move while a value is
+    # dragged (each renderer clips them to its axes).
+    v_max, i_top = _next_decade(plane.v_max), _next_decade(plane.i_max * scale)
     edge = max(plane.saturation_edge, 0.0)
-    low = -0.04 * i_top
+    low = -i_top
     layers = [
         Layer("saturation", "band", (0.0, edge, edge, 0.0), (low, low, i_top, i_top),
               (f"saturation: {plane.voltage_label} below {format_quantity(plane.saturation_edge, 'V')}",) * 4,
