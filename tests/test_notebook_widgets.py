@@ -352,3 +352,25 @@ def test_canvas_sends_only_what_changed(live):
     live.set("s3.re", 2.2e3)  # the follower: s1 and s2 keep their Q-points
     assert sources[("s1", "qpoint")].data is before[("s1", "qpoint")]
     assert sources[("s3", "qpoint")].data is not before[("s3", "qpoint")]
+
+
+@pytest.mark.parametrize("address", ["s1.rb1", "s1.rb2", "s1.rc", "s1.re", "s1.device.beta", "s1.device.vbe_on"])
+def test_slider_grid_passes_through_the_plan_value(live, address):
+    # A slider's front end snaps to min + k·step and sends the result back: the grid must pass
+    # through the value, or showing the editor would change the design.
+    control = live.editor("s1").controls[address]
+    slider = control.slider
+    here = math.log10(control.value) if isinstance(slider, widgets.FloatLogSlider) else control.value
+    k = (here - slider.min) / slider.step
+    assert abs(k - round(k)) < 1e-6 and slider.min <= here <= slider.max
+    live.set(address, control.value * 1.013)  # off the old grid
+    here = math.log10(control.value) if isinstance(slider, widgets.FloatLogSlider) else control.value
+    k = (here - slider.min) / slider.step
+    assert abs(k - round(k)) < 1e-6
+
+
+def test_slider_echo_does_not_edit_the_plan(live):
+    control = live.editor("s1").controls["s1.rc"]
+    solves = live.solve_count
+    control.slider.value = 4.7e3 * (1 + 1e-13)  # the front end's rounding of 4.7 kΩ
+    assert live.get("s1.rc") == 4.7e3 and live.solve_count == solves and not live.can_undo

@@ -36,6 +36,9 @@ LOG_SPAN = 30.0
 #: Where a value starts from when the declaration has no default and the plan holds none.
 _FALLBACK_CENTRE = {"Ω": 10e3, "F": 10e-6, "V": 1.0, "A": 1e-3, "W": 0.5, "": 100.0, "°C": 25.0}
 
+#: A slider value within this relative distance of the control's value is an echo of it.
+_ECHO = 1e-9
+
 #: Words accepted in a text field for "not fitted".
 NONE_WORDS = ("none", "not fitted", "-", "")
 
@@ -138,6 +141,7 @@ class QuantityControl(widgets.HBox):
         self.add_class("ampplan-control")
         self.add_class(f"ampplan-control-{css_name(address)}")
         self.slider.disabled = value is None
+        self._anchor(start)
         self.slider.observe(self._from_slider, names="value")
         self.text.observe(self._from_text, names="value")
         self.fitted.observe(self._from_fitted, names="value")
@@ -147,7 +151,10 @@ class QuantityControl(widgets.HBox):
     def _from_slider(self, change):
         if self._quiet or not self.fitted.value:
             return
-        self.value = float(change["new"])
+        new, current = float(change["new"]), self.value
+        if current is not None and abs(new - current) <= _ECHO * abs(current):
+            return  # the front end's own rounding of the value it was sent, not a move
+        self.value = new
 
     def _from_text(self, change):
         if self._quiet:
@@ -205,26 +212,33 @@ class QuantityControl(widgets.HBox):
             self.fitted.value = value is not None
             self.slider.disabled = value is None
             if value is not None:
-                self._reach(value)
-                self.slider.value = value
+                self._anchor(value)
         finally:
             self._quiet = False
 
-    def _reach(self, value: float):
-        """Stretch the slider's range to hold ``value`` (typed values may lie outside it)."""
-        if isinstance(self.slider, widgets.FloatLogSlider):
-            if value <= 0:
-                return
-            exponent = math.log10(value)
-            if exponent < self.slider.min:
-                self.slider.min = math.floor(exponent)
-            if exponent > self.slider.max:
-                self.slider.max = math.ceil(exponent)
-        else:
-            if value < self.slider.min:
-                self.slider.min = value
-            if value > self.slider.max:
-                self.slider.max = value
+    def _anchor(self, value: float):
+        """Put ``value`` on the slider's step grid, keeping (or stretching) its range.
+
+        A slider's front end snaps its value to ``min + k·step`` and sends the snapped value back;
+        a grid that does not pass through the plan's value would then change the design merely by
+        showing it. So the grid is laid from the value itself, whole steps either side.
+        """
+        slider = self.slider
+        log = isinstance(slider, widgets.FloatLogSlider)
+        if log and value <= 0:
+            return
+        here = math.log10(value) if log else value
+        step = slider.step
+        low, high = min(slider.min, here), max(slider.max, here)
+        start = here - math.floor((here - low) / step + 1e-9) * step
+        end = here + math.floor((high - here) / step + 1e-9) * step
+        with slider.hold_sync():
+            # min and max first, in whichever order keeps min <= max on the way.
+            if start > slider.max:
+                slider.max, slider.min = end, start
+            else:
+                slider.min, slider.max = start, end
+            slider.value = value
 
     def sync(self, value) -> None:
         """Follow the plan (after an edit elsewhere, an undo): show ``value`` as the last good one."""

@@ -126,8 +126,9 @@ def summary_html(result, current: bool = True) -> str:
 def stage_values(plan, sid: str) -> list:
     """(name, value in engineering notation) of a stage's inputs: its parameters, device, coupling."""
     stage = plan.stage(sid)
-    rows = [(name, "not fitted" if value is None else fq(value, stage.unit(name)))
-            for name, value in stage.parameters().items()]
+    rows = [("stage", f"{sid} ({stage.kind})")]
+    rows += [(name, "not fitted" if value is None else fq(value, stage.unit(name)))
+             for name, value in stage.parameters().items()]
     device = stage.device
     rows += [("device", f"{preset_of(device)} ({device.polarity.upper()}, β {device.beta:g})"),
              ("coupling", plan.get(f"{sid}.coupling"))]
