@@ -4,6 +4,10 @@
 
     ampplan check PLAN.json [--model constant-drop|ebers-moll] [--json] [--set ADDRESS=VALUE ...]
     ampplan check --demo
+    ampplan report PLAN.json|--demo -o report.html [--model ...] [--set ADDRESS=VALUE ...]
+
+``report`` writes one standalone HTML file that reads offline (see :mod:`ampplan.report`); its exit
+status follows ``check``'s once the file is written.
 
 Exit status of ``check``:
 
@@ -164,6 +168,28 @@ def _check(args, out, err) -> int:
     return status
 
 
+def _report_command(args, out, err) -> int:
+    try:
+        plan, label = _read(args)
+        _apply_settings(plan, args.set)
+    except (PlanFileError, _BadInput) as exc:
+        return _fail(args, err, out, EXIT_BAD_INPUT, str(exc))
+    try:
+        result = plan.solve(model=args.model)
+    except (NoConsistentRegionError, ConvergenceError) as exc:
+        return _fail(args, err, out, EXIT_NOT_OK, f"{label}: the solver could not settle the plan: {exc}")
+    except AmpplanError as exc:
+        return _fail(args, err, out, EXIT_BAD_INPUT, f"{label}: {exc}")
+    from .report import verdict, write_report  # the report draws with matplotlib: load it only here
+    try:
+        write_report(plan, result, args.output, label)
+    except OSError as exc:
+        return _fail(args, err, out, EXIT_BAD_INPUT, f"cannot write {args.output}: {exc.strerror or exc}")
+    ok, words = verdict(result)
+    print(f"ampplan report: wrote {args.output} ({words})", file=out)
+    return EXIT_OK if ok else EXIT_NOT_OK
+
+
 def _fail(args, err, out, status: int, message: str) -> int:
     message = _printable(message)
     print(f"ampplan: {message}", file=err)
@@ -192,6 +218,18 @@ def _parser() -> argparse.ArgumentParser:
                             "its unit: s1.rc=4.7k, s1.rc=4.7kΩ, supply=15V, s2.device.beta=80, "
                             "s1.rb2=none (repeatable)")
     check.set_defaults(run=_check)
+    report = commands.add_parser(
+        "report", help="write a standalone HTML report of a plan",
+        description="Solve a plan and write one standalone HTML file that reads offline: the tables, the "
+                    "canvas picture, the cautions and the safety note. Exit status as for check once the "
+                    "file is written; 2 for bad input.")
+    report.add_argument("plan", nargs="?", metavar="PLAN.json", help="the plan file to report")
+    report.add_argument("--demo", action="store_true", help="report the demo plan shipped with ampplan")
+    report.add_argument("-o", "--output", required=True, metavar="REPORT.html", help="the HTML file to write")
+    report.add_argument("--model", choices=MODELS, default=MODELS[0], help=f"device model (default {MODELS[0]})")
+    report.add_argument("--set", action="append", metavar="ADDRESS=VALUE",
+                        help="change one value before solving, as for check (repeatable)")
+    report.set_defaults(run=_report_command)
     from .cli_whatif import add_commands  # sweep, tolerance, design (their own module)
     add_commands(commands)
     return parser

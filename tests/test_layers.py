@@ -83,6 +83,12 @@ with tempfile.TemporaryDirectory() as folder:
     with contextlib.redirect_stdout(io.StringIO()):
         ampplan.cli.main(["check", os.path.join(folder, "p.json")])
 regions["plan"] = result.stages[0].region
+# The live plan and the canvas's plane data sit below the widgets; the notebook package itself
+# loads its widget libraries only when LivePlan is first used.
+import ampplan.live, ampplan.analyses.plane, ampplan.notebook, ampplan.notebook.tables
+live = ampplan.live.ObservablePlan(plan)
+live.set("s1.rc", 3.9e3)
+ampplan.analyses.plane.plan_planes(live.result, live.plan)
 loaded = {name: name in sys.modules for name in %(modules)r}
 print(json.dumps({"regions": regions, "loaded": loaded}))
 """

@@ -1,0 +1,209 @@
+"""The bokeh canvas: one panel per stage (its I_C–V_CE plane) and the chain view, in one layout.
+
+Figures are made once per stage and kept; an edit replaces each data source's ``.data`` in one step
+(all columns at once, numpy arrays) and sets the titles and ranges, and never rebuilds a figure.
+Only what changed is sent: every property or data change is one message to the browser, so a
+source whose data is the same, a title that says the same, and a range that still holds the
+panel are left alone (the axes also stay put while a slider moves, unless the panel outgrows
+them or shrinks to less than half of them).
+Adding or removing a stage adds or drops that stage's figure from the layout. Data sources are
+named ``ampplan-<sid>-<layer>`` (``ampplan-s1-qpoint``) and ``ampplan-chain-<layer>``, so a browser
+can find them with ``Bokeh.documents[i].get_model_by_name(...)``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from bokeh.layouts import column, row
+from bokeh.models import ColumnDataSource, FactorRange, HoverTool, Range1d
+from bokeh.plotting import figure
+
+from ..analyses.plane import PlanPlanes, StagePlane
+from .look import COLOURS, LAYER_NAMES, STALE_NOTE, chain_layers, current_scale, stage_layers
+
+__all__ = ["Canvas", "PANEL_WIDTH", "PANEL_HEIGHT", "COLUMNS"]
+
+PANEL_WIDTH, PANEL_HEIGHT = 330, 300
+#: Panels per row.
+COLUMNS = 3
+_EMPTY = {"x": np.zeros(0), "y": np.zeros(0), "text": np.zeros(0, dtype=object)}
+
+
+def _wrap(text: str, width: int = 48) -> str:
+    import textwrap
+    return "\n".join(textwrap.wrap(text, width)) or " "
+
+
+def _data(layer) -> dict:
+    return {"x": np.asarray(layer.x, dtype=float), "y": np.asarray(layer.y, dtype=float),
+            "text": np.asarray(layer.text, dtype=object)}
+
+
+#: Relative difference below which a coordinate counts as unchanged: the solver's rounding moves
+#: values by a few parts in 1e16 between solves of the same operating point.
+_SAME = 1e-12
+
+
+def _same_data(old: dict, new: dict) -> bool:
+    if old.keys() != new.keys():
+        return False
+    for key, value in new.items():
+        before = old[key]
+        if len(before) != len(value):
+            return False
+        if key == "text" or key == "x" and len(value) and isinstance(value[0], tuple):
+            if list(before) != list(value):
+                return False
+        elif not np.allclose(np.asarray(before, dtype=float), value, rtol=_SAME, atol=0.0, equal_nan=True):
+            return False
+    return True
+
+
+def _put(source: ColumnDataSource, data: dict) -> None:
+    """Replace ``source.data`` in one step, unless it already holds the same."""
+    if not _same_data(source.data, data):
+        source.data = data
+
+
+def _set(model, **properties) -> None:
+    """Set the properties that differ from the model's (each change is a message)."""
+    changed = {k: v for k, v in properties.items() if getattr(model, k) != v}
+    if changed:
+        model.update(**changed)
+
+
+def _hold(current_start: float, current_end: float, low: float, high: float) -> tuple:
+    """A range that holds [low, high]: the current one while it does and is not more than twice as
+    wide, else the new extent."""
+    width = current_end - current_start
+    if current_start <= low and high <= current_end and (high - low) >= 0.5 * width:
+        return current_start, current_end
+    return low, high
+
+
+class _StagePanel:
+    """One stage's figure and its named data sources."""
+
+    def __init__(self, sid: str):
+        self.sid = sid
+        # No toolbar tools but hover: every model in the document costs time on every change.
+        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None, tools="",
+                             x_range=Range1d(0, 1), y_range=Range1d(0, 1), name=f"ampplan-{sid}-panel")
+        self.figure.title.text_font_size = "9pt"
+        self.sources = {name: ColumnDataSource(data=dict(_EMPTY), name=f"ampplan-{sid}-{name}")
+                        for name in LAYER_NAMES}
+        self.renderers = {}
+        f, s = self.figure, self.sources
+        self.renderers["saturation"] = f.patch("x", "y", source=s["saturation"], color=COLOURS["saturation"],
+                                               alpha=0.45, hatch_pattern="/", hatch_color="#666666",
+                                               hatch_alpha=0.5)
+        self.renderers["cutoff"] = f.patch("x", "y", source=s["cutoff"], color=COLOURS["cutoff"], alpha=0.6)
+        self.renderers["power"] = f.line("x", "y", source=s["power"], color=COLOURS["power"], line_width=2,
+                                         line_dash="dotted")
+        self.renderers["dc"] = f.line("x", "y", source=s["dc"], color=COLOURS["dc"], line_width=2)
+        self.renderers["ac"] = f.line("x", "y", source=s["ac"], color=COLOURS["ac"], line_width=2,
+                                      line_dash="dashed")
+        self.renderers["swing"] = f.line("x", "y", source=s["swing"], color=COLOURS["swing"], line_width=6,
+                                         line_cap="butt")
+        self.renderers["limit"] = f.scatter("x", "y", source=s["limit"], color=COLOURS["limit"], size=13,
+                                            marker="triangle")
+        self.renderers["qpoint"] = f.scatter("x", "y", source=s["qpoint"], color=COLOURS["qpoint"], size=10)
+        f.add_tools(HoverTool(renderers=[self.renderers[n] for n in ("qpoint", "limit", "swing", "dc", "ac",
+                                                                      "power")],
+                              tooltips=[("", "@text")]))
+
+    def update(self, plane: StagePlane, stale: bool):
+        scale, unit = current_scale(plane.i_max)
+        for layer in stage_layers(plane):
+            _put(self.sources[layer.name], _data(layer))
+        f = self.figure
+        if unit != getattr(self, "_unit", None):  # another scale: the old range means nothing
+            f.y_range.update(start=0.0, end=0.0)
+            self._unit = unit
+        _set(f.x_range, **dict(zip(("start", "end"), _hold(f.x_range.start, f.x_range.end, 0.0, plane.v_max))))
+        top = plane.i_max * scale
+        _set(f.y_range, **dict(zip(("start", "end"), _hold(f.y_range.start, f.y_range.end, -0.04 * top, top))))
+        _set(f.xaxis[0], axis_label=f"{plane.voltage_label} (V)")
+        _set(f.yaxis[0], axis_label=f"{plane.current_label} ({unit})")
+        _set(f.title, text=_wrap((STALE_NOTE + ": " if stale else "") + plane.title))
+        _set(f, background_fill_color=COLOURS["stale"] if stale else "#ffffff")
+
+
+class _ChainPanel:
+    def __init__(self):
+        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None, tools="",
+                             x_range=FactorRange(factors=[]), y_range=Range1d(0, 1), name="ampplan-chain-panel")
+        self.figure.title.text_font_size = "9pt"
+        self.sources = {name: ColumnDataSource(data={"x": [], "y": np.zeros(0), "text": []},
+                                               name=f"ampplan-chain-{name}")
+                        for name in ("available", "demanded")}
+        bars = [self.figure.vbar(x="x", top="y", width=0.8, source=self.sources["available"],
+                                 color=COLOURS["available"], legend_label="swing the stage has"),
+                self.figure.vbar(x="x", top="y", width=0.8, source=self.sources["demanded"],
+                                 color=COLOURS["demanded"], hatch_pattern="/", hatch_color="#ffffff",
+                                 legend_label="swing demanded at the largest source amplitude")]
+        self.figure.legend.label_text_font_size = "7pt"
+        self.figure.legend.location = "top_left"
+        self.figure.yaxis.axis_label = "volts peak at the stage output"
+        self.figure.add_tools(HoverTool(renderers=bars, tooltips=[("", "@text")]))
+
+    def update(self, planes: PlanPlanes, stale: bool):
+        chain = planes.chain
+        have, need = chain_layers(chain)
+        # Grouped bars: each stage id with a "has" and a "demanded" sub-factor.
+        _set(self.figure.x_range, factors=[(sid, what) for sid in chain.sids for what in ("has", "demanded")])
+        for name, layer, what in (("available", have, "has"), ("demanded", need, "demanded")):
+            _put(self.sources[name], {"x": [(sid, what) for sid in chain.sids],
+                                      "y": np.asarray(layer.y, dtype=float),
+                                      "text": list(layer.text)})
+        top = max([*have.y, *need.y, 1e-3]) * 1.25
+        _set(self.figure.y_range, **dict(zip(("start", "end"),
+                                             _hold(self.figure.y_range.start, self.figure.y_range.end, 0.0, top))))
+        _set(self.figure.title, text=_wrap((STALE_NOTE + ": " if stale else "") + chain.title))
+        _set(self.figure, background_fill_color=COLOURS["stale"] if stale else "#ffffff")
+
+
+class Canvas:
+    """Every stage's panel and the chain view in one bokeh layout (shown through jupyter_bokeh).
+
+    Attributes
+    ----------
+    layout : bokeh.models.Column
+        The root model.
+    panels : dict of str -> _StagePanel
+        By stage id; each keeps its figure and its data sources for the life of the stage.
+    """
+
+    def __init__(self):
+        self.panels: dict[str, _StagePanel] = {}
+        self.chain = _ChainPanel()
+        self.layout = column(children=[], name="ampplan-canvas-layout")
+        self._order: tuple = ()
+
+    def source(self, sid: str, layer: str) -> ColumnDataSource:
+        """The data source of one layer of one stage (``canvas.source("s1", "qpoint")``)."""
+        return self.panels[sid].sources[layer]
+
+    def update(self, planes: PlanPlanes, stale: bool = False) -> None:
+        """Bring every panel to ``planes``: data replaced in one step per source; figures for new
+        stages made, those of removed stages dropped."""
+        order = tuple(p.sid for p in planes.stages)
+        for sid in order:
+            if sid not in self.panels:
+                self.panels[sid] = _StagePanel(sid)
+        for sid in [s for s in self.panels if s not in order]:
+            del self.panels[sid]
+        for plane in planes.stages:
+            self.panels[plane.sid].update(plane, stale)
+        self.chain.update(planes, stale)
+        if order != self._order:
+            figures = [self.panels[sid].figure for sid in order] + [self.chain.figure]
+            self.layout.children = [row(children=figures[k:k + COLUMNS]) for k in range(0, len(figures), COLUMNS)]
+            self._order = order
+
+    def grey(self, note: str) -> None:
+        """Grey every panel and say why in its title (the result shown is not the plan's)."""
+        for panel in [*self.panels.values(), self.chain]:
+            panel.figure.background_fill_color = COLOURS["stale"]
+            if not panel.figure.title.text.startswith(STALE_NOTE):
+                panel.figure.title.text = _wrap(f"{STALE_NOTE}: {note}; " + panel.figure.title.text.replace("\n", " "))
