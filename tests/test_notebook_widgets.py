@@ -270,9 +270,9 @@ def test_slider_range_from_typical_or_derived():
     assert low < 4.7e3 < high and p.minimum <= low and high <= p.maximum
     assert slider_range(p, 4.7e3, typical=(1e3, 1e5)) == (1e3, 1e5)
     assert slider_range(p, 5e5, typical=(1e3, 1e5)) == (1e3, 5e5)  # stretched to hold the value
-    supply = ampplan.plan.PLAN_PARAMETERS["supply"]  # linear, > 0
+    supply = ampplan.plan.PLAN_PARAMETERS["supply"]  # linear, > 0, with a declared typical range
     low, high = slider_range(supply, 12.0)
-    assert low == 0.0 and high > 12.0
+    assert (low, high) == supply.typical and low < 12.0 < high
 
 
 def test_quantity_control_reports_an_exception_in_its_callback():
