@@ -12,7 +12,10 @@ Rules it keeps:
   plan as it was, raises the error and records it in the status; nothing is solved;
 * a plan the solver cannot settle keeps the change (undo takes it back), keeps the last good
   result and says so in the status (``result_is_current`` is False);
-* an observer that raises does not stop the others; its error becomes the status.
+* an observer that raises does not stop the others; its error becomes the status;
+* one change at a time: JupyterLab may deliver widget messages on a thread of their own (a kernel
+  subshell) while a cell runs, so every change holds the live plan's lock from the edit until the
+  last observer has been told.
 
 Stage ids are the plan's own (``plan.stage_ids``); the live plan never keys anything by position.
 """
@@ -20,8 +23,10 @@ Stage ids are the plan's own (``plan.stage_ids``); the live plan never keys anyt
 from __future__ import annotations
 
 import copy
+import functools
 import importlib.resources
 import os
+import threading
 from dataclasses import dataclass
 from typing import Callable, Literal, get_args
 
@@ -42,6 +47,15 @@ ObserveKind = Literal["result", "change"]
 OBSERVE_KINDS: tuple[str, ...] = get_args(ObserveKind)
 
 _UNSETTLED = (NoConsistentRegionError, ConvergenceError)
+
+
+def _one_at_a_time(method):
+    """Run ``method`` holding the live plan's lock (re-entrant: an observer may edit again)."""
+    @functools.wraps(method)
+    def locked(self, *args, **kwargs):
+        with self._lock:
+            return method(self, *args, **kwargs)
+    return locked
 
 
 @dataclass(frozen=True)
@@ -124,6 +138,7 @@ class ObservablePlan:
             from .errors import InvalidValueError
             raise InvalidValueError(f"LivePlan needs an ampplan.Plan, got {type(plan).__name__}")
         _check_model(model)
+        self._lock = threading.RLock()
         self._plan = plan
         self._model = model
         self._result = None
@@ -170,6 +185,7 @@ class ObservablePlan:
         return self._model
 
     @model.setter
+    @_one_at_a_time
     def model(self, value: str):
         try:
             _check_model(value)
@@ -199,6 +215,7 @@ class ObservablePlan:
         return self._plan.get(address)
 
     # -- edits ------------------------------------------------------------------------------
+    @_one_at_a_time
     def set(self, address: str, value) -> None:
         """Set the value at a dotted address and re-solve once.
 
@@ -220,6 +237,7 @@ class ObservablePlan:
         self._push(before)
         self._solve("set", address)
 
+    @_one_at_a_time
     def add(self, stage, coupling: str = "capacitor", *, id: str | None = None) -> str:
         """Append a stage (see :meth:`Plan.add`), re-solve once; returns the new stage's id."""
         before = self._snapshot("add")
@@ -232,6 +250,7 @@ class ObservablePlan:
         self._solve("add", sid, structure=True)
         return sid
 
+    @_one_at_a_time
     def remove(self, sid: str):
         """Remove stage ``sid`` (see :meth:`Plan.remove`), re-solve once; returns the stage."""
         before = self._snapshot(f"remove {sid}")
@@ -250,6 +269,7 @@ class ObservablePlan:
             self._notify(Change("remove", sid, self._status, solved=False, structure=True))
         return stage
 
+    @_one_at_a_time
     def move(self, sid: str, position: int) -> None:
         """Move stage ``sid`` to ``position`` in the chain (see :meth:`Plan.move`), re-solve once.
 
@@ -264,14 +284,17 @@ class ObservablePlan:
         self._push(before)
         self._solve("move", sid, structure=True)
 
+    @_one_at_a_time
     def undo(self) -> bool:
         """Take back the latest edit and re-solve; False when there is nothing to undo."""
         return self._step(self._undo, self._redo, "undo")
 
+    @_one_at_a_time
     def redo(self) -> bool:
         """Do again the latest edit undone and re-solve; False when there is nothing to redo."""
         return self._step(self._redo, self._undo, "redo")
 
+    @_one_at_a_time
     def refresh(self) -> None:
         """Solve again and tell every observer (after editing the plan outside the live plan)."""
         self._solve("refresh", None, structure=True)

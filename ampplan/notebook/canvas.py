@@ -1,7 +1,7 @@
 """The bokeh canvas: one panel per stage (its I_C–V_CE plane) and the chain view, in one layout.
 
 Figures are made once per stage and kept; an edit replaces each data source's ``.data`` in one step
-(all columns at once, numpy arrays) and sets the titles and ranges, and never rebuilds a figure.
+(all columns at once, as plain lists) and sets the titles and ranges, and never rebuilds a figure.
 Only what changed is sent: every property or data change is one message to the browser, so a
 source whose data is the same, a title that says the same, and a range that still holds the
 panel are left alone (the axes also stay put while a slider moves, unless the panel outgrows
@@ -26,7 +26,7 @@ __all__ = ["Canvas", "PANEL_WIDTH", "PANEL_HEIGHT", "COLUMNS"]
 PANEL_WIDTH, PANEL_HEIGHT = 330, 300
 #: Panels per row.
 COLUMNS = 3
-_EMPTY = {"x": np.zeros(0), "y": np.zeros(0), "text": np.zeros(0, dtype=object)}
+_EMPTY = {"x": [], "y": [], "text": []}
 
 
 def _wrap(text: str, width: int = 48) -> str:
@@ -35,8 +35,10 @@ def _wrap(text: str, width: int = 48) -> str:
 
 
 def _data(layer) -> dict:
-    return {"x": np.asarray(layer.x, dtype=float), "y": np.asarray(layer.y, dtype=float),
-            "text": np.asarray(layer.text, dtype=object)}
+    # Plain lists, not numpy arrays: a layer has a handful of points (the power curve a few dozen),
+    # and every numpy column would travel to the browser as a binary buffer of its own, two comm
+    # messages each, where lists ride inside the one patch message.
+    return {"x": [float(v) for v in layer.x], "y": [float(v) for v in layer.y], "text": list(layer.text)}
 
 
 #: Relative difference below which a coordinate counts as unchanged: the solver's rounding moves
@@ -134,7 +136,7 @@ class _ChainPanel:
         self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None, tools="",
                              x_range=FactorRange(factors=[]), y_range=Range1d(0, 1), name="ampplan-chain-panel")
         self.figure.title.text_font_size = "9pt"
-        self.sources = {name: ColumnDataSource(data={"x": [], "y": np.zeros(0), "text": []},
+        self.sources = {name: ColumnDataSource(data={"x": [], "y": [], "text": []},
                                                name=f"ampplan-chain-{name}")
                         for name in ("available", "demanded")}
         bars = [self.figure.vbar(x="x", top="y", width=0.8, source=self.sources["available"],
@@ -154,7 +156,7 @@ class _ChainPanel:
         _set(self.figure.x_range, factors=[(sid, what) for sid in chain.sids for what in ("has", "demanded")])
         for name, layer, what in (("available", have, "has"), ("demanded", need, "demanded")):
             _put(self.sources[name], {"x": [(sid, what) for sid in chain.sids],
-                                      "y": np.asarray(layer.y, dtype=float),
+                                      "y": [float(v) for v in layer.y],
                                       "text": list(layer.text)})
         top = max([*have.y, *need.y, 1e-3]) * 1.25
         _set(self.figure.y_range, **dict(zip(("start", "end"),

@@ -29,6 +29,10 @@ class LivePlan(ObservablePlan):
             view = make()
             self._views[key] = view
             self.observe(view.refresh, kind="change")
+            if key == "canvas":
+                # The canvas is told first: its data is what the designer watches while a slider
+                # moves, and the browser applies messages in the order they were sent.
+                self._observers.insert(0, self._observers.pop())
         return view
 
     def editor(self, sid: str = "plan"):

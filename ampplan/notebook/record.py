@@ -25,7 +25,7 @@ __all__ = ["StaticRecord", "in_widget_event", "STATIC_CLASS", "DEFER_SECONDS"]
 #: CSS class of the static record's HTML (browser tests use it to tell the record from the views).
 STATIC_CLASS = "ampplan-static"
 #: How long a refresh from a widget event waits for the next event before drawing, seconds.
-DEFER_SECONDS = 0.4
+DEFER_SECONDS = 1.0
 
 
 def _shell():

@@ -221,8 +221,7 @@ class CanvasView(_View):
     """
 
     def __init__(self, live):
-        from jupyter_bokeh import BokehModel
-
+        from .bokehwidget import BatchedBokehModel
         from .canvas import Canvas
         self.live = live
         self.canvas = Canvas()
@@ -230,8 +229,9 @@ class CanvasView(_View):
         self.note = widgets.HTML("")
         self.note.add_class("ampplan-canvas-note")
         self._planes = None
+        self.plot = None
         self.refresh()
-        self.plot = BokehModel(self.canvas.layout)
+        self.plot = BatchedBokehModel(self.canvas.layout)
         self.plot.add_class("ampplan-canvas-plot")
         super().__init__(children=[self.status, self.note, self.plot])
         self.add_class("ampplan-canvas")
@@ -249,7 +249,12 @@ class CanvasView(_View):
             return
         try:
             self._planes = plan_planes(live.result, live.plan)
-            self.canvas.update(self._planes, stale=not live.result_is_current)
+            # Every change of this edit reaches BokehJS as one message, applied in one step.
+            if self.plot is None:
+                self.canvas.update(self._planes, stale=not live.result_is_current)
+            else:
+                with self.plot.batch():
+                    self.canvas.update(self._planes, stale=not live.result_is_current)
         except Exception as exc:
             # Keep the last good picture, greyed, and say why where the designer looks.
             self.canvas.grey(f"the canvas could not be redrawn: {type(exc).__name__}")
