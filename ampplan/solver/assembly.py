@@ -27,7 +27,7 @@ from ..devices import PARAMETERS as DEVICE_PARAMETERS
 from ..errors import InvalidValueError, UnknownNameError
 from ..validation import check_number, check_samples
 
-__all__ = ["Layout", "Parameters", "layout_of", "take_samples"]
+__all__ = ["Layout", "Parameters", "Scatter", "layout_of", "take_samples"]
 
 _LAYOUTS: "weakref.WeakKeyDictionary[Circuit, tuple[int, Layout]]" = weakref.WeakKeyDictionary()
 
@@ -156,40 +156,43 @@ class Layout:
         structure, resistors, volts, amps = self._patterns(reduced)
         s_count = params.size
         n = structure.shape[0]
-        # Every stamp for every sample at once: values (S, elements) times stamp patterns
-        # (elements, n·n) replace loops over elements and samples.
-        matrix = (params.conductance @ resistors).reshape(s_count, n, n)
-        matrix += structure
+        # Every stamp for every sample at once, summed into place by index. No matrix product: a
+        # product of (S, elements) values by (elements, n·n) patterns would wake the BLAS library's
+        # threads (which fight the solver for the cores) and hold an elements × n² pattern array.
+        matrix = np.empty((s_count, n * n))
+        matrix[:] = structure.reshape(1, n * n)
+        resistors(params.conductance, out=matrix)
+        matrix = matrix.reshape(s_count, n, n)
         if np.any(ladder_conductance):
             diag = np.arange(self.n_nodes)
             matrix[:, diag, diag] += np.reshape(ladder_conductance, (-1, 1))
         scale = np.reshape(np.asarray(source_scale, dtype=float), (-1, 1))
-        rhs = (params.voltage * scale) @ volts + (params.current * scale) @ amps
+        rhs = np.zeros((s_count, n))
+        volts(params.voltage * scale, out=rhs)
+        amps(params.current * scale, out=rhs)
         return matrix, rhs
 
     def _patterns(self, reduced: bool):
-        """Stamp patterns over the kept unknowns (cached): structure, resistors, V and I sources."""
+        """Stamp patterns over the kept unknowns (cached): the structure, and scatters of the
+        resistor conductances, source voltages and source currents into place."""
         if reduced not in self._pattern_cache:
             n_full = self.size + 1
             keep = (np.concatenate([np.arange(self.n_nodes + self.n_vs), [self.size]]) if reduced
                     else np.arange(n_full))
             n = keep.size
-            resistors = np.zeros((len(self.resistors), n_full, n_full))
-            for k, (a, b) in enumerate(zip(self.r_a, self.r_b)):
-                resistors[k, a, a] += 1.0
-                resistors[k, b, b] += 1.0
-                resistors[k, a, b] -= 1.0
-                resistors[k, b, a] -= 1.0
-            volts = np.zeros((self.n_vs, n_full))
-            volts[np.arange(self.n_vs), self.vs_row] = 1.0
-            amps = np.zeros((len(self.current_sources), n_full))
-            for k, (f, t) in enumerate(zip(self.cs_from, self.cs_to)):
-                amps[k, f] -= 1.0
-                amps[k, t] += 1.0
-            self._pattern_cache[reduced] = (
-                self.structure[np.ix_(keep, keep)],
-                resistors[:, keep][:, :, keep].reshape(len(self.resistors), n * n),
-                volts[:, keep], amps[:, keep])
+            at = np.full(n_full, -1, dtype=np.intp)
+            at[keep] = np.arange(n)          # full index -> kept index
+            r_a, r_b = at[self.r_a], at[self.r_b]
+            n_r = len(self.resistors)
+            # Conductance k lands at (a, a) and (b, b) with +1, at (a, b) and (b, a) with -1.
+            resistors = Scatter(np.concatenate([r_a * n + r_a, r_b * n + r_b, r_a * n + r_b, r_b * n + r_a]),
+                                np.tile(np.arange(n_r), 4), np.repeat([1.0, 1.0, -1.0, -1.0], n_r))
+            volts = Scatter(at[self.vs_row], np.arange(self.n_vs), np.ones(self.n_vs))
+            n_i = len(self.current_sources)
+            # A current source moves -I to its from node's right-hand side and +I to its to node's.
+            amps = Scatter(np.concatenate([at[self.cs_from], at[self.cs_to]]), np.tile(np.arange(n_i), 2),
+                           np.repeat([-1.0, 1.0], n_i))
+            self._pattern_cache[reduced] = (self.structure[np.ix_(keep, keep)], resistors, volts, amps)
         return self._pattern_cache[reduced]
 
     # -- parameters ---------------------------------------------------------------------------
@@ -334,6 +337,40 @@ class Layout:
                 f"{at_temperature[pname][k, j]:.4g} V{at}, from {pname} = {device[pname][k, j]:g} V at 25 °C "
                 f"moving {device['vbe_temperature_coefficient'][k, j]:g} V/K; an on-voltage must stay positive: "
                 "raise it, or bring the temperature coefficient or the temperature back")
+
+
+class Scatter:
+    """Adds weighted columns of an (S, K) value array into fixed positions of an (S, size) array.
+
+    Value column ``source[k]`` times ``weight[k]`` lands at ``position[k]``; positions may repeat
+    (their terms add up). One gather, one ``np.add.reduceat`` and one indexed add per call, the
+    same for any number of samples, and no matrix product (so no BLAS threads). Each sample's sums
+    are formed from its own values only, so a sample's figures never depend on its batch.
+
+    Parameters
+    ----------
+    position : array_like of int, shape (T,)
+        Flat position in a row of ``out`` of each term.
+    source : array_like of int, shape (T,)
+        Column of ``values`` each term reads.
+    weight : array_like of float, shape (T,)
+    """
+
+    def __init__(self, position, source, weight):
+        position = np.asarray(position, dtype=np.intp)
+        order = np.argsort(position, kind="stable")
+        position = position[order]
+        self.source = np.asarray(source, dtype=np.intp)[order]
+        self.weight = np.asarray(weight, dtype=float)[order]
+        self.starts = np.flatnonzero(np.r_[True, position[1:] != position[:-1]]) if position.size else position
+        self.targets = position[self.starts] if position.size else position
+
+    def __call__(self, values: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """Add the terms of ``values`` (S, K) into ``out`` (S, size), in place; returns ``out``."""
+        if self.source.size:
+            terms = values[:, self.source] * self.weight
+            out[:, self.targets] += np.add.reduceat(terms, self.starts, axis=1)
+        return out
 
 
 def take_samples(params, rows, device: bool = True):
