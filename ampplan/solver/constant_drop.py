@@ -12,7 +12,8 @@ reverse-active    V_BC = V_BC(on), I_C = -(β_R + 1)·I_B       I_B > 0, V_CE <=
 ================  ==========================================  ===================================
 
 With ``active_edge="vcb-zero"`` forward-active ends at V_CB = 0 instead, and saturation then holds
-V_CB = 0 (V_CE = V_BE(on)), so the two regions still meet without a gap.
+V_CB = 0 (V_CE = V_BE(on)), so the two regions still meet without a gap. The checks come from
+the check table both models share (:mod:`.regions`), as do the region codes.
 
 The search (the same per sample, whether alone or in a batch, so a batch sample always equals
 its single solve):
@@ -48,6 +49,7 @@ import itertools
 
 import numpy as np
 
+from . import regions as rg
 from .linear import solve_batch
 
 #: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
@@ -66,7 +68,8 @@ MAX_MATRIX_BYTES = 64 * 2**20
 #: processed in blocks of this size, so memory stays flat however large the batch.
 WORK_BYTES = 16 * 2**20
 
-CUTOFF, ACTIVE, SATURATION, REVERSE = 0, 1, 2, 3
+# Region codes and the check table are shared with Ebers–Moll (regions.py).
+CUTOFF, ACTIVE, SATURATION, REVERSE = rg.CUTOFF, rg.ACTIVE, rg.SATURATION, rg.REVERSE
 
 
 def check_size(layout) -> None:
@@ -116,13 +119,13 @@ class RegionProblem:
         # The voltage at which forward-active meets saturation (NPN frame V_CE).
         self.edge = dev["vbe_on"] if active_edge == "vcb-zero" else dev["vce_sat"]
         self.active_edge = active_edge
+        self.table = rg.table("constant-drop", active_edge)
         self.matrix, self.rhs = layout.assemble(params)
         # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
         self.ports = np.stack([layout.q_b, layout.q_c, layout.q_e, layout.q_ib, layout.q_ic], axis=1)
         # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
         # alternatives come back to the same few samples many times.
         self._references: dict = {}
-        self._names = None
 
     def solve(self, samples, regions):
         """Solve the linear equations of assignments ``regions`` for samples ``samples``, directly.
@@ -289,35 +292,24 @@ class RegionProblem:
         i_c = x[:, lay.q_ic]
         beta = self.dev["beta"][samples]
         zero = np.zeros_like(i_b)
-        # Quantities and limits the table below picks from, stacked on a last axis.
+        # The quantity and limit slots of the shared check table (regions.QUANTITIES, LIMITS).
         quantities = np.stack([v_be, v_bc, v_be - v_bc, -v_bc, i_b, i_c], axis=-1)
         bounds = np.stack([self.vbe_on[samples], self.vbc_on[samples], self.edge[samples], zero, beta * i_b,
                            -self.dev["vce_sat"][samples]], axis=-1)
         reg = regions.astype(np.intp)
-        edge_slot = 1 if self.active_edge == "vcb-zero" else 0
-        q_idx = _QUANTITY[edge_slot][reg]
-        values = np.take_along_axis(quantities, q_idx, axis=2)
-        l_idx = _LIMIT[edge_slot][reg]
-        limits = np.take_along_axis(bounds, l_idx, axis=2)
-        direction = _DIRECTION[reg]
-        margins = np.where(direction > 0, values - limits, limits - values)
+        values, limits, margins = self.table.evaluate(quantities, bounds, reg)
         # Rounding tolerance: relative to the largest voltage and the largest current in the answer.
         n_nodes = lay.n_nodes
         with np.errstate(invalid="ignore"):
             v_scale = np.max(np.abs(x[:, :n_nodes]), axis=1, initial=1.0)
             i_scale = np.max(np.abs(x[:, n_nodes:lay.size]), axis=1, initial=0.0)
-        tol = np.where(_IS_CURRENT[reg], (1e-9 * i_scale + 1e-18)[:, None, None], (1e-9 * v_scale)[:, None, None])
+        tol = np.where(self.table.is_current[reg], (1e-9 * i_scale + 1e-18)[:, None, None], (1e-9 * v_scale)[:, None, None])
         holds = margins >= -tol
         return values, limits, margins, holds
 
     def check_names(self, regions):
         """Names of the checks of ``regions`` (K, N), as a str array (K, N, 2)."""
-        if self._names is None:
-            npn = self.layout.sign > 0
-            edge_slot = 1 if self.active_edge == "vcb-zero" else 0
-            # Per transistor, the names of every region's checks in its own polarity's terms (N, 4, 2).
-            self._names = np.where(npn[:, None, None], _NAMES_NPN[edge_slot][None], _NAMES_PNP[edge_slot][None])
-        return self._names[np.arange(regions.shape[1]), regions.astype(np.intp)]
+        return self.table.check_names(regions, self.layout.sign)
 
     def consistent(self, samples, regions, x, ok, score: bool = True):
         """True where the solve succeeded and every check of every transistor holds; a violation
@@ -348,26 +340,6 @@ class RegionProblem:
         new = np.where((regions == REVERSE) & first_fail, CUTOFF, new)
         new = np.where((regions == REVERSE) & ~first_fail & second_fail, SATURATION, new)
         return new
-
-
-# The check table: for each region (row) its two checks (columns). Quantity indices into
-# (v_be, v_bc, v_ce, v_cb, i_b, i_c), limit indices into (V_BE(on), V_BC(on), edge, 0, β·I_B,
-# -V_CE(sat)); direction +1 wants value above limit, -1 below. The first table of each pair is for
-# active_edge="vce-sat", the second for "vcb-zero".
-_QUANTITY = (np.array([[0, 1], [4, 2], [4, 5], [4, 2]]), np.array([[0, 1], [4, 3], [4, 5], [4, 2]]))
-_LIMIT = (np.array([[0, 1], [3, 2], [3, 4], [3, 5]]), np.array([[0, 1], [3, 3], [3, 4], [3, 5]]))
-_DIRECTION = np.array([[-1, -1], [1, 1], [1, -1], [1, -1]])
-_IS_CURRENT = np.array([[False, False], [True, False], [True, True], [True, False]])
-_NAMES_NPN = tuple(np.array(t, dtype=str) for t in (
-    [["V_BE < V_BE(on)", "V_BC < V_BC(on)"], ["I_B > 0", "V_CE >= V_CE(sat)"],
-     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_CE <= -V_CE(sat)"]],
-    [["V_BE < V_BE(on)", "V_BC < V_BC(on)"], ["I_B > 0", "V_CB >= 0"],
-     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_CE <= -V_CE(sat)"]]))
-_NAMES_PNP = tuple(np.array(t, dtype=str) for t in (
-    [["V_EB < V_EB(on)", "V_CB < V_CB(on)"], ["I_B > 0", "V_EC >= V_EC(sat)"],
-     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_EC <= -V_EC(sat)"]],
-    [["V_EB < V_EB(on)", "V_CB < V_CB(on)"], ["I_B > 0", "V_BC >= 0"],
-     ["I_B > 0", "I_C < beta*I_B"], ["I_B > 0", "V_EC <= -V_EC(sat)"]]))
 
 
 @functools.lru_cache(maxsize=None)
