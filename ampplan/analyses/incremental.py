@@ -26,9 +26,10 @@ import numpy as np
 
 from ..circuit import GROUND, Bjt, Capacitor, CurrentSource, Resistor, UnionFind, VoltageSource
 from ..devices import scaled_to_temperature, thermal_voltage
-from ..solver.assembly import layout_of
+from ..solver.assembly import Scatter, layout_of
 from ..solver.ebers_moll import device_currents
 from ..solver.linear import solve_batch
+from ..solver.sparse import Elimination
 
 __all__ = ["Variant", "IncrementalSystem", "TransistorModels", "transistor_models"]
 
@@ -225,73 +226,44 @@ class IncrementalSystem:
             stamps.append(np.array([(v, *t) for t in st if t[0] < size and t[1] < size]).reshape(-1, 5))
             rhs_stamps.append(np.array([(v, *t) for t in rh if t[0] < size]).reshape(-1, 4))
         self.vanished = vanished
-        self._stamps = stamps
-        self._matrix_plan = self._scatter_plan(np.concatenate(stamps), size * size,
-                                               lambda a: a[:, 1] * size + a[:, 2])
-        self._rhs_plan = self._scatter_plan(np.concatenate(rhs_stamps), size, lambda a: a[:, 1])
-        self._base_plan = self._scatter_plan(stamps[0], size * size, lambda a: a[:, 1] * size + a[:, 2])
-        self._edit_plans = None
+        every = np.concatenate(stamps)
+        variant, row, col = (every[:, k].astype(np.intp) for k in range(3))
+        self._matrix_plan = Scatter(variant * size * size + row * size + col, every[:, 3], every[:, 4])
+        rhs_every = np.concatenate(rhs_stamps)
+        self._rhs_plan = Scatter(rhs_every[:, 0].astype(np.intp) * size + rhs_every[:, 1].astype(np.intp),
+                                 rhs_every[:, 2], rhs_every[:, 3])
+        self._stamp_table = every
+        self._sparse = None
 
-    @property
-    def _edits(self):
-        """Each variant as edits of the base (built when a batch first needs them)."""
-        if self._edit_plans is None:
-            self._edit_plans = [self._edit_plan(self._stamps[0], st) for st in self._stamps[1:]]
-        return self._edit_plans
-
-    @staticmethod
-    def _scatter_plan(stamps, per_variant, position):
-        """Sorted stamp positions and value columns for a scatter by ``np.add.reduceat``."""
-        flat = (stamps[:, 0].astype(np.intp) * per_variant + position(stamps).astype(np.intp))
-        order = np.argsort(flat, kind="stable")
-        flat = flat[order]
-        starts = np.flatnonzero(np.r_[True, flat[1:] != flat[:-1]]) if flat.size else np.zeros(0, dtype=np.intp)
-        return flat[starts], starts, stamps[order, -2].astype(np.intp), stamps[order, -1]
-
-    def _edit_plan(self, base, variant):
-        """How a variant's matrix differs from the base (variant 0) one: rows R and columns C that
-        cover every differing entry, and scatter plans for the difference in those rows (R x n) and
-        in those columns outside R (n x C). The variant is then M0 + E_R·A + B·E_Cᵀ."""
-        n = self.size
-        entries = {}
-        for sign, st in ((-1.0, base), (1.0, variant)):
-            for _, r, c, col, coef in st:
-                entries.setdefault((int(r), int(c)), []).append((int(col), sign * coef))
-
-        def net(terms):
-            total = {}
-            for col, coef in terms:
-                total[col] = total.get(col, 0.0) + coef
-            return {k: v for k, v in total.items() if v != 0.0}
-
-        differ = {pos for pos, terms in entries.items() if net(terms)}
-        rows, cols = [], []
-        left = set(differ)
-        while left:
-            # Greedy cover: the row or column holding most of what is left.
-            row_count, col_count = {}, {}
-            for r, c in left:
-                row_count[r] = row_count.get(r, 0) + 1
-                col_count[c] = col_count.get(c, 0) + 1
-            best_row = max(row_count, key=row_count.get)
-            best_col = max(col_count, key=col_count.get)
-            if row_count[best_row] >= col_count[best_col]:
-                rows.append(best_row)
-                left = {p for p in left if p[0] != best_row}
-            else:
-                cols.append(best_col)
-                left = {p for p in left if p[1] != best_col}
-        row_at = {r: k for k, r in enumerate(rows)}
-        col_at = {c: k for k, c in enumerate(cols)}
-        in_rows, in_cols = [], []
-        for (r, c), terms in entries.items():
-            for col, coef in terms:
-                if r in row_at:
-                    in_rows.append((0, row_at[r] * n + c, col, coef))
-                elif c in col_at:
-                    in_cols.append((0, r * len(cols) + col_at[c], col, coef))
-        plan = lambda a: self._scatter_plan(np.array(a, dtype=float).reshape(-1, 4), 0, lambda x: x[:, 1])  # noqa: E731
-        return np.array(rows, dtype=np.intp), np.array(cols, dtype=np.intp), plan(in_rows), plan(in_cols)
+    def _sparse_plan(self):
+        """The variants as one block-diagonal sparse system (built when a batch first needs it):
+        the :class:`~ampplan.solver.sparse.Elimination` and the scatter of the value table into its
+        entries. The pivots are chosen on typical values that depend on the topology only (every
+        resistor 1 kΩ, every transistor forward-active at 1 mA with β = 100 and V_A = 100 V), so
+        the answers never depend on which values came first."""
+        if self._sparse is None:
+            every = self._stamp_table
+            n, n_var = self.size, len(self.variants)
+            total = n * n_var
+            rows = every[:, 0].astype(np.intp) * n + every[:, 1].astype(np.intp)
+            cols = every[:, 0].astype(np.intp) * n + every[:, 2].astype(np.intp)
+            entries, entry_of = np.unique(rows * total + cols, return_inverse=True)
+            # Terms that read the table's constant column (column 0, always 1) are summed once here.
+            constant = every[:, 3] == 0
+            fixed = np.zeros(entries.size)
+            np.add.at(fixed, entry_of[constant], every[constant, 4])
+            values_plan = (fixed[:, None], Scatter(entry_of[~constant], every[~constant, 3], every[~constant, 4]))
+            n_q = self.layout.n_bjt
+            g_m, g_o = 1e-3 / 0.025, 1e-3 / 100.0
+            g = np.zeros((1, n_q, 2, 2))
+            g[..., 0, 0], g[..., 1, 0], g[..., 1, 1] = g_m / 100.0, g_m + g_o, -g_o
+            typical = self._values(np.full((1, self.n_r), 1e-3),
+                                   TransistorModels(g, np.zeros((1, n_q), dtype=bool), np.full((1, n_q), 100.0)),
+                                   self.layout.sign)
+            representative = values_plan[1].last(typical.T, fixed[:, None].copy())[:, 0]
+            elimination = Elimination(total, entries // total, entries % total, representative, block=n)
+            self._sparse = (elimination, values_plan)
+        return self._sparse
 
     def _values(self, conductance, models: TransistorModels, signs) -> np.ndarray:
         """The value table (S, n_values) the stamps read: 1, conductances, per-transistor terms."""
@@ -318,24 +290,17 @@ class IncrementalSystem:
         table[:, 1 + self.n_r:] = per.reshape(s_count, -1)
         return table
 
-    @staticmethod
-    def _scatter(table, plan, total):
-        positions, starts, columns, coefficients = plan
-        out = np.zeros((table.shape[0], total))
-        if positions.size:
-            out[:, positions] = np.add.reduceat(table[:, columns] * coefficients, starts, axis=1)
-        return out
-
     def solve(self, conductance, models: TransistorModels, port_beta=None, shared: bool = True) -> np.ndarray:
         """Solve every variant for every sample.
 
-        One factorisation per sample: the base variant's matrix M0 is inverted once, and every
-        other variant, M0 + E_R·A + B·E_Cᵀ (a few rows and columns edited, see :meth:`_edit_plan`),
-        is solved from it by the Sherman–Morrison–Woodbury identity (Golub & Van Loan, *Matrix
-        Computations*, the section on updating matrix factorisations, from memory), followed by
-        one step of iterative refinement. Samples are taken in blocks of :data:`BLOCK`, so memory
-        stays bounded; samples whose base matrix is singular, and a single solve
-        (``shared=False``), are solved variant by variant.
+        A batch (``shared=True``) solves all variants of all samples as one block-diagonal sparse
+        system in a fixed pivot order (:class:`ampplan.solver.sparse.Elimination`, planned once
+        per topology), every step one numpy operation over the samples of a block of
+        :data:`BLOCK`; a sample that the fixed pivots do not suit (a held transistor zeroes a pivot,
+        say) fails the elimination's own backward-error check and is solved densely instead, as
+        is a single solve (``shared=False``): each variant's matrix on its own, in one batched
+        LAPACK call. Either way a sample's answer does not depend on the other samples in its
+        batch, bit for bit.
 
         Parameters
         ----------
@@ -345,9 +310,7 @@ class IncrementalSystem:
         port_beta : ndarray, shape (S, N), optional
             β giving I_B = 1/β of a port excitation (default ``models.beta_ac``).
         shared : bool
-            Share one factorisation per sample (a batch). False solves each variant's matrix on
-            its own, which is cheaper for a single solve. Either way a sample's answer does not
-            depend on the other samples in its batch, bit for bit.
+            Solve the batch through the planned sparse elimination (True) or every matrix densely.
 
         Returns
         -------
@@ -360,96 +323,36 @@ class IncrementalSystem:
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         x = np.empty((s_count, n_var, n))
         for at in range(0, s_count, BLOCK):
-            x[at:at + BLOCK] = self._solve_block(table[at:at + BLOCK], shared)
+            part = table[at:at + BLOCK]
+            x[at:at + BLOCK] = self._solve_sparse(part) if shared else self._solve_dense(part)
         for v, gone in enumerate(self.vanished):
             if gone:
                 x[:, v, gone] = np.nan
         return x
 
-    def _solve_block(self, table, shared):
+    def _solve_dense(self, table):
+        """Every variant's matrix on its own, in one batched dense solve."""
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
-        rhs = self._scatter(table, self._rhs_plan, n_var * n).reshape(s_count, n_var, n)
-        if not shared:
-            # Every variant's matrix on its own, all in one batched solve (cheaper than the
-            # updates below when there is no factorisation to share).
-            matrix = self._scatter(table, self._matrix_plan, n_var * n * n).reshape(s_count * n_var, n, n)
-            xs, _ = solve_batch(matrix, rhs.reshape(s_count * n_var, n))
-            return xs.reshape(s_count, n_var, n)
-        base = self._scatter(table, self._base_plan, n * n).reshape(s_count, n, n)
-        inverse, ok = _inverse(base)
-        x = np.full((s_count, n_var, n), np.nan)
-        good = np.flatnonzero(ok)
-        if good.size:
-            m0, m_inv, t = base[good], inverse[good], table[good]
-            solve_base = lambda r: _mv(m_inv, r)  # noqa: E731
-            x[good, 0] = _refined(solve_base, lambda y: _mv(m0, y), rhs[good, 0])
-            for v, (rows, cols, row_plan, col_plan) in enumerate(self._edits, start=1):
-                if rows.size + cols.size == 0:
-                    x[good, v] = _refined(solve_base, lambda y: _mv(m0, y), rhs[good, v])
-                    continue
-                a = self._scatter(t, row_plan, rows.size * n).reshape(t.shape[0], rows.size, n)
-                b = self._scatter(t, col_plan, n * cols.size).reshape(t.shape[0], n, cols.size)
-                z = np.concatenate([m_inv[:, :, rows], m_inv @ b], axis=2)      # M0⁻¹·U
-                wz = np.concatenate([a @ z, z[:, cols, :]], axis=1)              # W·M0⁻¹·U
-                cap_inv, cap_ok = _inverse(wz + np.eye(rows.size + cols.size))
+        rhs = self._rhs_plan(table, np.zeros((s_count, n_var * n))).reshape(s_count * n_var, n)
+        matrix = self._matrix_plan(table, np.zeros((s_count, n_var * n * n))).reshape(s_count * n_var, n, n)
+        xs, _ = solve_batch(matrix, rhs)
+        return xs.reshape(s_count, n_var, n)
 
-                def apply(r, m_inv=m_inv, a=a, z=z, cols=cols, cap_inv=cap_inv):
-                    y = _mv(m_inv, r)
-                    wy = np.concatenate([_mv(a, y), y[:, cols]], axis=1)
-                    return y - _mv(z, _mv(cap_inv, wy))
-
-                def multiply(y, m0=m0, a=a, b=b, rows=rows, cols=cols):
-                    out = _mv(m0, y)
-                    out[:, rows] += _mv(a, y)
-                    return out + _mv(b, y[:, cols])
-
-                xv = _refined(apply, multiply, rhs[good, v])
-                xv[~cap_ok] = np.nan
-                x[good, v] = xv
+    def _solve_sparse(self, table):
+        """Every variant of every sample through the planned sparse elimination (dense where it fails)."""
+        elimination, values_plan = self._sparse_plan()
+        s_count, n_var, n = table.shape[0], len(self.variants), self.size
+        columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
+        fixed, varying = values_plan
+        values = varying.last(columns, np.repeat(fixed, s_count, axis=1))
+        rhs = self._rhs_plan.last(columns, np.zeros((n_var * n, s_count)))
+        solution, ok = elimination.solve(values, rhs)
+        x = solution.reshape(n_var, n, s_count).transpose(2, 0, 1).copy()
         bad = np.flatnonzero(~ok)
         if bad.size:
-            # The base system is singular here: every variant of these samples on its own.
-            matrix = self._scatter(table[bad], self._matrix_plan, n_var * n * n).reshape(bad.size * n_var, n, n)
-            xs, _ = solve_batch(matrix, rhs[bad].reshape(bad.size * n_var, n))
-            x[bad] = xs.reshape(bad.size, n_var, n)
+            x[bad] = self._solve_dense(table[bad])
         return x
 
 
-def _mv(matrix, vector):
-    """Stacked matrix-vector products: (S, m, k) @ (S, k) -> (S, m)."""
-    return (matrix @ vector[..., None])[..., 0]
-
-
 #: Samples per block of :meth:`IncrementalSystem.solve` (bounds the working arrays).
-BLOCK = 2048
-
-
-def _inverse(matrix):
-    """Inverse of each matrix of a stack and which ones are regular (NaN rows elsewhere)."""
-    try:
-        inverse = np.linalg.inv(matrix)
-        ok = np.ones(matrix.shape[0], dtype=bool)
-    except np.linalg.LinAlgError:
-        # One singular member spoils LAPACK's batched call; invert one at a time on this rare path.
-        inverse = np.full(matrix.shape, np.nan)
-        ok = np.zeros(matrix.shape[0], dtype=bool)
-        for k in range(matrix.shape[0]):
-            try:
-                inverse[k] = np.linalg.inv(matrix[k])
-                ok[k] = True
-            except np.linalg.LinAlgError:
-                pass
-    with np.errstate(all="ignore"):
-        ok &= np.all(np.isfinite(inverse), axis=(1, 2))
-        # A nearly singular member gives finite nonsense: M·M⁻¹ must be the identity.
-        error = np.abs(matrix @ np.where(ok[:, None, None], inverse, 0.0)
-                       - np.eye(matrix.shape[1])).max(axis=(1, 2), initial=0.0)
-        ok &= error <= 1e-6
-    return inverse, ok
-
-
-def _refined(apply, multiply, rhs):
-    """``apply(rhs)`` (an approximate inverse) with one step of iterative refinement against the
-    exact product ``multiply``."""
-    x = apply(rhs)
-    return x + apply(rhs - multiply(x))
+BLOCK = 512

@@ -340,36 +340,45 @@ class Layout:
 
 
 class Scatter:
-    """Adds weighted columns of an (S, K) value array into fixed positions of an (S, size) array.
+    """Adds weighted columns of a value array into fixed positions of another, for S samples.
 
-    Value column ``source[k]`` times ``weight[k]`` lands at ``position[k]``; positions may repeat
-    (their terms add up). One gather, one ``np.add.reduceat`` and one indexed add per call, the
-    same for any number of samples, and no matrix product (so no BLAS threads). Each sample's sums
-    are formed from its own values only, so a sample's figures never depend on its batch.
+    Term t adds ``values[source[t]] * weight[t]`` at ``position[t]``; positions may repeat (their
+    terms add up). The terms are sorted into passes in which every position occurs at most once,
+    so each pass is one gather, one product and one indexed add over all samples, and no matrix
+    product (so no BLAS threads). Each sample's sums are formed from its own values only, so a
+    sample's figures never depend on its batch.
 
     Parameters
     ----------
     position : array_like of int, shape (T,)
-        Flat position in a row of ``out`` of each term.
+        Position in ``out`` of each term.
     source : array_like of int, shape (T,)
-        Column of ``values`` each term reads.
+        Index in ``values`` each term reads.
     weight : array_like of float, shape (T,)
     """
 
     def __init__(self, position, source, weight):
         position = np.asarray(position, dtype=np.intp)
+        source = np.asarray(source, dtype=np.intp)
+        weight = np.asarray(weight, dtype=float)
         order = np.argsort(position, kind="stable")
-        position = position[order]
-        self.source = np.asarray(source, dtype=np.intp)[order]
-        self.weight = np.asarray(weight, dtype=float)[order]
-        self.starts = np.flatnonzero(np.r_[True, position[1:] != position[:-1]]) if position.size else position
-        self.targets = position[self.starts] if position.size else position
+        position, source, weight = position[order], source[order], weight[order]
+        starts = np.flatnonzero(np.r_[True, position[1:] != position[:-1]]) if position.size else position
+        rank = np.arange(position.size) - np.repeat(starts, np.diff(np.r_[starts, position.size]))
+        self.passes = [(position[rank == k], source[rank == k], weight[rank == k])
+                       for k in range(int(rank.max(initial=-1)) + 1)]
+        self.targets = position[starts] if position.size else position
 
     def __call__(self, values: np.ndarray, out: np.ndarray) -> np.ndarray:
-        """Add the terms of ``values`` (S, K) into ``out`` (S, size), in place; returns ``out``."""
-        if self.source.size:
-            terms = values[:, self.source] * self.weight
-            out[:, self.targets] += np.add.reduceat(terms, self.starts, axis=1)
+        """Add the terms of ``values`` (S, K) into ``out`` (S, size), in place (samples first)."""
+        for position, source, weight in self.passes:
+            out[:, position] += values[:, source] * weight
+        return out
+
+    def last(self, values: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """The same with the samples last: ``values`` (K, S) into ``out`` (size, S), in place."""
+        for position, source, weight in self.passes:
+            out[position] += values[source] * weight[:, None]
         return out
 
 

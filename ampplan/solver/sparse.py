@@ -1,0 +1,273 @@
+"""Sparse LU of many matrices that share one sparsity pattern, in one fixed pivot order.
+
+A batch of circuit equations (tolerance samples, sweep points, the variants of the incremental
+systems) is many small sparse matrices with the same pattern. LAPACK solves them one dense
+matrix at a time; here the elimination is planned once per pattern and then run on every sample
+at once, with the samples on the last axis, so each step of the elimination is one vectorised
+numpy operation over all samples (no matrix products, so no BLAS threads either).
+
+The plan (:class:`Elimination`) is Gaussian elimination with threshold pivoting in the Markowitz
+order (Duff, Erisman & Reid, *Direct Methods for Sparse Matrices*, the chapters on pivoting for
+sparsity and stability, from memory): at each step, among the entries at least :data:`THRESHOLD`
+times the largest of their column, the one whose row and column hold the fewest other entries.
+It is chosen on representative values given once; every sample then uses the same pivots. Steps
+that touch disjoint entries are grouped into levels, so a level is a handful of numpy calls.
+
+The error bound of such an elimination holds while its multipliers stay bounded (Higham,
+*Accuracy and Stability of Numerical Algorithms*, the chapter on LU factorisation and growth
+factors, from memory). Every sample's multipliers are checked against 1/:data:`RUN_THRESHOLD`:
+a sample whose planned pivot is too small for its own values (or zero), or whose answer is not
+finite, is reported as not solved, for the caller to solve densely
+(:func:`ampplan.solver.linear.solve_batch`), so the fixed order never costs accuracy. Each
+sample's arithmetic reads only its own values: its answer does not depend on the batch, bit for
+bit.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["Elimination", "THRESHOLD", "RUN_THRESHOLD"]
+
+#: A pivot must be at least this fraction of the largest entry of its column (representative values).
+THRESHOLD = 0.1
+#: In a sample, every multiplier of the elimination must be at most 1/RUN_THRESHOLD in size (the
+#: pivot at least this fraction of every entry it eliminates), else the sample is not solved here.
+RUN_THRESHOLD = 0.01
+
+
+class Elimination:
+    """A planned LU factorisation for square matrices of order ``n`` with a given pattern.
+
+    Parameters
+    ----------
+    n : int
+        Order of the matrices.
+    rows, cols : array_like of int, shape (P,)
+        Positions of the entries that may be non-zero (distinct).
+    representative : array_like of float, shape (P,)
+        Typical values of those entries; the pivots are chosen on them. An entry that is zero here
+        may still be non-zero in a sample (it is part of the pattern); it is never chosen as pivot.
+    block : int, optional
+        The matrix is block diagonal with blocks of this order (several independent systems solved
+        as one): each block is planned on its own and their steps run side by side.
+
+    Attributes
+    ----------
+    singular : bool
+        True when the representative matrix has no pivot left at some step (structurally or
+        numerically singular): :meth:`solve` then reports every sample as not solved.
+    """
+
+    def __init__(self, n: int, rows, cols, representative, block: int | None = None):
+        self.n = n
+        rows = np.asarray(rows, dtype=np.intp)
+        cols = np.asarray(cols, dtype=np.intp)
+        representative = np.asarray(representative, dtype=float)
+        self.positions = rows * n + cols
+        block = n if block is None else block
+        self.singular = False
+        steps, fill = [], []
+        for first in range(0, n, block):
+            inside = (rows >= first) & (rows < first + block)
+            if np.any((cols[inside] < first) | (cols[inside] >= first + block)):
+                raise ValueError("an entry lies outside its diagonal block")
+            local_steps, local_fill = self._plan(block, rows[inside] - first, cols[inside] - first,
+                                                 representative[inside])
+            steps += [(p + first, q + first, below + first, right + first) for p, q, below, right in local_steps]
+            fill.append((local_fill // block + first) * n + local_fill % block + first)
+        self.steps = steps
+        if self.singular:
+            self.n_slots = 0
+            return
+        extra = np.setdiff1d(np.concatenate(fill), self.positions)
+        keys = np.concatenate([self.positions, extra])
+        self.n_slots = keys.size
+        order = np.argsort(keys)
+        self._keys, self._slots = keys[order], order
+        self._schedule(steps)
+
+    def _slot(self, i, j):
+        key = np.asarray(i, dtype=np.intp) * self.n + np.asarray(j, dtype=np.intp)
+        return self._slots[np.searchsorted(self._keys, key)]
+
+    # -- planning ---------------------------------------------------------------------------------
+    def _plan(self, n, rows, cols, representative):
+        """Pivots of one block: (p, q, rows below, columns right) per step, and the filled pattern
+        (flat positions in the block)."""
+        dense = np.zeros((n, n))
+        dense[rows, cols] = representative
+        pattern = np.zeros((n, n), dtype=bool)
+        pattern[rows, cols] = True
+        free_r = np.ones(n, dtype=bool)
+        free_c = np.ones(n, dtype=bool)
+        steps = []
+        for _ in range(n):
+            live = pattern & free_r[:, None] & free_c[None, :]
+            size = np.abs(np.where(live, dense, 0.0))
+            col_max = size.max(axis=0)
+            ok = live & (size > 0.0) & (size >= THRESHOLD * col_max[None, :])
+            if not ok.any():
+                self.singular = True
+                break
+            row_count = live.sum(axis=1)
+            col_count = live.sum(axis=0)
+            cost = (row_count[:, None] - 1) * (col_count[None, :] - 1)
+            # Fewest fill-ins first, then the larger entry against its column, then the first position.
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ratio = np.where(ok, size / np.where(col_max > 0, col_max, 1.0)[None, :], 0.0)
+            key = np.where(ok, cost.astype(float) - ratio * 0.5, np.inf)
+            p, q = np.unravel_index(int(np.argmin(key)), key.shape)
+            below = np.flatnonzero(live[:, q] & (np.arange(n) != p))
+            right = np.flatnonzero(live[p, :] & (np.arange(n) != q))
+            if below.size and right.size:
+                factor = dense[below, q] / dense[p, q]
+                dense[np.ix_(below, right)] -= factor[:, None] * dense[p, right][None, :]
+                pattern[np.ix_(below, right)] = True
+            dense[below, q] /= dense[p, q]
+            free_r[p] = False
+            free_c[q] = False
+            steps.append((int(p), int(q), below, right))
+        return steps, np.flatnonzero(pattern.ravel())
+
+    def _schedule(self, steps):
+        """Group the factorisation and both substitutions into levels of independent steps."""
+        at = self._slot
+        # Factorisation: a step waits for the last writer of every slot it reads or writes.
+        written: dict[int, int] = {}
+        levels: list[list] = []
+        lower: dict[int, list] = {}     # row -> [(slot of l[row, q_m], p_m)]
+        for p, q, below, right in steps:
+            piv = int(at(p, q))
+            col = at(below, q)
+            row = at(p, right)
+            target = at(below[:, None], right[None, :]).ravel()
+            touched = np.concatenate([[piv], col, row, target]).tolist()
+            level = 1 + max((written.get(s, -1) for s in touched), default=-1)
+            for s in col.tolist() + target.tolist():
+                written[s] = level
+            while len(levels) <= level:
+                levels.append([[], [], [], [], []])
+            entry = levels[level]
+            entry[0].append(col)
+            entry[1].append(np.full(col.size, piv))
+            entry[2].append(target)
+            entry[3].append(np.repeat(col, right.size))
+            entry[4].append(np.tile(row, below.size))
+            for i, c in zip(below.tolist(), col.tolist()):
+                lower.setdefault(i, []).append((c, p))
+        cat = lambda parts: np.concatenate(parts).astype(np.intp) if parts else np.zeros(0, np.intp)  # noqa: E731
+        self._factor_levels = [tuple(cat(part) for part in entry) for entry in levels]
+        self._multipliers = cat([entry[0] for entry in self._factor_levels])
+
+        # Row-oriented substitutions. Forward (L·y = b, unit diagonal): y[p_k] = b[p_k] minus
+        # l[p_k, q_m]·y[p_m] over the earlier steps m whose column held an entry in row p_k.
+        level_of_row: dict[int, int] = {}
+        grouped: list[list] = []
+        for p, _, _, _ in steps:
+            deps = lower.get(p, [])
+            level = 1 + max((level_of_row[pm] for _, pm in deps), default=-1)
+            level_of_row[p] = level
+            while len(grouped) <= level:
+                grouped.append([])
+            grouped[level].append((p, deps))
+        self._forward = [self._pack(group) for group in grouped]
+        # Backward (U·x = y), last step first: x[q_k] = (y[p_k] - u[p_k, j]·x[j] summed over the
+        # columns j of row p_k pivoted later, fill included) / u[p_k, q_k].
+        level_of_col: dict[int, int] = {}
+        grouped = []
+        for p, q, _, right in reversed(steps):
+            cols = right.tolist()
+            deps = list(zip(at(p, right).tolist(), cols)) if cols else []
+            level = 1 + max((level_of_col[j] for j in cols), default=-1)
+            level_of_col[q] = level
+            while len(grouped) <= level:
+                grouped.append([])
+            grouped[level].append((q, p, int(at(p, q)), deps))
+        self._backward = []
+        for group in grouped:
+            targets, passes = self._pack([(q, deps) for q, _, _, deps in group])
+            sources = np.array([p for _, p, _, _ in group], dtype=np.intp)
+            pivots = np.array([piv for _, _, piv, _ in group], dtype=np.intp)
+            self._backward.append((targets, sources, pivots, passes))
+
+    @staticmethod
+    def _pack(group):
+        """A level of a substitution: its targets, and its terms in passes in which each target
+        occurs at most once (target, coefficient slot, source) for one indexed update per pass."""
+        targets = np.array([t for t, _ in group], dtype=np.intp)
+        passes = []
+        for k in range(max((len(deps) for _, deps in group), default=0)):
+            chosen = [(t, deps[k]) for t, deps in group if len(deps) > k]
+            passes.append((np.array([t for t, _ in chosen], dtype=np.intp),
+                           np.array([c for _, (c, _) in chosen], dtype=np.intp),
+                           np.array([src for _, (_, src) in chosen], dtype=np.intp)))
+        return targets, passes
+
+    # -- running ----------------------------------------------------------------------------------
+    def factor(self, values: np.ndarray) -> np.ndarray:
+        """LU factors of every sample.
+
+        Parameters
+        ----------
+        values : ndarray, shape (P, S)
+            The pattern's entries (in the order of ``rows``, ``cols``) for S samples.
+
+        Returns
+        -------
+        ndarray, shape (n_slots, S)
+            L (below the pivots, unit diagonal implied) and U in the planned slots.
+        """
+        s_count = values.shape[1]
+        a = np.empty((self.n_slots, s_count))
+        a[:values.shape[0]] = values
+        a[values.shape[0]:] = 0.0
+        with np.errstate(all="ignore"):
+            for col, piv, target, left, right in self._factor_levels:
+                a[col] /= a[piv]
+                if target.size:
+                    a[target] -= a[left] * a[right]
+        return a
+
+    def substitute(self, factors: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+        """x with A·x = rhs from :meth:`factor`'s factors; rhs and x of shape (n, S)."""
+        y = np.empty(rhs.shape)
+        x = np.empty(rhs.shape)
+        with np.errstate(all="ignore"):
+            for targets, passes in self._forward:
+                y[targets] = rhs[targets]
+                for target, coef, source in passes:
+                    y[target] -= factors[coef] * y[source]
+            for targets, sources, pivots, passes in self._backward:
+                x[targets] = y[sources]
+                for target, coef, source in passes:
+                    x[target] -= factors[coef] * x[source]
+                x[targets] /= factors[pivots]
+        return x
+
+    def solve(self, values: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Solve A·x = rhs for every sample.
+
+        Parameters
+        ----------
+        values : ndarray, shape (P, S)
+        rhs : ndarray, shape (n, S)
+
+        Returns
+        -------
+        x : ndarray, shape (n, S)
+        ok : ndarray of bool, shape (S,)
+            False where the answer is not finite or a multiplier of the elimination exceeds
+            1/:data:`RUN_THRESHOLD` (the planned pivot is too small for that sample's column, so
+            the error bound of the elimination no longer holds): solve those samples another way.
+        """
+        s_count = rhs.shape[1]
+        if self.singular:
+            return np.full(rhs.shape, np.nan), np.zeros(s_count, dtype=bool)
+        factors = self.factor(values)
+        with np.errstate(all="ignore"):
+            x = self.substitute(factors, rhs)
+            ok = np.all(np.isfinite(x), axis=0)
+            if self._multipliers.size:
+                ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+        return x, ok

@@ -1,0 +1,125 @@
+"""The planned sparse elimination (ampplan.solver.sparse) against numpy.linalg.solve (LAPACK's
+LU with partial pivoting) on the same matrices. Random matrices are inputs only (a seeded
+generator); the expected answers come from numpy."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from ampplan.analyses.chain import incremental_system
+from ampplan.solver.sparse import RUN_THRESHOLD, Elimination
+
+
+def _random_system(rng, n, density):
+    pattern = rng.random((n, n)) < density
+    pattern[np.arange(n), rng.permutation(n)] = True        # structurally regular
+    rows, cols = np.nonzero(pattern)
+    representative = rng.normal(size=rows.size) * np.exp(2.0 * rng.normal(size=rows.size))
+    return rows, cols, representative
+
+
+def _dense(n, rows, cols, values):
+    a = np.zeros((n, n))
+    a[rows, cols] = values
+    return a
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_solutions_equal_lapack(seed):
+    rng = np.random.default_rng(seed)
+    for _ in range(20):
+        n = int(rng.integers(1, 25))
+        rows, cols, rep = _random_system(rng, n, rng.uniform(0.05, 0.4))
+        plan = Elimination(n, rows, cols, rep)
+        values = rep[:, None] * rng.uniform(0.8, 1.25, (rows.size, 6))
+        rhs = rng.normal(size=(n, 6))
+        x, ok = plan.solve(values, rhs)
+        assert ok.all()
+        for s in range(6):
+            a = _dense(n, rows, cols, values[:, s])
+            expected = np.linalg.solve(a, rhs[:, s])
+            # Forward error within the condition number times a few rounding units.
+            bound = 1e-13 * np.linalg.cond(a) * np.max(np.abs(expected)) + 1e-300
+            assert np.max(np.abs(x[:, s] - expected)) <= bound
+
+
+def test_block_diagonal_equals_each_block_alone():
+    rng = np.random.default_rng(11)
+    block, count = 7, 4
+    parts = [_random_system(rng, block, 0.3) for _ in range(count)]
+    rows = np.concatenate([r + k * block for k, (r, _, _) in enumerate(parts)])
+    cols = np.concatenate([c + k * block for k, (_, c, _) in enumerate(parts)])
+    rep = np.concatenate([v for _, _, v in parts])
+    values = rep[:, None] * rng.uniform(0.9, 1.1, (rep.size, 3))
+    rhs = rng.normal(size=(block * count, 3))
+    x, ok = Elimination(block * count, rows, cols, rep, block=block).solve(values, rhs)
+    assert ok.all()
+    for s in range(3):
+        expected = np.linalg.solve(_dense(block * count, rows, cols, values[:, s]), rhs[:, s])
+        np.testing.assert_allclose(x[:, s], expected, rtol=1e-10, atol=1e-12 * np.max(np.abs(expected)))
+
+
+def test_a_sample_does_not_depend_on_its_batch_bit_for_bit():
+    rng = np.random.default_rng(4)
+    rows, cols, rep = _random_system(rng, 15, 0.25)
+    plan = Elimination(15, rows, cols, rep)
+    values = rep[:, None] * rng.uniform(0.8, 1.25, (rows.size, 9))
+    rhs = rng.normal(size=(15, 9))
+    together, _ = plan.solve(values, rhs)
+    for s in range(9):
+        alone, _ = plan.solve(values[:, s:s + 1], rhs[:, s:s + 1])
+        assert np.array_equal(alone[:, 0], together[:, s])
+
+
+def test_a_pivot_too_small_for_its_sample_is_reported():
+    # Full 2×2 whose representative diagonal is largest: the first position is the pivot. A sample whose
+    # pivot is zero, or so small that its multiplier exceeds 1/RUN_THRESHOLD, is not solved here;
+    # the others are.
+    plan = Elimination(2, [0, 0, 1, 1], [0, 1, 0, 1], [2.0, 1.0, 1.0, 3.0])
+    assert plan.steps[0][:2] == (0, 0)
+    small = 0.5 * RUN_THRESHOLD
+    values = np.array([[2.0, 0.0, small], [1.0, 1.0, 1.0], [1.0, 1.0, 1.0], [3.0, 3.0, 3.0]])
+    rhs = np.ones((2, 3))
+    x, ok = plan.solve(values, rhs)
+    assert ok.tolist() == [True, False, False]
+    np.testing.assert_allclose(x[:, 0], np.linalg.solve([[2.0, 1.0], [1.0, 3.0]], [1.0, 1.0]), rtol=1e-14)
+
+
+def test_a_singular_pattern_reports_every_sample():
+    plan = Elimination(3, [0, 1, 2, 0], [0, 0, 2, 2], [1.0, 2.0, 3.0, 4.0])   # column 1 is empty
+    assert plan.singular
+    x, ok = plan.solve(np.ones((4, 5)), np.ones((3, 5)))
+    assert not ok.any() and np.isnan(x).all()
+
+
+def test_an_entry_outside_its_block_is_refused():
+    with pytest.raises(ValueError, match="outside its diagonal block"):
+        Elimination(4, [0, 1, 2, 3, 0], [0, 1, 2, 3, 3], np.ones(5), block=2)
+
+
+def test_incremental_batch_equals_dense_solves(tmp_path):
+    # The plan's incremental systems solved through the planned elimination (a batch) against the
+    # same matrices solved densely by LAPACK, one per variant (numpy.linalg.solve), including
+    # samples with a saturated stage (held transistor: the planned pivot vanishes, so the dense
+    # path takes them) and a cut-off one.
+    from pathlib import Path
+
+    import ampplan
+    from ampplan.analyses.incremental import transistor_models
+    from ampplan.solver.assembly import layout_of
+    plan = ampplan.Plan.load(Path(ampplan.__file__).parent / "data" / "demo_plan.json")
+    compiled = plan.compile()
+    batch = {"s2.rc": np.array([3.9e3, 20e3, 4.7e3, 3.3e3]), "s1.device.beta": np.array([200.0, 200.0, 50.0, 400.0]),
+             "supply": np.array([12.0, 12.0, 3.0, 14.0])}
+    circuit_batch, _ = compiled.batch_keys(batch)
+    op = compiled.circuit.solve(batch=circuit_batch, temperature=compiled.temperature)
+    params = layout_of(compiled.circuit).parameters(temperature=compiled.temperature, batch=circuit_batch)
+    models = transistor_models(op, params)
+    system = incremental_system(compiled)
+    sparse = system.solve(params.conductance, models, shared=True)
+    dense = system.solve(params.conductance, models, shared=False)
+    assert np.array_equal(np.isnan(sparse), np.isnan(dense))
+    finite = np.isfinite(dense)
+    scale = np.max(np.abs(dense[finite]))
+    assert np.max(np.abs(sparse[finite] - dense[finite])) <= 1e-12 * scale
