@@ -85,3 +85,21 @@ def test_scatter_without_terms_leaves_out_alone():
     out = np.ones((3, 4))
     Scatter(np.zeros(0), np.zeros(0), np.zeros(0))(np.ones((3, 0)), out)
     assert np.array_equal(out, np.ones((3, 4)))
+
+
+def test_scatter_new_last_equals_adding_into_a_copy_of_the_base():
+    rng = np.random.default_rng(8)
+    position = rng.integers(0, 6, 30)
+    source = rng.integers(0, 4, 30)
+    weight = rng.normal(size=30)
+    values = rng.normal(size=(4, 5))             # samples last
+    base = rng.normal(size=9)                    # positions 6..8 get no term
+    scatter = Scatter(position, source, weight)
+    expected = np.repeat(base[:, None], 5, axis=1)
+    for t in range(30):
+        expected[position[t]] += values[source[t]] * weight[t]
+    np.testing.assert_allclose(scatter.new_last(values, base), expected, rtol=1e-13, atol=1e-13)
+    np.testing.assert_allclose(scatter.last(values, np.repeat(base[:, None], 5, axis=1)), expected,
+                               rtol=1e-13, atol=1e-13)
+    empty = Scatter(np.zeros(0), np.zeros(0), np.zeros(0))
+    assert np.array_equal(empty.new_last(values, base), np.repeat(base[:, None], 5, axis=1))

@@ -123,3 +123,21 @@ def test_incremental_batch_equals_dense_solves(tmp_path):
     finite = np.isfinite(dense)
     scale = np.max(np.abs(dense[finite]))
     assert np.max(np.abs(sparse[finite] - dense[finite])) <= 1e-12 * scale
+
+
+def test_the_residual_test_rejects_an_unstable_answer(monkeypatch):
+    # With the multiplier test switched off, a pivot of 1e-20 against entries of 1 gives x = (0, 1)
+    # for [[1e-20, 1], [1, 1]]·x = (1, 2), whose true answer is close to (1, 1) (numpy's): the
+    # residual test catches it, as linear.solve_batch's would.
+    from ampplan.solver import sparse
+    monkeypatch.setattr(sparse, "RUN_THRESHOLD", 1e-300)
+    plan = Elimination(2, [0, 0, 1, 1], [0, 1, 0, 1], [2.0, 1.0, 1.0, 3.0])
+    values = np.array([[2.0, 1e-20], [1.0, 1.0], [1.0, 1.0], [3.0, 1.0]])
+    rhs = np.array([[1.0, 1.0], [2.0, 2.0]])
+    x, ok = plan.solve(values, rhs)
+    assert ok.tolist() == [True, False]
+    np.testing.assert_allclose(x[:, 0], np.linalg.solve([[2.0, 1.0], [1.0, 3.0]], [1.0, 2.0]), rtol=1e-14)
+    assert np.isnan(x[:, 1]).all()
+    x, ok = plan.solve(values, rhs, check_residual=False)
+    assert ok.tolist() == [True, True]            # only the residual test saw it
+    assert np.max(np.abs(x[:, 1] - np.linalg.solve([[1e-20, 1.0], [1.0, 1.0]], [1.0, 2.0]))) > 0.5

@@ -252,7 +252,7 @@ class IncrementalSystem:
             constant = every[:, 3] == 0
             fixed = np.zeros(entries.size)
             np.add.at(fixed, entry_of[constant], every[constant, 4])
-            values_plan = (fixed[:, None], Scatter(entry_of[~constant], every[~constant, 3], every[~constant, 4]))
+            values_plan = (fixed, Scatter(entry_of[~constant], every[~constant, 3], every[~constant, 4]))
             n_q = self.layout.n_bjt
             g_m, g_o = 1e-3 / 0.025, 1e-3 / 100.0
             g = np.zeros((1, n_q, 2, 2))
@@ -260,7 +260,7 @@ class IncrementalSystem:
             typical = self._values(np.full((1, self.n_r), 1e-3),
                                    TransistorModels(g, np.zeros((1, n_q), dtype=bool), np.full((1, n_q), 100.0)),
                                    self.layout.sign)
-            representative = values_plan[1].last(typical.T, fixed[:, None].copy())[:, 0]
+            representative = values_plan[1].new_last(typical.T, fixed)[:, 0]
             elimination = Elimination(total, entries // total, entries % total, representative, block=n)
             self._sparse = (elimination, values_plan)
         return self._sparse
@@ -344,9 +344,9 @@ class IncrementalSystem:
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
         fixed, varying = values_plan
-        values = varying.last(columns, np.repeat(fixed, s_count, axis=1))
-        rhs = self._rhs_plan.last(columns, np.zeros((n_var * n, s_count)))
-        solution, ok = elimination.solve(values, rhs)
+        values = varying.new_last(columns, fixed)
+        rhs = self._rhs_plan.new_last(columns, np.zeros(n_var * n))
+        solution, ok = elimination.solve(values, rhs, check_residual=False)
         x = solution.reshape(n_var, n, s_count).transpose(2, 0, 1).copy()
         bad = np.flatnonzero(~ok)
         if bad.size:

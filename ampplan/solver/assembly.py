@@ -112,6 +112,8 @@ class Layout:
         self.structure = self._structure()
         self._pattern_cache: dict = {}
         self._parameter_cache: dict = {}
+        #: Planned sparse eliminations of the constant-drop systems, by region assignment.
+        self.region_plans: dict = {}
 
     # -- assembly -----------------------------------------------------------------------------
     def _structure(self) -> np.ndarray:
@@ -368,6 +370,7 @@ class Scatter:
         self.passes = [(position[rank == k], source[rank == k], weight[rank == k])
                        for k in range(int(rank.max(initial=-1)) + 1)]
         self.targets = position[starts] if position.size else position
+        self._untouched = None
 
     def __call__(self, values: np.ndarray, out: np.ndarray) -> np.ndarray:
         """Add the terms of ``values`` (S, K) into ``out`` (S, size), in place (samples first)."""
@@ -378,6 +381,23 @@ class Scatter:
     def last(self, values: np.ndarray, out: np.ndarray) -> np.ndarray:
         """The same with the samples last: ``values`` (K, S) into ``out`` (size, S), in place."""
         for position, source, weight in self.passes:
+            out[position] += values[source] * weight[:, None]
+        return out
+
+    def new_last(self, values: np.ndarray, base: np.ndarray) -> np.ndarray:
+        """``base`` (size,) plus the terms of ``values`` (K, S), as a new (size, S) array (samples
+        last): the first pass writes its positions outright, the rest of ``base`` is copied."""
+        out = np.empty((base.size, values.shape[1]))
+        if not self.passes:
+            out[:] = base[:, None]
+            return out
+        position, source, weight = self.passes[0]
+        if self._untouched is None or self._untouched[0] != base.size:
+            self._untouched = (base.size, np.setdiff1d(np.arange(base.size), position))
+        rest = self._untouched[1]
+        out[rest] = base[rest, None]
+        out[position] = values[source] * weight[:, None] + base[position, None]
+        for position, source, weight in self.passes[1:]:
             out[position] += values[source] * weight[:, None]
         return out
 

@@ -51,6 +51,7 @@ import numpy as np
 
 from . import regions as rg
 from .linear import solve_batch
+from .sparse import Elimination
 
 #: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
 ENUMERATION_LIMIT = 5
@@ -69,6 +70,12 @@ MAX_MATRIX_BYTES = 64 * 2**20
 WORK_BYTES = 16 * 2**20
 
 # Region codes and the check table are shared with Ebers–Moll (regions.py).
+#: Direct solves of at least this many systems of one region assignment go through the planned
+#: sparse elimination (:mod:`.sparse`); fewer, or circuits of more than SPARSE_ORDER unknowns, go
+#: to LAPACK one dense system at a time.
+SPARSE_BATCH = 64
+SPARSE_ORDER = 400
+
 CUTOFF, ACTIVE, SATURATION, REVERSE = rg.CUTOFF, rg.ACTIVE, rg.SATURATION, rg.REVERSE
 
 
@@ -142,6 +149,34 @@ class RegionProblem:
             Unknowns, ground last (0); NaN where the system is singular.
         ok : ndarray of bool, shape (K,)
         """
+        n = self.layout.size
+        count = len(samples)
+        if count < SPARSE_BATCH or n > SPARSE_ORDER:
+            return self._solve_dense(samples, regions)
+        # Systems that share an assignment share a sparsity pattern: the planned sparse elimination
+        # takes each large group at once; the stragglers go to LAPACK.
+        if np.all(regions == regions[:1]):
+            groups = [(regions[0], np.arange(count))]
+        else:
+            distinct, which = np.unique(regions, axis=0, return_inverse=True)
+            groups = [(assignment, np.flatnonzero(which.ravel() == g)) for g, assignment in enumerate(distinct)]
+        out_x = np.empty((count, n + 1))
+        out_ok = np.empty(count, dtype=bool)
+        rest = []
+        for assignment, members in groups:
+            if members.size < SPARSE_BATCH:
+                rest.append(members)
+                continue
+            x, ok = self._solve_sparse(samples[members], assignment)
+            out_x[members], out_ok[members] = x, ok
+            rest.append(members[~ok])
+        rest = np.concatenate(rest)
+        if rest.size:
+            out_x[rest], out_ok[rest] = self._solve_dense(samples[rest], regions[rest])
+        return out_x, out_ok
+
+    def _solve_dense(self, samples, regions):
+        """:meth:`solve` one dense LAPACK solve per system."""
         lay = self.layout
         n = lay.size
         out_x = np.empty((len(samples), n + 1))
@@ -155,6 +190,29 @@ class RegionProblem:
             self._stamp(matrix, rhs, smp, reg)
             x, ok = solve_batch(matrix[:, :n, :n], rhs[:, :n])
             out_x[part, :n] = x
+            out_x[part, n] = 0.0
+            out_ok[part] = ok
+        return out_x, out_ok
+
+    def _solve_sparse(self, samples, assignment):
+        """:meth:`solve` for systems of one assignment (N,), through the planned sparse
+        elimination of that assignment's pattern (:func:`_sparse_plan`); ``ok`` is False where
+        the planned pivots do not suit a sample (the caller solves those densely)."""
+        lay = self.layout
+        n = lay.size
+        positions, elimination = _sparse_plan(lay, assignment)
+        out_x = np.empty((len(samples), n + 1))
+        out_ok = np.empty(len(samples), dtype=bool)
+        chunk = max(1, WORK_BYTES // (8 * (n + 1) ** 2))
+        for start in range(0, len(samples), chunk):
+            part = slice(start, start + chunk)
+            smp = samples[part]
+            matrix = self.matrix[smp]
+            rhs = self.rhs[smp]
+            self._stamp(matrix, rhs, smp, np.broadcast_to(assignment, (smp.size, assignment.size)))
+            values = matrix.reshape(smp.size, -1)[:, positions].T
+            x, ok = elimination.solve(np.ascontiguousarray(values), np.ascontiguousarray(rhs[:, :n].T))
+            out_x[part, :n] = x.T
             out_x[part, n] = 0.0
             out_ok[part] = ok
         return out_x, out_ok
@@ -340,6 +398,28 @@ class RegionProblem:
         new = np.where((regions == REVERSE) & first_fail, CUTOFF, new)
         new = np.where((regions == REVERSE) & ~first_fail & second_fail, SATURATION, new)
         return new
+
+
+def _sparse_plan(layout, assignment):
+    """The sparse elimination of one region assignment's system, planned once per layout on the
+    circuit's own values (so the pivots depend on the circuit, never on a batch): flat positions
+    of the pattern's entries in the stamped (size + 1)² matrix, and the
+    :class:`~ampplan.solver.sparse.Elimination`.
+
+    The pattern is the nonzero entries of that matrix: every entry a stamp can touch is nonzero for
+    any valid values (conductances, β and the unit incidences never cancel), so it is every
+    sample's pattern too."""
+    key = assignment.astype(np.int8).tobytes()
+    plan = layout.region_plans.get(key)
+    if plan is None:
+        n = layout.size
+        nominal = RegionProblem(layout, layout.parameters())
+        matrix, rhs = nominal.matrix.copy(), nominal.rhs.copy()
+        nominal._stamp(matrix, rhs, np.zeros(1, dtype=np.intp), assignment[None, :])
+        rows, cols = np.nonzero(matrix[0, :n, :n])
+        plan = (rows * (n + 1) + cols, Elimination(n, rows, cols, matrix[0, rows, cols]))
+        layout.region_plans[key] = plan
+    return plan
 
 
 @functools.lru_cache(maxsize=None)

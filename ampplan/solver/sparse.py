@@ -17,7 +17,8 @@ The error bound of such an elimination holds while its multipliers stay bounded 
 *Accuracy and Stability of Numerical Algorithms*, the chapter on LU factorisation and growth
 factors, from memory). Every sample's multipliers are checked against 1/:data:`RUN_THRESHOLD`:
 a sample whose planned pivot is too small for its own values (or zero), or whose answer is not
-finite, is reported as not solved, for the caller to solve densely
+finite or fails the residual test of :func:`ampplan.solver.linear.solve_batch` (a nearly
+singular matrix), is reported as not solved, for the caller to solve densely
 (:func:`ampplan.solver.linear.solve_batch`), so the fixed order never costs accuracy. Each
 sample's arithmetic reads only its own values: its answer does not depend on the batch, bit for
 bit.
@@ -27,13 +28,18 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["Elimination", "THRESHOLD", "RUN_THRESHOLD"]
+from .assembly import Scatter
+
+__all__ = ["Elimination", "THRESHOLD", "RUN_THRESHOLD", "RESIDUAL"]
 
 #: A pivot must be at least this fraction of the largest entry of its column (representative values).
 THRESHOLD = 0.1
 #: In a sample, every multiplier of the elimination must be at most 1/RUN_THRESHOLD in size (the
 #: pivot at least this fraction of every entry it eliminates), else the sample is not solved here.
 RUN_THRESHOLD = 0.01
+#: A sample whose residual max|A·x - b| exceeds this times max|A|·max|x| + max|b| is reported as
+#: singular (the test :func:`ampplan.solver.linear.solve_batch` applies).
+RESIDUAL = 1e-8
 
 
 class Elimination:
@@ -65,6 +71,8 @@ class Elimination:
         cols = np.asarray(cols, dtype=np.intp)
         representative = np.asarray(representative, dtype=float)
         self.positions = rows * n + cols
+        self._cols = cols
+        self._rows = Scatter(rows, np.arange(rows.size), np.ones(rows.size))
         block = n if block is None else block
         self.singular = False
         steps, fill = [], []
@@ -245,21 +253,26 @@ class Elimination:
                 x[targets] /= factors[pivots]
         return x
 
-    def solve(self, values: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True
+              ) -> tuple[np.ndarray, np.ndarray]:
         """Solve A·x = rhs for every sample.
 
         Parameters
         ----------
         values : ndarray, shape (P, S)
         rhs : ndarray, shape (n, S)
+        check_residual : bool
+            Also apply the residual test (about as costly as the solve itself for large batches
+            of small systems; an exactly singular matrix is caught without it).
 
         Returns
         -------
         x : ndarray, shape (n, S)
         ok : ndarray of bool, shape (S,)
-            False where the answer is not finite or a multiplier of the elimination exceeds
+            False where the answer is not finite, a multiplier of the elimination exceeds
             1/:data:`RUN_THRESHOLD` (the planned pivot is too small for that sample's column, so
-            the error bound of the elimination no longer holds): solve those samples another way.
+            the error bound of the elimination no longer holds) or the residual exceeds
+            :data:`RESIDUAL` of the equations' scale: solve those samples another way (NaN here).
         """
         s_count = rhs.shape[1]
         if self.singular:
@@ -270,4 +283,14 @@ class Elimination:
             ok = np.all(np.isfinite(x), axis=0)
             if self._multipliers.size:
                 ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+        if check_residual:
+            with np.errstate(all="ignore"):
+                # The residual test of linear.solve_batch, so that both call the same samples singular.
+                xz = np.where(ok[None, :], x, 0.0)
+                product = self._rows.new_last(values * xz[self._cols], np.zeros(self.n))
+                residual = np.abs(product - rhs).max(axis=0)
+                scale = (np.abs(values).max(axis=0, initial=0.0) * np.abs(xz).max(axis=0, initial=0.0)
+                         + np.abs(rhs).max(axis=0, initial=0.0))
+                ok &= residual <= RESIDUAL * scale + 1e-300
+        x[:, ~ok] = np.nan
         return x, ok

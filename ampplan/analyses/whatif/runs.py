@@ -58,7 +58,7 @@ BLOCK = 8192
 #: Default samples per chunk handed to the batched solver. The batched analyses hold about 150 kB
 #: per sample of a 3-stage plan while they run (the incremental systems), so the chunk, not the run,
 #: sets the working memory: 1,000 samples is about 150 MB, and no slower per sample than larger chunks.
-CHUNK = 1_000
+CHUNK = 4096
 #: Percentiles reported for the margins and the swing.
 PERCENTILES = (1, 5, 50, 95, 99)
 #: β rises with temperature by this fraction per °C (common practice, from memory, no source).
