@@ -374,3 +374,47 @@ def test_slider_echo_does_not_edit_the_plan(live):
     solves = live.solve_count
     control.slider.value = 4.7e3 * (1 + 1e-13)  # the front end's rounding of 4.7 kΩ
     assert live.get("s1.rc") == 4.7e3 and live.solve_count == solves and not live.can_undo
+
+
+def test_a_value_from_code_snapped_to_the_old_slider_grid_is_not_an_edit(live):
+    # Seen in JupyterLab: after live.set("s1.rc", 3.9e3) from code, the slider applied the value
+    # before its new grid and sent back 3.9 kΩ snapped to the grid laid through 4.7 kΩ.
+    control = live.editor("s1").controls["s1.rc"]
+    old_grid = math.log10(4.7e3)
+    live.set("s1.rc", 3.9e3)
+    edits = len(live._undo)
+    k = round((math.log10(3.9e3) - old_grid) / LOG_STEP)
+    control.slider.value = 10 ** (old_grid + k * LOG_STEP)  # about 3.879 kΩ
+    assert live.get("s1.rc") == 3.9e3 and len(live._undo) == edits
+    assert control.slider.value == pytest.approx(3.9e3, rel=1e-12)  # the slider is put back
+    # A real move is a whole step (a 24th of a decade, E24 spacing per IEC 60063) and is taken.
+    control.slider.value = 10 ** (math.log10(3.9e3) + LOG_STEP)
+    assert live.get("s1.rc") == pytest.approx(3.9e3 * 10 ** LOG_STEP, rel=1e-9)
+
+
+def test_a_linear_slider_echo_within_half_a_step_is_not_an_edit(live):
+    control = live.editor("plan").controls["supply"]
+    step = control.slider.step
+    solves = live.solve_count
+    control.slider.value = live.get("supply") + 0.3 * step
+    assert live.solve_count == solves and control.slider.value == live.get("supply")
+    control.slider.value = live.get("supply") + step
+    assert live.solve_count == solves + 1
+
+
+def test_sliders_send_only_what_the_designer_does(live):
+    # With continuous updates, ipywidgets' log slider sends back every value the kernel gives it
+    # (snapped to its grid), and such echoes can arrive after later edits.
+    for control in live.editor("s1").controls.values():
+        if isinstance(control, QuantityControl):
+            assert control.slider.continuous_update is False
+
+
+def test_a_slider_message_carries_its_new_range_before_its_value(live):
+    control = live.editor("s1").controls["s1.rc"]
+    messages = []
+    control.slider._send = lambda msg, buffers=None: messages.append(msg)
+    live.set("s1.rc", 3.9e3)  # off the old grid: the range moves with the value
+    [message] = [m for m in messages if "value" in m.get("state", {})]
+    keys = list(message["state"])
+    assert keys[-1] == "value" and {"min", "max"} <= set(keys)

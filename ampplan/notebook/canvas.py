@@ -15,7 +15,8 @@ from __future__ import annotations
 
 import numpy as np
 from bokeh.layouts import column, row
-from bokeh.models import ColumnDataSource, FactorRange, HoverTool, Range1d
+from bokeh.models import ColumnDataSource, FactorRange, HoverTool, Legend, LegendItem, Range1d
+from bokeh.transform import dodge
 from bokeh.plotting import figure
 
 from ..analyses.plane import PlanPlanes, StagePlane
@@ -53,7 +54,7 @@ def _same_data(old: dict, new: dict) -> bool:
         before = old[key]
         if len(before) != len(value):
             return False
-        if key == "text" or key == "x" and len(value) and isinstance(value[0], tuple):
+        if key == "text" or key == "x" and len(value) and isinstance(value[0], str):
             if list(before) != list(value):
                 return False
         elif not np.allclose(np.asarray(before, dtype=float), value, rtol=_SAME, atol=0.0, equal_nan=True):
@@ -132,33 +133,37 @@ class _StagePanel:
 
 
 class _ChainPanel:
+    """The chain view: for each stage, the swing it has beside the swing the chain demands of it at
+    the largest source amplitude (two bars per stage, the legend below the plot, clear of them)."""
+
     def __init__(self):
-        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT, toolbar_location=None, tools="",
+        self.figure = figure(width=PANEL_WIDTH, height=PANEL_HEIGHT + 50, toolbar_location=None, tools="",
                              x_range=FactorRange(factors=[]), y_range=Range1d(0, 1), name="ampplan-chain-panel")
         self.figure.title.text_font_size = "9pt"
-        self.sources = {name: ColumnDataSource(data={"x": [], "y": [], "text": []},
-                                               name=f"ampplan-chain-{name}")
+        self.sources = {name: ColumnDataSource(data={"x": [], "y": [], "text": []}, name=f"ampplan-chain-{name}")
                         for name in ("available", "demanded")}
-        bars = [self.figure.vbar(x="x", top="y", width=0.8, source=self.sources["available"],
-                                 color=COLOURS["available"], legend_label="swing the stage has"),
-                self.figure.vbar(x="x", top="y", width=0.8, source=self.sources["demanded"],
-                                 color=COLOURS["demanded"], hatch_pattern="/", hatch_color="#ffffff",
-                                 legend_label="swing demanded at the largest source amplitude")]
-        self.figure.legend.label_text_font_size = "7pt"
-        self.figure.legend.location = "top_left"
+        have = self.figure.vbar(x=dodge("x", -0.2, range=self.figure.x_range), top="y", width=0.38,
+                                source=self.sources["available"], color=COLOURS["available"])
+        need = self.figure.vbar(x=dodge("x", 0.2, range=self.figure.x_range), top="y", width=0.38,
+                                source=self.sources["demanded"], color=COLOURS["demanded"], hatch_pattern="/",
+                                hatch_color="#ffffff")
+        legend = Legend(items=[LegendItem(label="swing the stage has", renderers=[have]),
+                               LegendItem(label="swing demanded at the largest source amplitude",
+                                          renderers=[need])],
+                        label_text_font_size="7pt", spacing=0, padding=2, margin=4)
+        self.figure.add_layout(legend, "below")
+        self.figure.xgrid.grid_line_color = None
         self.figure.yaxis.axis_label = "volts peak at the stage output"
-        self.figure.add_tools(HoverTool(renderers=bars, tooltips=[("", "@text")]))
+        self.figure.add_tools(HoverTool(renderers=[have, need], tooltips=[("", "@text")]))
 
     def update(self, planes: PlanPlanes, stale: bool):
         chain = planes.chain
         have, need = chain_layers(chain)
-        # Grouped bars: each stage id with a "has" and a "demanded" sub-factor.
-        _set(self.figure.x_range, factors=[(sid, what) for sid in chain.sids for what in ("has", "demanded")])
-        for name, layer, what in (("available", have, "has"), ("demanded", need, "demanded")):
-            _put(self.sources[name], {"x": [(sid, what) for sid in chain.sids],
-                                      "y": [float(v) for v in layer.y],
+        _set(self.figure.x_range, factors=list(chain.sids))
+        for name, layer in (("available", have), ("demanded", need)):
+            _put(self.sources[name], {"x": list(chain.sids), "y": [float(v) for v in layer.y],
                                       "text": list(layer.text)})
-        top = max([*have.y, *need.y, 1e-3]) * 1.25
+        top = max([*have.y, *need.y, 1e-3]) * 1.15
         _set(self.figure.y_range, **dict(zip(("start", "end"),
                                              _hold(self.figure.y_range.start, self.figure.y_range.end, 0.0, top))))
         _set(self.figure.title, text=_wrap((STALE_NOTE + ": " if stale else "") + chain.title))

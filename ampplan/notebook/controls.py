@@ -84,6 +84,27 @@ def slider_range(parameter: Parameter, value: float | None, typical=None) -> tup
     return float(low), float(high)
 
 
+class _ValueLast:
+    """A slider whose state messages carry ``value`` after ``min``, ``max`` and ``step``.
+
+    The front end applies a message's keys in order; a new value applied before its new range
+    would be snapped to the old grid.
+    """
+
+    def send_state(self, key=None):
+        if key is not None and not isinstance(key, str):
+            key = sorted(key, key=lambda k: k == "value")
+        super().send_state(key)
+
+
+class _LogSlider(_ValueLast, widgets.FloatLogSlider):
+    pass
+
+
+class _LinearSlider(_ValueLast, widgets.FloatSlider):
+    pass
+
+
 class QuantityControl(widgets.HBox):
     """A control for one number at a plan address (see the module docstring).
 
@@ -117,12 +138,17 @@ class QuantityControl(widgets.HBox):
         start = value if value is not None else parameter.default
         if start is None or not math.isfinite(start):
             start = math.sqrt(low * high) if parameter.scale == "log" else (low + high) / 2
-        common = dict(readout=False, continuous_update=True, layout=widgets.Layout(width="210px"))
+        # continuous_update=False: the slider sends a value when the designer moves it (each key
+        # press, the end of a drag), never in answer to a value the kernel sent it. With True,
+        # ipywidgets' log slider sends back every value it is given, snapped to the grid it has
+        # at that moment, and such an echo can arrive after later edits (when cells run ahead of
+        # widget messages) and undo them.
+        common = dict(readout=False, continuous_update=False, layout=widgets.Layout(width="210px"))
         if parameter.scale == "log":
-            self.slider = widgets.FloatLogSlider(value=start, base=10.0, min=math.log10(low), max=math.log10(high),
+            self.slider = _LogSlider(value=start, base=10.0, min=math.log10(low), max=math.log10(high),
                                                  step=LOG_STEP, **common)
         else:
-            self.slider = widgets.FloatSlider(value=start, min=low, max=high, step=(high - low) / LINEAR_STEPS,
+            self.slider = _LinearSlider(value=start, min=low, max=high, step=(high - low) / LINEAR_STEPS,
                                               **common)
         self.text = widgets.Text(value=self._shown(value), continuous_update=False,
                                  layout=widgets.Layout(width="110px"))
@@ -154,7 +180,28 @@ class QuantityControl(widgets.HBox):
         new, current = float(change["new"]), self.value
         if current is not None and abs(new - current) <= _ECHO * abs(current):
             return  # the front end's own rounding of the value it was sent, not a move
+        if current is not None and self._snapped_echo(new, current):
+            # The front end snapped the value it was sent to the grid it still had (a value set
+            # from code arrives with its new grid, and the slider may apply the value first) and
+            # sent that back. Not a move: put the slider back on the plan's value.
+            self._show(current)
+            return
         self.value = new
+
+    def _snapped_echo(self, new: float, current: float) -> bool:
+        """True when ``new`` is less than half a slider step from ``current``.
+
+        A move of the slider (a key press, a drag) lands on the slider's grid, which passes
+        through the plan's value: it is a whole number of steps away. Only the front end's
+        snapping of a value to a grid laid for another value lands closer than half a step.
+        """
+        if isinstance(self.slider, widgets.FloatLogSlider):
+            if new <= 0 or current <= 0:
+                return False
+            distance = abs(math.log10(new) - math.log10(current))
+        else:
+            distance = abs(new - current)
+        return distance < 0.5 * self.slider.step * (1 - 1e-6)
 
     def _from_text(self, change):
         if self._quiet:

@@ -51,10 +51,23 @@ def summary_html(live) -> str:
     return tables.summary_html(live.result, live.result_is_current)
 
 
+#: In a live JupyterLab page the static record right after a live view would show everything twice:
+#: this rule, carried by every live view, hides the output that follows it. Where the view does not
+#: render (a saved notebook without a kernel, nbconvert's HTML, a code host) the rule is not on the
+#: page and the record shows.
+LIVE_STYLE = ("<style>.jp-OutputArea-child:has(.ampplan-live-view) + .jp-OutputArea-child "
+              "{display: none;}</style>")
+
+
 class _View(widgets.VBox):
     """A VBox that shows its static record after itself when displayed."""
 
     record: StaticRecord
+
+    def __init__(self, children, **kwargs):
+        style = widgets.HTML(LIVE_STYLE, layout=widgets.Layout(display="none"))
+        super().__init__(children=[*children, style], **kwargs)
+        self.add_class("ampplan-live-view")
 
     def _ipython_display_(self):
         from IPython.display import display
@@ -96,7 +109,7 @@ class StageEditor(_View):
         self.result_view.add_class("ampplan-stage-result")
         self.result_view.add_class(f"ampplan-stage-result-{sid}")
         self.status = self._status_widget()
-        super().__init__(children=[self.header, *self.controls.values(), self.result_view, self.status])
+        super().__init__([self.header, *self.controls.values(), self.result_view, self.status])
         self.add_class("ampplan-editor")
         self.add_class(f"ampplan-editor-{sid}")
         self.record = StaticRecord(self._record_bundle)
@@ -160,8 +173,8 @@ class PlanEditor(_View):
         self.result_view.add_class("ampplan-stage-result")
         self.result_view.add_class("ampplan-stage-result-plan")
         self.status = self._status_widget()
-        super().__init__(children=[widgets.HTML("<b>Plan</b>: supply, source, load"), *self.controls.values(),
-                                   self.result_view, self.status])
+        super().__init__([widgets.HTML("<b>Plan</b>: supply, source, load"), *self.controls.values(),
+                          self.result_view, self.status])
         self.add_class("ampplan-editor")
         self.add_class("ampplan-editor-plan")
         self.record = StaticRecord(self._record_bundle)
@@ -194,8 +207,8 @@ class SummaryView(_View):
         self.redo_button = widgets.Button(description="redo", layout=widgets.Layout(width="80px"))
         self.undo_button.on_click(lambda _: live.undo())
         self.redo_button.on_click(lambda _: live.redo())
-        super().__init__(children=[widgets.HTML("<b>Chain</b>"), self.figures, self.status,
-                                   widgets.HBox([self.undo_button, self.redo_button])])
+        super().__init__([widgets.HTML("<b>Chain</b>"), self.figures, self.status,
+                          widgets.HBox([self.undo_button, self.redo_button])])
         self.add_class("ampplan-summary")
         self.record = StaticRecord(self._record_bundle)
         self.refresh()
@@ -233,7 +246,7 @@ class CanvasView(_View):
         self.refresh()
         self.plot = BatchedBokehModel(self.canvas.layout)
         self.plot.add_class("ampplan-canvas-plot")
-        super().__init__(children=[self.status, self.note, self.plot])
+        super().__init__([self.status, self.note, self.plot])
         self.add_class("ampplan-canvas")
         self.record = StaticRecord(self._record_bundle)
 

@@ -121,6 +121,18 @@ def test_notebook_live_in_jupyterlab(lab, browser, request, which):
             assert drift == [], ("showing the editors changed the plan (a slider view snapping the value "
                                  "to its step grid and syncing it back?): " + "; ".join(drift))
 
+        if which == "walkthrough":
+            # The walkthrough ends with live.set("s1.rc", 3.9e3) from code; the slider must not send
+            # back that value snapped to its old grid (seen once: 3.879 kΩ, two stray edits).
+            page.wait_for_timeout(1000)
+            field = page.locator(".ampplan-control-s1-rc .ampplan-control-text input").first
+            assert field.input_value() == "3.9 kΩ"
+        # In a live page each view hides its static copy (kept for the saved notebook), so nothing
+        # shows twice; the copies are in the DOM, as the saved notebook will have them.
+        shown = page.evaluate("""() => Array.from(document.querySelectorAll('.ampplan-static')).map(
+            el => getComputedStyle(el.closest('.jp-OutputArea-child')).display)""")
+        assert shown and set(shown) == {"none"}, shown
+
         # BokehJS came from ampplan's route on this server, the installed version, no CDN.
         served = [u for u in requests if "/ampplan/bokehjs/js/bokeh.min.js" in u]
         assert served and served[0].startswith(lab.url + "ampplan/bokehjs/"), served
