@@ -418,3 +418,11 @@ def test_a_slider_message_carries_its_new_range_before_its_value(live):
     [message] = [m for m in messages if "value" in m.get("state", {})]
     keys = list(message["state"])
     assert keys[-1] == "value" and {"min", "max"} <= set(keys)
+
+
+def test_canvas_carries_a_key_for_every_kind_of_layer(live):
+    from ampplan.notebook.look import COLOURS, KEY, LAYER_NAMES
+    view = live.canvas()
+    assert {name for name, _, _ in KEY} | {"cutoff"} == set(LAYER_NAMES)
+    for name, _, words in KEY:
+        assert COLOURS[name] in view.key.value and words in view.key.value

@@ -21,7 +21,7 @@ from ..analyses.plane import ChainPlane, StagePlane
 from ..units import format_quantity
 
 __all__ = ["Layer", "COLOURS", "stage_layers", "chain_layers", "current_scale", "STALE_NOTE",
-           "LAYER_NAMES"]
+           "LAYER_NAMES", "KEY", "key_html"]
 
 #: Colours by what they mark (hex RGB).
 COLOURS = {
@@ -177,3 +177,25 @@ def chain_layers(chain: ChainPlane) -> tuple:
                        for sid, v in zip(chain.sids, chain.demanded)),
                  COLOURS["demanded"], label="swing demanded at the largest source amplitude")
     return have, need
+
+
+#: The key of a stage panel: what each layer means, in the panels' drawing style (symbol, words).
+KEY = (
+    ("dc", "━━", "DC load line"),
+    ("ac", "╍╍", "AC load line"),
+    ("qpoint", "●", "Q-point"),
+    ("swing", "▬▬", "usable swing along the AC load line"),
+    ("limit", "▲", "the side that limits it"),
+    ("power", "┈┈", "rated power"),
+    ("saturation", "▨", "saturation (hatched) and cutoff (grey) edges"),
+)
+
+
+def key_html() -> str:
+    """One line of HTML naming every layer of a stage panel with its colour and symbol (the bokeh
+    panels carry no legend of their own: it would cover the load lines)."""
+    import html
+    items = [f"<span style='color:{COLOURS[name]};font-weight:bold'>{symbol}</span>&nbsp;{html.escape(words)}"
+             for name, symbol, words in KEY]
+    return ("<div class='ampplan-canvas-key' style='font-size:85%;line-height:1.6'>"
+            + " &nbsp;·&nbsp; ".join(items) + "; hover over a point for its values.</div>")

@@ -246,7 +246,9 @@ class CanvasView(_View):
         self.refresh()
         self.plot = BatchedBokehModel(self.canvas.layout)
         self.plot.add_class("ampplan-canvas-plot")
-        super().__init__([self.status, self.note, self.plot])
+        from .look import key_html
+        self.key = widgets.HTML(key_html())
+        super().__init__([self.status, self.note, self.key, self.plot])
         self.add_class("ampplan-canvas")
         self.record = StaticRecord(self._record_bundle)
 

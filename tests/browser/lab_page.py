@@ -138,6 +138,9 @@ def press_and_time(page, handle_selector: str, sources: list[str], presses: int,
 
 def screenshot_element(page, selector: str, path: str) -> None:
     """A PNG of one element (scrolled into view first; JupyterLab's panel scrolls, not the page)."""
+    # The file browser takes a third of the width: close it so that the whole canvas fits.
+    page.evaluate("() => jupyterapp.shell.collapseLeft()")
+    page.wait_for_timeout(300)
     target = page.locator(selector).first
     target.scroll_into_view_if_needed()
     page.wait_for_timeout(300)
