@@ -136,6 +136,21 @@ def press_and_time(page, handle_selector: str, sources: list[str], presses: int,
     return list(page.evaluate("() => window.__ampplan_timer.times")), busy
 
 
+JS_KERNEL_PRINT = """async (code) => {
+  const kernel = jupyterapp.shell.currentWidget.sessionContext.session.kernel;
+  let out = '';
+  const future = kernel.requestExecute({code, silent: false, store_history: false});
+  future.onIOPub = (msg) => { if (msg.header.msg_type === 'stream') { out += msg.content.text; } };
+  await future.done;
+  return out;
+}"""
+
+
+def kernel_print(page, code: str) -> str:
+    """What ``code`` prints, run in the open notebook's kernel (not added to any cell)."""
+    return page.evaluate(JS_KERNEL_PRINT, code)
+
+
 def screenshot_element(page, selector: str, path: str) -> None:
     """A PNG of one element (scrolled into view first; JupyterLab's panel scrolls, not the page)."""
     # The file browser takes a third of the width: close it so that the whole canvas fits.

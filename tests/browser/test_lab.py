@@ -157,6 +157,23 @@ def test_notebook_live_in_jupyterlab(lab, browser, request, which):
         assert view.text_content() != view_before              # the direct-coupled next stage followed
         assert error_outputs(page) == []
 
+        if which == "workflow" and fixture_notebook.has_live_plan():
+            # A burst of key presses does not queue: the browser holds one message in flight per
+            # widget and merges the rest, so the kernel solves fewer times than keys were pressed
+            # and ends on the value of the last press (a 24th of a decade per press, E24 spacing).
+            lab_page.wait_kernel_idle(page, quiet_s=1.0)
+            start = json.loads(lab_page.kernel_print(page, "print(__import__('json').dumps("
+                                                           "[live.solve_count, live.get('s1.rc')]))"))
+            presses = 12
+            for _ in range(presses):
+                handle.press("ArrowRight")
+            lab_page.wait_kernel_idle(page, quiet_s=1.5)
+            end = json.loads(lab_page.kernel_print(page, "print(__import__('json').dumps("
+                                                         "[live.solve_count, live.get('s1.rc')]))"))
+            assert end[1] == pytest.approx(start[1] * 10 ** (presses / 24), rel=1e-9)
+            assert 1 <= end[0] - start[0] < presses, f"{end[0] - start[0]} solves for {presses} presses"
+            assert error_outputs(page) == []
+
         # The saved notebook (executed in JupyterLab, widget state included) stays small.
         lab_page.save(page)
         size = (lab.root_dir / NOTEBOOK_NAME).stat().st_size
