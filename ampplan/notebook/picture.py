@@ -60,7 +60,10 @@ def _draw_chain(ax, chain, stale: bool):
         title = STALE_NOTE + "\n" + title
         ax.set_facecolor("#eeeeee")
     ax.set_title(title, fontsize=8, loc="left")
-    ax.legend(fontsize=6, loc="upper left", framealpha=0.85)
+    # Headroom above the tallest bar for the legend, so that it never covers a bar.
+    top = max([*have.y, *need.y, 1e-3])
+    ax.set_ylim(0.0, top * 1.45)
+    ax.legend(fontsize=6, loc="upper center", framealpha=0.85)
     ax.grid(True, axis="y", linewidth=0.3, alpha=0.6)
 
 
