@@ -103,3 +103,17 @@ def test_scatter_new_last_equals_adding_into_a_copy_of_the_base():
                                rtol=1e-13, atol=1e-13)
     empty = Scatter(np.zeros(0), np.zeros(0), np.zeros(0))
     assert np.array_equal(empty.new_last(values, base), np.repeat(base[:, None], 5, axis=1))
+
+
+def test_assembled_keeps_the_layout_s_own_parameters_read_only():
+    layout = layout_of(_circuit())
+    own = layout.parameters()
+    first, rhs = layout.assembled(own)
+    again, _ = layout.assembled(layout.parameters())
+    assert again is first and not first.flags.writeable and not rhs.flags.writeable
+    ref_matrix, ref_rhs = _dense_reference(layout, own, False)
+    np.testing.assert_allclose(first, ref_matrix, rtol=1e-15, atol=0.0)
+    np.testing.assert_allclose(rhs, ref_rhs, rtol=1e-15, atol=0.0)
+    batch = layout.parameters(batch={"R1": [47e3, 50e3]})
+    fresh, _ = layout.assembled(batch)
+    assert fresh.flags.writeable and layout.assembled(batch)[0] is not fresh

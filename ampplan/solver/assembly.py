@@ -112,6 +112,7 @@ class Layout:
         self.structure = self._structure()
         self._pattern_cache: dict = {}
         self._parameter_cache: dict = {}
+        self._assembly_cache: dict = {}
         #: Planned sparse eliminations of the constant-drop systems, by region assignment.
         self.region_plans: dict = {}
 
@@ -172,6 +173,20 @@ class Layout:
         rhs = np.zeros((s_count, n))
         volts(params.voltage * scale, out=rhs)
         amps(params.current * scale, out=rhs)
+        return matrix, rhs
+
+    def assembled(self, params: Parameters):
+        """:meth:`assemble` of ``params`` (read-only arrays), kept when ``params`` is one of the
+        layout's own single-sample parameter sets, so that repeated single solves of an unchanged
+        circuit assemble it once."""
+        cached = self._assembly_cache.get(id(params))
+        if cached is not None and cached[0] is params:
+            return cached[1], cached[2]
+        matrix, rhs = self.assemble(params)
+        if any(params is p for p in self._parameter_cache.values()):
+            matrix.flags.writeable = False
+            rhs.flags.writeable = False
+            self._assembly_cache[id(params)] = (params, matrix, rhs)
         return matrix, rhs
 
     def _patterns(self, reduced: bool):

@@ -127,7 +127,7 @@ class RegionProblem:
         self.edge = dev["vbe_on"] if active_edge == "vcb-zero" else dev["vce_sat"]
         self.active_edge = active_edge
         self.table = rg.table("constant-drop", active_edge)
-        self.matrix, self.rhs = layout.assemble(params)
+        self.matrix, self.rhs = layout.assembled(params)
         # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
         self.ports = np.stack([layout.q_b, layout.q_c, layout.q_e, layout.q_ib, layout.q_ic], axis=1)
         # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
