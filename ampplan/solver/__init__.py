@@ -212,7 +212,7 @@ def _em_guess(layout, params, rows, warm_start=True):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
     sub = take_samples(params, rows)
     x, converged, iterations, _, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
-    regions, _ = em.classify(layout, sub, x)
+    regions, _ = em.classify(layout, sub, x, checks=False)
     regions[~converged] = cd.ACTIVE
     return regions.astype(np.int8), int(iterations.max(initial=0))
 

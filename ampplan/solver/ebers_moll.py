@@ -42,8 +42,9 @@ from dataclasses import dataclass
 
 from ..devices import thermal_voltage
 from . import regions as rg
-from .assembly import take_samples
+from .assembly import Scatter, take_samples
 from .linear import solve_batch
+from .sparse import Elimination
 
 #: Exponent beyond which exp() continues as a straight line (keeps far iterates finite).
 EXP_LIMIT = 80.0
@@ -51,6 +52,10 @@ MAX_ITERATIONS = 150
 LADDER_ITERATIONS = 60
 #: Samples per block of the warm-started attempt.
 BLOCK = 2048
+#: Newton steps of at least this many samples solve their linear systems through the planned sparse
+#: elimination (:mod:`.sparse`); fewer, or systems of more than SPARSE_ORDER unknowns, go to LAPACK.
+SPARSE_BATCH = 64
+SPARSE_ORDER = 400
 #: Iterations allowed from a solved neighbour before the sample restarts from its own guess.
 WARM_ITERATIONS = 40
 LADDER = (1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 1e-11, 1e-12, 0.0)
@@ -195,6 +200,7 @@ class NewtonProblem:
             if not gathered:
                 # Gather the still-active samples once per change of the active set.
                 gathered = True
+                sparse_base = None
                 if active.size == len(rows):
                     base_act, rhs_act, d_act = base, rhs0, dev
                     vt_act, nvt_act, crit_act = v_t, nvt, v_crit
@@ -214,9 +220,14 @@ class NewtonProblem:
             # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
             j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
             j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
-            matrix, rhs = base_act.copy(), rhs_act.copy()
-            self._stamp_companion(matrix, rhs, d, j_b, j_c)
-            u, ok = solve_batch(matrix, rhs, check_residual=False)
+            if base_act.shape[0] < SPARSE_BATCH or nu > SPARSE_ORDER:
+                matrix, rhs = base_act.copy(), rhs_act.copy()
+                self._stamp_companion(matrix, rhs, d, j_b, j_c)
+                u, ok = solve_batch(matrix, rhs, check_residual=False)
+            else:
+                if sparse_base is None:
+                    sparse_base = self._sparse_base(base_act, rhs_act)
+                u, ok = self._solve_sparse(base_act, rhs_act, sparse_base, d, j_b, j_c)
             step = np.abs(u - xa[:, :nu])
             small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:, :nu])) + abs_tol,
                            axis=1)
@@ -248,6 +259,78 @@ class NewtonProblem:
                 ahead = (true_b[still], true_c[still], {k: v[still] for k, v in d_new.items()})
         return x, (vbe_old, vbc_old), converged, iterations
 
+    def _sparse_base(self, base, rhs):
+        """The linear part of the active samples' systems as the sparse plan's entries (P, K) and
+        right-hand sides (m, K), samples last (kept while the active set does not change)."""
+        positions, _, _, _ = self._sparse_plan(base.shape[1])
+        count = base.shape[0]
+        return (np.ascontiguousarray(base.reshape(count, -1)[:, positions].T), np.ascontiguousarray(rhs.T))
+
+    def _solve_sparse(self, base, rhs, sparse_base, d, j_b, j_c):
+        """One Newton step's linear systems through the planned sparse elimination: the linear part
+        plus every companion model scattered into the pattern's entries; dense LAPACK for the
+        samples whose pivots the plan does not suit."""
+        m = base.shape[1]
+        _, elimination, conductances, currents = self._sparse_plan(m)
+        values = conductances.last(np.concatenate([d[k].T for k in _COMPANION]), sparse_base[0].copy())
+        right = currents.last(np.concatenate([j_b.T, j_c.T]), sparse_base[1].copy())
+        x, ok = elimination.solve(values, right, check_residual=False)
+        x = x.T.copy()
+        bad = np.flatnonzero(~ok)
+        if bad.size:
+            matrix, b = base[bad].copy(), rhs[bad].copy()
+            self._stamp_companion(matrix, b, {k: v[bad] for k, v in d.items()}, j_b[bad], j_c[bad])
+            x[bad], ok[bad] = solve_batch(matrix, b, check_residual=False)
+        return x, ok
+
+    def _sparse_plan(self, m):
+        """The sparse elimination of the reduced Newton system (m unknowns), planned once per
+        layout: the pattern is every entry the assembly or a companion model can touch, plus the
+        node diagonal (the conductance ladder), and the pivots are chosen on the circuit's own
+        values with every transistor's companion at a typical forward-active bias (1 mA, β = 100,
+        V_A = 100 V)."""
+        lay = self.layout
+        plan = lay.region_plans.get("ebers-moll")
+        if plan is None:
+            base, _ = lay.assemble(lay.parameters(), reduced=True)
+            matrix = np.ascontiguousarray(base[:, :m, :m])
+            n_q = lay.n_bjt
+            g_m = 1e-3 / 0.025
+            typical = {"b_be": np.full((1, n_q), g_m / 100.0), "b_bc": np.full((1, n_q), 1e-12),
+                       "c_be": np.full((1, n_q), g_m), "c_bc": np.full((1, n_q), -1e-5)}
+            self._stamp_companion(matrix, np.zeros((1, m)), typical, np.zeros((1, n_q)), np.zeros((1, n_q)))
+            pattern = matrix[0] != 0.0
+            nodes = np.arange(lay.n_nodes)
+            pattern[nodes, nodes] = True
+            for b, c, e, _ in self.terminals:
+                touched = [t for t in (b, c, e) if t < m]
+                pattern[np.ix_(touched, touched)] = True
+            rows, cols = np.nonzero(pattern)
+            slot = np.full(m * m, -1, dtype=np.intp)
+            slot[rows * m + cols] = np.arange(rows.size)
+            # The companion models as terms over (b_be, b_bc, c_be, c_bc) of every transistor
+            # (4N values) into the entries, and over (j_b, j_c) (2N) into the right-hand side,
+            # exactly as _stamp_companion adds them.
+            g_pos, g_src, g_wt, j_pos, j_src, j_wt = [], [], [], [], [], []
+            for k, (b, c, e, sg) in enumerate(self.terminals):
+                b_be, b_bc, c_be, c_bc = (q * n_q + k for q in range(4))
+                for node, sign, be, bc, j in ((b, 1.0, [b_be], [b_bc], [k]), (c, 1.0, [c_be], [c_bc], [n_q + k]),
+                                              (e, -1.0, [b_be, c_be], [b_bc, c_bc], [k, n_q + k])):
+                    if node >= m:
+                        continue
+                    for col, sources, weight in ((b, be + bc, sign), (e, be, -sign), (c, bc, -sign)):
+                        if col < m:
+                            g_pos += [slot[node * m + col]] * len(sources)
+                            g_src += sources
+                            g_wt += [weight] * len(sources)
+                    j_pos += [node] * len(j)
+                    j_src += j
+                    j_wt += [-sign * sg] * len(j)
+            plan = (rows * m + cols, Elimination(m, rows, cols, matrix[0, rows, cols]),
+                    Scatter(g_pos, g_src, g_wt), Scatter(j_pos, j_src, j_wt))
+            lay.region_plans["ebers-moll"] = plan
+        return plan
+
     def _stamp_companion(self, matrix, rhs, d, j_b, j_c):
         """Add each transistor's companion model to the node rows of the reduced system.
 
@@ -272,6 +355,9 @@ class NewtonProblem:
                     matrix[:, node, c] -= sign * g_bc
                 rhs[:, node] -= sign * s * j
 
+
+#: The companion conductances of each transistor, in the order the sparse plan's scatter reads them.
+_COMPANION = ("b_be", "b_bc", "c_be", "c_bc")
 
 #: The device parameters the Ebers–Moll equations read.
 _MODEL_PARAMETERS = ("beta", "beta_reverse", "saturation_current", "early_voltage", "emission_coefficient")
@@ -360,7 +446,7 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
             # to another one than the sample's own start finds. Where the regions differ from the
             # solved neighbour's, the sample is solved from its own start as well, and that answer
             # (the one a single solve gives) is kept when it converges.
-            regions, _ = classify(layout, params, x)
+            regions, _ = classify(layout, params, x, checks=False)
             moved = np.flatnonzero(converged & np.any(regions != regions[first], axis=1))
             if moved.size:
                 xs, _, ok, its = problem.newton(moved, *own_start(moved))
@@ -400,7 +486,8 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
     # Every answer is checked against its own equations before it counts.
     done = np.flatnonzero(converged)
     if done.size:
-        missed = ~residuals(layout, take_samples(params, done), x[done]).ok
+        every = done.size == s_count
+        missed = ~residuals(layout, params if every else take_samples(params, done), x if every else x[done]).ok
         converged[done[missed]] = False
         method[done[missed]] = "residual too large"
     rejected = np.where(converged[:, None], np.nan, x)
@@ -429,7 +516,7 @@ def conduction_voltage(dev, v_t):
     return dev["emission_coefficient"] * v_t * np.log1p(rg.CONDUCTION_CURRENT / dev["saturation_current"])
 
 
-def classify(layout, params, x):
+def classify(layout, params, x, checks: bool = True):
     """Regions of an Ebers–Moll solution, with the checks that decided them.
 
     The rule (:mod:`.regions`, NPN frame): a junction conducts when its voltage is at least
@@ -444,12 +531,14 @@ def classify(layout, params, x):
         S samples.
     x : ndarray, shape (S, size + 1)
         Unknowns.
+    checks : bool
+        Also return the checks (False: the regions alone, None for the checks).
 
     Returns
     -------
     regions : ndarray of int, shape (S, N)
         Codes into ``REGIONS``.
-    checks : tuple (names, values, limits, margins), each ndarray (S, N, 2)
+    checks : tuple (names, values, limits, margins), each ndarray (S, N, 2), or None
     """
     dev = params.at_temperature
     on = conduction_voltage(dev, thermal_voltage(params.temperature[:, None]))
@@ -461,6 +550,8 @@ def classify(layout, params, x):
     conducting = (v_be >= on) | (v_bc >= on)
     regions = np.where(~conducting, rg.CUTOFF, np.where(v_ce >= sat, rg.ACTIVE,
                                                         np.where(v_ce <= -sat, rg.REVERSE, rg.SATURATION)))
+    if not checks:
+        return regions, None
     i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
     quantities = np.stack([v_be, v_bc, v_ce, -v_bc, i_b, i_c], axis=-1)
     limits = np.stack([on, on, sat, np.zeros_like(on), dev["beta"] * i_b, -sat], axis=-1)
