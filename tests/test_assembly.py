@@ -117,3 +117,46 @@ def test_assembled_keeps_the_layout_s_own_parameters_read_only():
     batch = layout.parameters(batch={"R1": [47e3, 50e3]})
     fresh, _ = layout.assembled(batch)
     assert fresh.flags.writeable and layout.assembled(batch)[0] is not fresh
+
+
+@pytest.mark.parametrize("reduced", [False, True])
+def test_entries_equal_the_dense_assembly_at_their_positions(reduced):
+    c = _circuit()
+    layout = layout_of(c)
+    rng = np.random.default_rng(9)
+    batch = {r.name: r.resistance * rng.uniform(0.5, 2.0, 16) for r in layout.resistors}
+    batch["VCC"] = rng.uniform(5.0, 20.0, 16)
+    batch["IB"] = rng.uniform(-1e-5, 1e-5, 16)
+    params = layout.parameters(batch=batch)
+    for scale, ladder in ((1.0, 0.0), (0.25, 1e-3)):
+        matrix, rhs = _dense_reference(layout, params, reduced)
+        m = matrix.shape[1] - 1
+        matrix = matrix[:, :m, :m] + ladder * np.diag(np.r_[np.ones(layout.n_nodes), np.zeros(m - layout.n_nodes)])
+        rows, cols = np.nonzero(np.any(matrix != 0.0, axis=0) | np.eye(m, dtype=bool))
+        positions = rows * m + cols
+        values, right = layout.entries(params, positions, reduced=reduced, source_scale=scale,
+                                       ladder_conductance=ladder)
+        np.testing.assert_allclose(values, matrix[:, rows, cols].T, rtol=1e-14, atol=0.0)
+        np.testing.assert_allclose(right, scale * rhs[:, :m].T, rtol=1e-14, atol=0.0)
+
+
+def test_entries_refuse_positions_that_leave_out_a_stamp():
+    # Node "a" is held by two sources only: no resistor stamps its diagonal, the ladder would.
+    c = ampplan.Circuit()
+    c.voltage_source("V1", "a", "gnd", 1.0)
+    c.voltage_source("V2", "b", "a", 2.0)
+    c.resistor("R", "b", "gnd", 1e3)
+    layout = layout_of(c)
+    params = layout.parameters()
+    m = layout.size
+    matrix, _ = _dense_reference(layout, params, False)
+    rows, cols = np.nonzero(matrix[0, :m, :m] != 0.0)
+    positions = rows * m + cols
+    a = layout.index["a"]
+    assert a * m + a not in positions
+    values, right = layout.entries(params, positions)            # without the ladder, fine
+    np.testing.assert_allclose(values[:, 0], matrix[0, rows, cols], rtol=1e-15)
+    with pytest.raises(ValueError, match="diagonal"):
+        layout.entries(params, positions, ladder_conductance=1e-3)
+    with pytest.raises(ValueError, match="resistor stamps"):
+        layout.entries(params, positions[positions != layout.index["b"] * (m + 1)])

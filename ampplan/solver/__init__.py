@@ -125,7 +125,7 @@ def _solve_assumed(circuit, layout, params, single, active_edge, codes):
     ok = np.empty(s_count, dtype=bool)
     checks = [np.empty((s_count, n_q, 2)) for _ in range(3)] + [np.empty((s_count, n_q, 2), dtype=bool)]
     for rows in cd.blocks(s_count, layout):
-        problem = cd.RegionProblem(layout, _part(params, rows, s_count), active_edge)
+        problem = cd.RegionProblem(layout, _part(params, rows, s_count), active_edge, sparse=not single)
         local = np.arange(rows.size)
         x[rows], ok[rows] = problem.solve(local, regions[rows])
         good[rows], _, block_checks = problem.consistent(local, regions[rows], x[rows], ok[rows])
@@ -137,18 +137,18 @@ def _solve_assumed(circuit, layout, params, single, active_edge, codes):
 
 
 # -- Ebers–Moll -----------------------------------------------------------------------------------
-def _newton_start(layout, params):
+def _newton_start(layout, params, sparse=False):
     """Newton's start for given samples: the constant-drop answer with every transistor forward-active."""
     def start(rows):
-        problem = cd.RegionProblem(layout, take_samples(params, rows))
+        problem = cd.RegionProblem(layout, take_samples(params, rows), sparse=sparse)
         x0, _ = problem.solve(np.arange(rows.size), np.full((rows.size, layout.n_bjt), cd.ACTIVE, dtype=np.int8))
         return x0
     return start
 
 
 def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
-    x, converged, iterations, method, rejected = em.solve_newton(layout, params, _newton_start(layout, params),
-                                                                 warm_start=warm_start)
+    x, converged, iterations, method, rejected = em.solve_newton(layout, params, _newton_start(layout, params, not single),
+                                                                 warm_start=warm_start, sparse=not single)
     if single and not converged[0]:
         raise ConvergenceError(_em_failure_message(layout, params, method[0], rejected, int(iterations[0])),
                                iterations=int(iterations[0]),
@@ -233,7 +233,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
     iterations, deepest, notes = 0, 1, []
     for rows in blocks:
         sub = _part(params, rows, s_count)
-        problem = cd.RegionProblem(layout, sub, active_edge)
+        problem = cd.RegionProblem(layout, sub, active_edge, sparse=not single)
         local = np.arange(rows.size)
         result = cd.search(problem, local, np.full((rows.size, n_q), cd.ACTIVE, dtype=np.int8))
         iterations += result.solves

@@ -113,6 +113,7 @@ class Layout:
         self._pattern_cache: dict = {}
         self._parameter_cache: dict = {}
         self._assembly_cache: dict = {}
+        self._entry_cache: dict = {}
         #: Planned sparse eliminations of the constant-drop systems, by region assignment.
         self.region_plans: dict = {}
 
@@ -174,6 +175,60 @@ class Layout:
         volts(params.voltage * scale, out=rhs)
         amps(params.current * scale, out=rhs)
         return matrix, rhs
+
+    def entries(self, params: Parameters, positions: np.ndarray, reduced: bool = False, source_scale=1.0,
+                ladder_conductance=0.0):
+        """Chosen entries of :meth:`assemble`'s matrix and its right-hand side, with the samples last
+        and without ground's row and column, built without the dense matrices.
+
+        Parameters
+        ----------
+        params, reduced, source_scale, ladder_conductance
+            As for :meth:`assemble` (``source_scale`` and ``ladder_conductance`` scalars here).
+        positions : ndarray of int, shape (P,)
+            Flat positions ``row·m + column`` in the m×m matrix (m = ``size``, or
+            ``n_nodes + n_vs`` reduced); they must hold every position a resistor stamp (and the
+            conductance ladder, when used) touches.
+
+        Returns
+        -------
+        values : ndarray, shape (P, S)
+        rhs : ndarray, shape (m, S)
+        """
+        key = (reduced, positions.tobytes())
+        plan = self._entry_cache.get(key)
+        if plan is None:
+            structure, _, volts, amps = self._patterns(reduced)
+            n = structure.shape[0]
+            m = n - 1
+            slot = np.full(n * n, -1, dtype=np.intp)
+            rows, cols = positions // m, positions % m
+            slot[rows * n + cols] = np.arange(positions.size)
+            n_full = self.size + 1
+            keep = (np.concatenate([np.arange(self.n_nodes + self.n_vs), [self.size]]) if reduced
+                    else np.arange(n_full))
+            at = np.full(n_full, -1, dtype=np.intp)
+            at[keep] = np.arange(n)
+            r_a, r_b = at[self.r_a], at[self.r_b]
+            n_r = len(self.resistors)
+            flat = np.concatenate([r_a * n + r_a, r_b * n + r_b, r_a * n + r_b, r_b * n + r_a])
+            inside = np.concatenate([r_a < m, r_b < m, (r_a < m) & (r_b < m), (r_a < m) & (r_b < m)])
+            if np.any(slot[flat[inside]] < 0):
+                raise ValueError("the positions leave out an entry a resistor stamps")
+            resistors = Scatter(slot[flat[inside]], np.tile(np.arange(n_r), 4)[inside],
+                                np.repeat([1.0, 1.0, -1.0, -1.0], n_r)[inside])
+            nodes = np.arange(self.n_nodes)
+            diagonal = slot[nodes * n + nodes]
+            plan = self._entry_cache[key] = (structure.ravel()[rows * n + cols], resistors, diagonal, volts, amps, n)
+        base, resistors, diagonal, volts, amps, n = plan
+        values = resistors.new_last(params.conductance.T, base)
+        if np.any(ladder_conductance):
+            if np.any(diagonal < 0):
+                raise ValueError("the positions leave out a node's diagonal, which the conductance ladder needs")
+            values[diagonal] += ladder_conductance
+        rhs = volts.new_last((params.voltage * source_scale).T, np.zeros(n))
+        amps.last((params.current * source_scale).T, rhs)
+        return values, rhs[:n - 1]
 
     def assembled(self, params: Parameters):
         """:meth:`assemble` of ``params`` (read-only arrays), kept when ``params`` is one of the

@@ -70,10 +70,9 @@ MAX_MATRIX_BYTES = 64 * 2**20
 WORK_BYTES = 16 * 2**20
 
 # Region codes and the check table are shared with Ebers–Moll (regions.py).
-#: Direct solves of at least this many systems of one region assignment go through the planned
-#: sparse elimination (:mod:`.sparse`); fewer, or circuits of more than SPARSE_ORDER unknowns, go
-#: to LAPACK one dense system at a time.
-SPARSE_BATCH = 64
+#: A batch's direct solves go through the planned sparse elimination (:mod:`.sparse`) of each
+#: region assignment, up to this many unknowns; beyond it, and in single solves, LAPACK solves one
+#: dense system at a time.
 SPARSE_ORDER = 400
 
 CUTOFF, ACTIVE, SATURATION, REVERSE = rg.CUTOFF, rg.ACTIVE, rg.SATURATION, rg.REVERSE
@@ -116,8 +115,9 @@ def search_distance(n_q: int) -> int:
 class RegionProblem:
     """Constant-drop equations of one layout for S samples; solves any region assignment."""
 
-    def __init__(self, layout, params, active_edge: str = "vce-sat"):
+    def __init__(self, layout, params, active_edge: str = "vce-sat", sparse: bool = False):
         self.layout = layout
+        self.sparse = sparse and layout.size <= SPARSE_ORDER
         self.params = params
         dev = params.at_temperature
         self.dev = dev
@@ -151,10 +151,11 @@ class RegionProblem:
         """
         n = self.layout.size
         count = len(samples)
-        if count < SPARSE_BATCH or n > SPARSE_ORDER:
+        if not self.sparse or count == 0:
             return self._solve_dense(samples, regions)
         # Systems that share an assignment share a sparsity pattern: the planned sparse elimination
-        # takes each large group at once; the stragglers go to LAPACK.
+        # takes each group at once (whatever its size, so a sample's answer never depends on its
+        # batch); the samples its pivots do not suit go to LAPACK.
         if np.all(regions == regions[:1]):
             groups = [(regions[0], np.arange(count))]
         else:
@@ -164,9 +165,6 @@ class RegionProblem:
         out_ok = np.empty(count, dtype=bool)
         rest = []
         for assignment, members in groups:
-            if members.size < SPARSE_BATCH:
-                rest.append(members)
-                continue
             x, ok = self._solve_sparse(samples[members], assignment)
             out_x[members], out_ok[members] = x, ok
             rest.append(members[~ok])

@@ -52,9 +52,8 @@ MAX_ITERATIONS = 150
 LADDER_ITERATIONS = 60
 #: Samples per block of the warm-started attempt.
 BLOCK = 2048
-#: Newton steps of at least this many samples solve their linear systems through the planned sparse
-#: elimination (:mod:`.sparse`); fewer, or systems of more than SPARSE_ORDER unknowns, go to LAPACK.
-SPARSE_BATCH = 64
+#: A batch's Newton steps solve their linear systems through the planned sparse elimination
+#: (:mod:`.sparse`) up to this many unknowns; beyond it, and in single solves, LAPACK.
 SPARSE_ORDER = 400
 #: Iterations allowed from a solved neighbour before the sample restarts from its own guess.
 WARM_ITERATIONS = 40
@@ -133,9 +132,10 @@ def _limit_junction(v_new, v_old, nvt, v_crit):
 class NewtonProblem:
     """The Ebers–Moll equations of one layout for S samples, ready for Newton iterations."""
 
-    def __init__(self, layout, params):
+    def __init__(self, layout, params, sparse: bool = False):
         self.layout = layout
         self.params = params
+        self.sparse = sparse and layout.n_nodes + layout.n_vs <= SPARSE_ORDER
         self.dev = params.at_temperature
         self.v_t = thermal_voltage(params.temperature[:, None])
         nvt = self.dev["emission_coefficient"] * self.v_t
@@ -180,10 +180,22 @@ class NewtonProblem:
         every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
         pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
         params = take_samples(self.params, rows, device=False) if not every else self.params
-        base, rhs0 = lay.assemble(params, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
-        nu = base.shape[1] - 1
-        # Drop ground's spare row and column once, so each iteration's matrix is contiguous.
-        base, rhs0 = np.ascontiguousarray(base[:, :nu, :nu]), np.ascontiguousarray(rhs0[:, :nu])
+        nu = lay.n_nodes + lay.n_vs
+        if self.sparse:
+            # The linear part straight into the sparse plan's entries, samples last; the dense
+            # matrices only for samples the plan's pivots do not suit.
+            positions = self._sparse_plan(nu)[0]
+            entries, right = lay.entries(params, positions, reduced=True, source_scale=scale,
+                                         ladder_conductance=ladder_conductance)
+
+            def dense(local):
+                sub = take_samples(params, local, device=False)
+                b, r = lay.assemble(sub, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
+                return b[:, :nu, :nu], r[:, :nu]
+        else:
+            base, rhs0 = lay.assemble(params, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
+            # Drop ground's spare row and column once, so each iteration's matrix is contiguous.
+            base, rhs0 = np.ascontiguousarray(base[:, :nu, :nu]), np.ascontiguousarray(rhs0[:, :nu])
         dev = {k: pick(self.dev[k]) for k in _MODEL_PARAMETERS}
         v_t, nvt, v_crit = pick(self.v_t), pick(self.nvt), pick(self.v_crit)
         abs_tol = self.abs_tol[:nu]
@@ -200,14 +212,21 @@ class NewtonProblem:
             if not gathered:
                 # Gather the still-active samples once per change of the active set.
                 gathered = True
-                sparse_base = None
                 if active.size == len(rows):
-                    base_act, rhs_act, d_act = base, rhs0, dev
+                    d_act = dev
                     vt_act, nvt_act, crit_act = v_t, nvt, v_crit
+                    if self.sparse:
+                        base_act, rhs_act, dense_act = entries, right, dense
+                    else:
+                        base_act, rhs_act = base, rhs0
                 else:
-                    base_act, rhs_act = base[active], rhs0[active]
                     d_act = {k: v[active] for k, v in dev.items()}
                     vt_act, nvt_act, crit_act = v_t[active], nvt[active], v_crit[active]
+                    if self.sparse:
+                        base_act, rhs_act = np.ascontiguousarray(entries[:, active]), np.ascontiguousarray(right[:, active])
+                        dense_act = (lambda local, chosen=active: dense(chosen[local]))
+                    else:
+                        base_act, rhs_act = base[active], rhs0[active]
             xa = x[active]
             vbe_raw, vbc_raw = self.junctions(xa)
             vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_act, crit_act)
@@ -220,14 +239,12 @@ class NewtonProblem:
             # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
             j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
             j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
-            if base_act.shape[0] < SPARSE_BATCH or nu > SPARSE_ORDER:
+            if self.sparse:
+                u, ok = self._solve_sparse(base_act, rhs_act, dense_act, d, j_b, j_c)
+            else:
                 matrix, rhs = base_act.copy(), rhs_act.copy()
                 self._stamp_companion(matrix, rhs, d, j_b, j_c)
                 u, ok = solve_batch(matrix, rhs, check_residual=False)
-            else:
-                if sparse_base is None:
-                    sparse_base = self._sparse_base(base_act, rhs_act)
-                u, ok = self._solve_sparse(base_act, rhs_act, sparse_base, d, j_b, j_c)
             step = np.abs(u - xa[:, :nu])
             small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:, :nu])) + abs_tol,
                            axis=1)
@@ -259,26 +276,20 @@ class NewtonProblem:
                 ahead = (true_b[still], true_c[still], {k: v[still] for k, v in d_new.items()})
         return x, (vbe_old, vbc_old), converged, iterations
 
-    def _sparse_base(self, base, rhs):
-        """The linear part of the active samples' systems as the sparse plan's entries (P, K) and
-        right-hand sides (m, K), samples last (kept while the active set does not change)."""
-        positions, _, _, _ = self._sparse_plan(base.shape[1])
-        count = base.shape[0]
-        return (np.ascontiguousarray(base.reshape(count, -1)[:, positions].T), np.ascontiguousarray(rhs.T))
-
-    def _solve_sparse(self, base, rhs, sparse_base, d, j_b, j_c):
-        """One Newton step's linear systems through the planned sparse elimination: the linear part
-        plus every companion model scattered into the pattern's entries; dense LAPACK for the
-        samples whose pivots the plan does not suit."""
-        m = base.shape[1]
-        _, elimination, conductances, currents = self._sparse_plan(m)
-        values = conductances.last(np.concatenate([d[k].T for k in _COMPANION]), sparse_base[0].copy())
-        right = currents.last(np.concatenate([j_b.T, j_c.T]), sparse_base[1].copy())
-        x, ok = elimination.solve(values, right, check_residual=False)
+    def _solve_sparse(self, entries, right, dense, d, j_b, j_c):
+        """One Newton step's linear systems through the planned sparse elimination: the linear
+        part's entries (P, K) and right-hand sides (m, K), plus every companion model scattered
+        into them; dense LAPACK (``dense(local)`` gives those samples' linear part) for the samples
+        whose pivots the plan does not suit."""
+        _, elimination, conductances, currents = self._sparse_plan(right.shape[0])
+        values = conductances.last(np.concatenate([d[k].T for k in _COMPANION]), entries.copy())
+        rhs = currents.last(np.concatenate([j_b.T, j_c.T]), right.copy())
+        x, ok = elimination.solve(values, rhs, check_residual=False)
         x = x.T.copy()
         bad = np.flatnonzero(~ok)
         if bad.size:
-            matrix, b = base[bad].copy(), rhs[bad].copy()
+            matrix, b = dense(bad)
+            matrix, b = matrix.copy(), b.copy()
             self._stamp_companion(matrix, b, {k: v[bad] for k, v in d.items()}, j_b[bad], j_c[bad])
             x[bad], ok[bad] = solve_batch(matrix, b, check_residual=False)
         return x, ok
@@ -363,7 +374,7 @@ _COMPANION = ("b_be", "b_bc", "c_be", "c_bc")
 _MODEL_PARAMETERS = ("beta", "beta_reverse", "saturation_current", "early_voltage", "emission_coefficient")
 
 
-def solve_newton(layout, params, start=None, warm_start: bool = True):
+def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bool = False):
     """Solve the Ebers–Moll equations for every sample.
 
     Attempts, each on the samples the previous ones left unsolved:
@@ -386,6 +397,9 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
         Called only for the samples that need it. None: start from zero.
     warm_start : bool
         Allow attempt 1.
+    sparse : bool
+        Solve Newton's linear systems through the planned sparse elimination (batches); False
+        solves each densely (single solves).
 
     Returns
     -------
@@ -402,7 +416,7 @@ def solve_newton(layout, params, start=None, warm_start: bool = True):
         The answer an ``"overdriven"`` or ``"residual too large"`` sample was refused for (NaN
         elsewhere), for the message that explains it.
     """
-    problem = NewtonProblem(layout, params)
+    problem = NewtonProblem(layout, params, sparse)
     s_count = params.size
     size = layout.size + 1
 
