@@ -138,6 +138,9 @@ def test_entries_equal_the_dense_assembly_at_their_positions(reduced):
                                        ladder_conductance=ladder)
         np.testing.assert_allclose(values, matrix[:, rows, cols].T, rtol=1e-14, atol=0.0)
         np.testing.assert_allclose(right, scale * rhs[:, :m].T, rtol=1e-14, atol=0.0)
+        some, some_right = layout.entries(params, positions, reduced=reduced, source_scale=scale,
+                                          ladder_conductance=ladder, rows=np.array([3, 1, 3]))
+        assert np.array_equal(some, values[:, [3, 1, 3]]) and np.array_equal(some_right, right[:, [3, 1, 3]])
 
 
 def test_entries_refuse_positions_that_leave_out_a_stamp():

@@ -177,7 +177,7 @@ class Layout:
         return matrix, rhs
 
     def entries(self, params: Parameters, positions: np.ndarray, reduced: bool = False, source_scale=1.0,
-                ladder_conductance=0.0):
+                ladder_conductance=0.0, rows=None):
         """Chosen entries of :meth:`assemble`'s matrix and its right-hand side, with the samples last
         and without ground's row and column, built without the dense matrices.
 
@@ -189,6 +189,8 @@ class Layout:
             Flat positions ``row·m + column`` in the m×m matrix (m = ``size``, or
             ``n_nodes + n_vs`` reduced); they must hold every position a resistor stamp (and the
             conductance ladder, when used) touches.
+        rows : ndarray of int, optional
+            Only these samples of ``params`` (S = their count).
 
         Returns
         -------
@@ -202,8 +204,8 @@ class Layout:
             n = structure.shape[0]
             m = n - 1
             slot = np.full(n * n, -1, dtype=np.intp)
-            rows, cols = positions // m, positions % m
-            slot[rows * n + cols] = np.arange(positions.size)
+            at_row, at_col = positions // m, positions % m
+            slot[at_row * n + at_col] = np.arange(positions.size)
             n_full = self.size + 1
             keep = (np.concatenate([np.arange(self.n_nodes + self.n_vs), [self.size]]) if reduced
                     else np.arange(n_full))
@@ -219,15 +221,17 @@ class Layout:
                                 np.repeat([1.0, 1.0, -1.0, -1.0], n_r)[inside])
             nodes = np.arange(self.n_nodes)
             diagonal = slot[nodes * n + nodes]
-            plan = self._entry_cache[key] = (structure.ravel()[rows * n + cols], resistors, diagonal, volts, amps, n)
+            plan = self._entry_cache[key] = (structure.ravel()[at_row * n + at_col], resistors, diagonal, volts, amps,
+                                             n)
         base, resistors, diagonal, volts, amps, n = plan
-        values = resistors.new_last(params.conductance.T, base)
+        pick = (lambda a: a) if rows is None else (lambda a: a[rows])  # noqa: E731
+        values = resistors.new_last(pick(params.conductance).T, base)
         if np.any(ladder_conductance):
             if np.any(diagonal < 0):
                 raise ValueError("the positions leave out a node's diagonal, which the conductance ladder needs")
             values[diagonal] += ladder_conductance
-        rhs = volts.new_last((params.voltage * source_scale).T, np.zeros(n))
-        amps.last((params.current * source_scale).T, rhs)
+        rhs = volts.new_last((pick(params.voltage) * source_scale).T, np.zeros(n))
+        amps.last((pick(params.current) * source_scale).T, rhs)
         return values, rhs[:n - 1]
 
     def assembled(self, params: Parameters):

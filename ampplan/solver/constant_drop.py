@@ -51,6 +51,7 @@ import numpy as np
 
 from . import regions as rg
 from .linear import solve_batch
+from .assembly import Scatter
 from .sparse import Elimination
 
 #: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
@@ -127,12 +128,27 @@ class RegionProblem:
         self.edge = dev["vbe_on"] if active_edge == "vcb-zero" else dev["vce_sat"]
         self.active_edge = active_edge
         self.table = rg.table("constant-drop", active_edge)
-        self.matrix, self.rhs = layout.assembled(params)
+        self._assembled = None
         # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
         self.ports = np.stack([layout.q_b, layout.q_c, layout.q_e, layout.q_ib, layout.q_ic], axis=1)
         # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
         # alternatives come back to the same few samples many times.
         self._references: dict = {}
+
+    @property
+    def matrix(self):
+        """The linear part of every sample's system, dense (S, size + 1, size + 1), assembled when
+        first needed (a batch's sparse solves never need it)."""
+        if self._assembled is None:
+            self._assembled = self.layout.assembled(self.params)
+        return self._assembled[0]
+
+    @property
+    def rhs(self):
+        """The right-hand sides of :attr:`matrix`, (S, size + 1)."""
+        if self._assembled is None:
+            self._assembled = self.layout.assembled(self.params)
+        return self._assembled[1]
 
     def solve(self, samples, regions):
         """Solve the linear equations of assignments ``regions`` for samples ``samples``, directly.
@@ -198,21 +214,22 @@ class RegionProblem:
         the planned pivots do not suit a sample (the caller solves those densely)."""
         lay = self.layout
         n = lay.size
-        positions, elimination = _sparse_plan(lay, assignment)
+        positions, elimination, constant, per_sample, device_rhs = _sparse_plan(lay, assignment)
         out_x = np.empty((len(samples), n + 1))
         out_ok = np.empty(len(samples), dtype=bool)
-        chunk = max(1, WORK_BYTES // (8 * (n + 1) ** 2))
+        chunk = max(1, WORK_BYTES // (8 * 4 * (elimination.n_slots + n)))
+        dev = self.dev
         for start in range(0, len(samples), chunk):
-            part = slice(start, start + chunk)
-            smp = samples[part]
-            matrix = self.matrix[smp]
-            rhs = self.rhs[smp]
-            self._stamp(matrix, rhs, smp, np.broadcast_to(assignment, (smp.size, assignment.size)))
-            values = matrix.reshape(smp.size, -1)[:, positions].T
-            x, ok = elimination.solve(np.ascontiguousarray(values), np.ascontiguousarray(rhs[:, :n].T))
-            out_x[part, :n] = x.T
-            out_x[part, n] = 0.0
-            out_ok[part] = ok
+            smp = samples[start:start + chunk]
+            # The linear part straight into the pattern's entries, samples last, then the device rows.
+            values, rhs = lay.entries(self.params, positions, rows=smp)
+            values[constant[0]] += constant[1][:, None]
+            per_sample.last(np.concatenate([dev["beta"][smp].T, dev["beta_reverse"][smp].T + 1.0]), values)
+            device_rhs.last(np.concatenate([self.vbe_on[smp].T, self.vbc_on[smp].T, self.edge[smp].T]), rhs)
+            x, ok = elimination.solve(values, rhs)
+            out_x[start:start + chunk, :n] = x.T
+            out_x[start:start + chunk, n] = 0.0
+            out_ok[start:start + chunk] = ok
         return out_x, out_ok
 
     def solve_ports(self, samples, regions):
@@ -400,13 +417,17 @@ class RegionProblem:
 
 def _sparse_plan(layout, assignment):
     """The sparse elimination of one region assignment's system, planned once per layout on the
-    circuit's own values (so the pivots depend on the circuit, never on a batch): flat positions
-    of the pattern's entries in the stamped (size + 1)² matrix, and the
-    :class:`~ampplan.solver.sparse.Elimination`.
+    circuit's own values (so the pivots depend on the circuit, never on a batch).
 
-    The pattern is the nonzero entries of that matrix: every entry a stamp can touch is nonzero for
-    any valid values (conductances, β and the unit incidences never cancel), so it is every
-    sample's pattern too."""
+    Returns flat positions (row·size + column) of the pattern's entries, the
+    :class:`~ampplan.solver.sparse.Elimination`, and the device rows of the assignment as
+    :meth:`RegionProblem._stamp` writes them: the constant coefficients (entry indices, values),
+    a scatter of the per-sample ones over (-β, β_R + 1) of every transistor (2N values), and a
+    scatter of the right-hand sides over (V_BE(on), V_BC(on), edge) (3N values).
+
+    The pattern is the nonzero entries of the stamped matrix: every entry a stamp can touch is
+    nonzero for any valid values (conductances, β and the unit incidences never cancel), so it is
+    every sample's pattern too."""
     key = assignment.astype(np.int8).tobytes()
     plan = layout.region_plans.get(key)
     if plan is None:
@@ -415,7 +436,42 @@ def _sparse_plan(layout, assignment):
         matrix, rhs = nominal.matrix.copy(), nominal.rhs.copy()
         nominal._stamp(matrix, rhs, np.zeros(1, dtype=np.intp), assignment[None, :])
         rows, cols = np.nonzero(matrix[0, :n, :n])
-        plan = (rows * (n + 1) + cols, Elimination(n, rows, cols, matrix[0, rows, cols]))
+        slot = np.full((n + 1) * (n + 1), -1, dtype=np.intp)
+        slot[rows * (n + 1) + cols] = np.arange(rows.size)
+        n_q = layout.n_bjt
+        constant: dict = {}
+        varying, right = [], []          # (entry, source, weight), (row, source, weight)
+        for j in range(n_q):
+            r, sg = int(assignment[j]), float(layout.sign[j])
+            ib, ic, b, c, e = (int(a[j]) for a in (layout.q_ib, layout.q_ic, layout.q_b, layout.q_c, layout.q_e))
+            terms = []
+            if r == CUTOFF:
+                terms.append((ib, ib, 1.0))
+            elif r in (ACTIVE, SATURATION):
+                terms += [(ib, b, sg), (ib, e, -sg)]
+                right.append((ib, j, 1.0))
+            else:
+                terms += [(ib, b, sg), (ib, c, -sg)]
+                right.append((ib, n_q + j, 1.0))
+            if r != SATURATION:
+                terms.append((ic, ic, 1.0))
+            if r == ACTIVE:
+                varying.append((slot[ic * (n + 1) + ib], j, -1.0))
+            elif r == REVERSE:
+                varying.append((slot[ic * (n + 1) + ib], n_q + j, 1.0))
+            else:
+                if r == SATURATION:
+                    terms += [(ic, c, sg), (ic, e, -sg)]
+                    right.append((ic, 2 * n_q + j, 1.0))
+            for row, col, value in terms:
+                if col < n:
+                    constant[(row, col)] = constant.get((row, col), 0.0) + value
+        kept = [(slot[row * (n + 1) + col], value) for (row, col), value in constant.items() if value != 0.0]
+        pick = lambda items, k: np.array([t[k] for t in items])  # noqa: E731
+        plan = (rows * n + cols, Elimination(n, rows, cols, matrix[0, rows, cols]),
+                (pick(kept, 0).astype(np.intp), pick(kept, 1).astype(float)),
+                Scatter(pick(varying, 0), pick(varying, 1), pick(varying, 2)),
+                Scatter(pick(right, 0), pick(right, 1), pick(right, 2)))
         layout.region_plans[key] = plan
     return plan
 
