@@ -248,11 +248,26 @@ class IncrementalSystem:
             rows = every[:, 0].astype(np.intp) * n + every[:, 1].astype(np.intp)
             cols = every[:, 0].astype(np.intp) * n + every[:, 2].astype(np.intp)
             entries, entry_of = np.unique(rows * total + cols, return_inverse=True)
-            # Terms that read the table's constant column (column 0, always 1) are summed once here.
-            constant = every[:, 3] == 0
-            fixed = np.zeros(entries.size)
-            np.add.at(fixed, entry_of[constant], every[constant, 4])
-            values_plan = (fixed, Scatter(entry_of[~constant], every[~constant, 3], every[~constant, 4]))
+            entry_of = entry_of.ravel()
+            # Entries that are the same sum of table columns (most of them: every variant repeats
+            # the base's stamps) are computed once, as one "kind", and copied into place.
+            terms: list = [[] for _ in range(entries.size)]
+            for e, column, coefficient in zip(entry_of.tolist(), every[:, 3].astype(np.intp).tolist(),
+                                              every[:, 4].tolist()):
+                terms[e].append((column, coefficient))
+            kinds: dict = {}
+            kind_of = np.array([kinds.setdefault(tuple(sorted(t)), len(kinds)) for t in terms], dtype=np.intp)
+            fixed = np.zeros(len(kinds))
+            position, source, weight = [], [], []
+            for signature, k in kinds.items():
+                for column, coefficient in signature:
+                    if column == 0:          # the table's constant column (always 1), summed here
+                        fixed[k] += coefficient
+                    else:
+                        position.append(k)
+                        source.append(column)
+                        weight.append(coefficient)
+            values_plan = (fixed, Scatter(position, source, weight), kind_of)
             n_q = self.layout.n_bjt
             g_m, g_o = 1e-3 / 0.025, 1e-3 / 100.0
             g = np.zeros((1, n_q, 2, 2))
@@ -260,7 +275,7 @@ class IncrementalSystem:
             typical = self._values(np.full((1, self.n_r), 1e-3),
                                    TransistorModels(g, np.zeros((1, n_q), dtype=bool), np.full((1, n_q), 100.0)),
                                    self.layout.sign)
-            representative = values_plan[1].new_last(typical.T, fixed)[:, 0]
+            representative = values_plan[1].new_last(typical.T, fixed)[kind_of, 0]
             elimination = Elimination(total, entries // total, entries % total, representative, block=n)
             self._sparse = (elimination, values_plan)
         return self._sparse
@@ -343,10 +358,10 @@ class IncrementalSystem:
         elimination, values_plan = self._sparse_plan()
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
-        fixed, varying = values_plan
-        values = varying.new_last(columns, fixed)
+        fixed, varying, kind_of = values_plan
+        kinds = varying.new_last(columns, fixed)
         rhs = self._rhs_plan.new_last(columns, np.zeros(n_var * n))
-        solution, ok = elimination.solve(values, rhs, check_residual=False)
+        solution, ok = elimination.solve(kinds, rhs, check_residual=False, take=kind_of)
         x = solution.reshape(n_var, n, s_count).transpose(2, 0, 1).copy()
         bad = np.flatnonzero(~ok)
         if bad.size:

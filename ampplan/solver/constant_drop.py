@@ -430,11 +430,18 @@ def _sparse_plan(layout, assignment):
     every sample's pattern too."""
     key = assignment.astype(np.int8).tobytes()
     plan = layout.region_plans.get(key)
+    if plan is not None:
+        return plan
+    n = layout.size
+    nominal = RegionProblem(layout, layout.parameters())
+    matrix, rhs = nominal.matrix.copy(), nominal.rhs.copy()
+    nominal._stamp(matrix, rhs, np.zeros(1, dtype=np.intp), assignment[None, :])
+    # Kept across layouts too (a plan compiled again, chunk by chunk, has a new layout): by
+    # everything the plan is made of, the stamped matrix and where the device rows sit.
+    shared = (matrix.tobytes(), key) + tuple(a.tobytes() for a in (layout.q_ib, layout.q_ic, layout.q_b, layout.q_c,
+                                                                    layout.q_e, layout.sign))
+    plan = _PLANS.get(shared)
     if plan is None:
-        n = layout.size
-        nominal = RegionProblem(layout, layout.parameters())
-        matrix, rhs = nominal.matrix.copy(), nominal.rhs.copy()
-        nominal._stamp(matrix, rhs, np.zeros(1, dtype=np.intp), assignment[None, :])
         rows, cols = np.nonzero(matrix[0, :n, :n])
         slot = np.full((n + 1) * (n + 1), -1, dtype=np.intp)
         slot[rows * (n + 1) + cols] = np.arange(rows.size)
@@ -472,8 +479,16 @@ def _sparse_plan(layout, assignment):
                 (pick(kept, 0).astype(np.intp), pick(kept, 1).astype(float)),
                 Scatter(pick(varying, 0), pick(varying, 1), pick(varying, 2)),
                 Scatter(pick(right, 0), pick(right, 1), pick(right, 2)))
-        layout.region_plans[key] = plan
+        _PLANS[shared] = plan
+        while len(_PLANS) > _PLANS_KEPT:
+            _PLANS.pop(next(iter(_PLANS)))
+    layout.region_plans[key] = plan
     return plan
+
+
+#: Sparse plans by circuit and assignment, oldest first; at most _PLANS_KEPT are kept.
+_PLANS: dict = {}
+_PLANS_KEPT = 64
 
 
 @functools.lru_cache(maxsize=None)

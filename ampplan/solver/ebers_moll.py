@@ -302,14 +302,20 @@ class NewtonProblem:
         V_A = 100 V)."""
         lay = self.layout
         plan = lay.region_plans.get("ebers-moll")
+        if plan is not None:
+            return plan
+        base, _ = lay.assemble(lay.parameters(), reduced=True)
+        matrix = np.ascontiguousarray(base[:, :m, :m])
+        n_q = lay.n_bjt
+        g_m = 1e-3 / 0.025
+        typical = {"b_be": np.full((1, n_q), g_m / 100.0), "b_bc": np.full((1, n_q), 1e-12),
+                   "c_be": np.full((1, n_q), g_m), "c_bc": np.full((1, n_q), -1e-5)}
+        self._stamp_companion(matrix, np.zeros((1, m)), typical, np.zeros((1, n_q)), np.zeros((1, n_q)))
+        # Kept across layouts too (a plan compiled again, chunk by chunk, has a new layout), by
+        # everything the plan is made of.
+        shared = (matrix.tobytes(), np.array(self.terminals).tobytes(), lay.n_nodes)
+        plan = _PLANS.get(shared)
         if plan is None:
-            base, _ = lay.assemble(lay.parameters(), reduced=True)
-            matrix = np.ascontiguousarray(base[:, :m, :m])
-            n_q = lay.n_bjt
-            g_m = 1e-3 / 0.025
-            typical = {"b_be": np.full((1, n_q), g_m / 100.0), "b_bc": np.full((1, n_q), 1e-12),
-                       "c_be": np.full((1, n_q), g_m), "c_bc": np.full((1, n_q), -1e-5)}
-            self._stamp_companion(matrix, np.zeros((1, m)), typical, np.zeros((1, n_q)), np.zeros((1, n_q)))
             pattern = matrix[0] != 0.0
             nodes = np.arange(lay.n_nodes)
             pattern[nodes, nodes] = True
@@ -339,7 +345,10 @@ class NewtonProblem:
                     j_wt += [-sign * sg] * len(j)
             plan = (rows * m + cols, Elimination(m, rows, cols, matrix[0, rows, cols]),
                     Scatter(g_pos, g_src, g_wt), Scatter(j_pos, j_src, j_wt))
-            lay.region_plans["ebers-moll"] = plan
+            _PLANS[shared] = plan
+            while len(_PLANS) > _PLANS_KEPT:
+                _PLANS.pop(next(iter(_PLANS)))
+        lay.region_plans["ebers-moll"] = plan
         return plan
 
     def _stamp_companion(self, matrix, rhs, d, j_b, j_c):
@@ -366,6 +375,10 @@ class NewtonProblem:
                     matrix[:, node, c] -= sign * g_bc
                 rhs[:, node] -= sign * s * j
 
+
+#: Sparse Newton plans by circuit, oldest first; at most _PLANS_KEPT are kept.
+_PLANS: dict = {}
+_PLANS_KEPT = 64
 
 #: The companion conductances of each transistor, in the order the sparse plan's scatter reads them.
 _COMPANION = ("b_be", "b_bc", "c_be", "c_bc")

@@ -213,13 +213,15 @@ class Elimination:
         return targets, passes
 
     # -- running ----------------------------------------------------------------------------------
-    def factor(self, values: np.ndarray) -> np.ndarray:
+    def factor(self, values: np.ndarray, take=None) -> np.ndarray:
         """LU factors of every sample.
 
         Parameters
         ----------
         values : ndarray, shape (P, S)
             The pattern's entries (in the order of ``rows``, ``cols``) for S samples.
+        take : ndarray of int, shape (P,), optional
+            The entries are ``values[take]`` (entries that share a value given once).
 
         Returns
         -------
@@ -227,9 +229,13 @@ class Elimination:
             L (below the pivots, unit diagonal implied) and U in the planned slots.
         """
         s_count = values.shape[1]
+        count = self.positions.size
         a = np.empty((self.n_slots, s_count))
-        a[:values.shape[0]] = values
-        a[values.shape[0]:] = 0.0
+        if take is None:
+            a[:count] = values
+        else:
+            np.take(values, take, axis=0, out=a[:count])
+        a[count:] = 0.0
         with np.errstate(all="ignore"):
             for col, piv, target, left, right in self._factor_levels:
                 a[col] /= a[piv]
@@ -253,7 +259,7 @@ class Elimination:
                 x[targets] /= factors[pivots]
         return x
 
-    def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True
+    def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True, take=None
               ) -> tuple[np.ndarray, np.ndarray]:
         """Solve A·x = rhs for every sample.
 
@@ -264,6 +270,8 @@ class Elimination:
         check_residual : bool
             Also apply the residual test (about as costly as the solve itself for large batches
             of small systems; an exactly singular matrix is caught without it).
+        take : ndarray of int, shape (P,), optional
+            As for :meth:`factor`.
 
         Returns
         -------
@@ -277,7 +285,9 @@ class Elimination:
         s_count = rhs.shape[1]
         if self.singular:
             return np.full(rhs.shape, np.nan), np.zeros(s_count, dtype=bool)
-        factors = self.factor(values)
+        factors = self.factor(values, take)
+        if take is not None and check_residual:
+            values = values[take]
         with np.errstate(all="ignore"):
             x = self.substitute(factors, rhs)
             ok = np.all(np.isfinite(x), axis=0)
