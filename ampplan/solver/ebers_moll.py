@@ -64,6 +64,12 @@ VOLTAGE_TOLERANCE = 1e-9    # volts
 CURRENT_TOLERANCE = 1e-15   # amperes
 #: Amperes: the device-versus-linearised current test is relative above this (nA currents included).
 FIT_TOLERANCE = 1e-21
+#: Relative: an iterate whose device currents match the linearised ones to this fraction is
+#: converged. A hundredth of RELATIVE_TOLERANCE: the answer's own error is of the order of this
+#: mismatch, and at RELATIVE_TOLERANCE itself two starts (a batch's solved neighbour, a single
+#: solve's own guess) could stop 1e-9 apart; near a solution Newton's mismatch falls quadratically,
+#: so the tighter test rarely costs an iteration.
+FIT_RELATIVE = 1e-11
 #: Relative tolerance of the final check of every answer: Kirchhoff's current law at each node, to
 #: this fraction of the sum of the magnitudes of the currents meeting there, and each transistor's
 #: I_B and I_C against the device equations, to this fraction of the larger of the two values
@@ -260,8 +266,8 @@ class NewtonProblem:
             # voltages already match the linearised ones (which Kirchhoff's law holds exactly):
             # the second test spares the confirming iteration.
             true_b, true_c, d_new = device_currents(vbe_new, vbc_new, d_act, vt_act)
-            fits = np.all((np.abs(true_b - lin_b) <= RELATIVE_TOLERANCE * np.abs(lin_b) + FIT_TOLERANCE)
-                          & (np.abs(true_c - lin_c) <= RELATIVE_TOLERANCE * np.abs(lin_c) + FIT_TOLERANCE),
+            fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
+                          & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE),
                           axis=1)
             done = ok & ((small & ~was_limited) | fits)
             x[active] = np.where(ok[:, None], new, xa)
