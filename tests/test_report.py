@@ -125,3 +125,19 @@ def test_report_of_a_plan_the_solver_cannot_settle(tmp_path, capsys, monkeypatch
     monkeypatch.setattr(ampplan.Plan, "solve", unsettled)
     assert main(["report", "--demo", "-o", str(tmp_path / "r.html")]) == 1
     assert "could not settle" in capsys.readouterr().err and not (tmp_path / "r.html").exists()
+
+
+def test_picture_keeps_the_palette_colours_of_every_layer():
+    # The saved picture is palette-quantised to keep notebooks small; each layer's colour must
+    # survive (within a few levels of 255) so the picture still reads as the canvas does.
+    from PIL import Image
+
+    from ampplan.notebook.look import COLOURS
+    live = ObservablePlan.demo()
+    png = draw_png(plan_planes(live.result, live.plan))
+    image = Image.open(io.BytesIO(png))
+    assert image.mode == "P"
+    present = {colour for _, colour in image.convert("RGB").getcolors(maxcolors=4096)}
+    for name in ("dc", "ac", "qpoint", "swing", "limit", "available", "demanded"):
+        want = tuple(int(COLOURS[name][k:k + 2], 16) for k in (1, 3, 5))
+        assert any(max(abs(a - b) for a, b in zip(want, c)) <= 12 for c in present), name

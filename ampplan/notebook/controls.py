@@ -24,7 +24,8 @@ from ..errors import AmpplanError
 from ..stages import Parameter
 from ..units import format_quantity, parse_quantity
 
-__all__ = ["QuantityControl", "ChoiceControl", "slider_range", "css_name", "LOG_STEP"]
+__all__ = ["QuantityControl", "ChoiceControl", "slider_range", "css_name", "LOG_STEP", "shared_layout",
+           "shared_style"]
 
 #: Slider step on a log scale, decades: one 24th, the spacing of the E24 series (IEC 60063).
 LOG_STEP = 1.0 / 24.0
@@ -82,6 +83,31 @@ def slider_range(parameter: Parameter, value: float | None, typical=None) -> tup
     if not high > low:
         high = low + (abs(low) or 1.0)
     return float(low), float(high)
+
+
+_SHARED: dict = {}
+
+
+def shared_layout(**properties) -> widgets.Layout:
+    """One ``Layout`` per set of properties, shared by every control that uses it.
+
+    ipywidgets lets widgets share a layout (and a style); each one is a model saved in the
+    notebook's widget state (about 1 kB each), and a plan's editors have hundreds of parts.
+    Never change a shared layout in place: give the widget another one.
+    """
+    key = ("layout", tuple(sorted(properties.items())))
+    if key not in _SHARED:
+        _SHARED[key] = widgets.Layout(**properties)
+    return _SHARED[key]
+
+
+def shared_style(kind: type):
+    """One default style for widgets of ``kind`` (``widgets.HTML``, ...), shared like
+    :func:`shared_layout`."""
+    key = ("style", kind)
+    if key not in _SHARED:
+        _SHARED[key] = kind().style
+    return _SHARED[key]
 
 
 class _ValueLast:
@@ -143,7 +169,8 @@ class QuantityControl(widgets.HBox):
         # ipywidgets' log slider sends back every value it is given, snapped to the grid it has
         # at that moment, and such an echo can arrive after later edits (when cells run ahead of
         # widget messages) and undo them.
-        common = dict(readout=False, continuous_update=False, layout=widgets.Layout(width="210px"))
+        common = dict(readout=False, continuous_update=False, layout=shared_layout(width="210px"),
+                      style=shared_style(widgets.FloatLogSlider))
         if parameter.scale == "log":
             self.slider = _LogSlider(value=start, base=10.0, min=math.log10(low), max=math.log10(high),
                                                  step=LOG_STEP, **common)
@@ -151,19 +178,20 @@ class QuantityControl(widgets.HBox):
             self.slider = _LinearSlider(value=start, min=low, max=high, step=(high - low) / LINEAR_STEPS,
                                               **common)
         self.text = widgets.Text(value=self._shown(value), continuous_update=False,
-                                 layout=widgets.Layout(width="110px"))
+                                 layout=shared_layout(width="110px"), style=shared_style(widgets.Text))
         self.text.add_class("ampplan-control-text")
         self.fitted = widgets.Checkbox(value=value is not None, indent=False, description="fitted",
-                                       layout=widgets.Layout(width="72px"))
+                                       layout=shared_layout(width="72px"), style=shared_style(widgets.Checkbox))
         self.label = widgets.HTML(f"<span title='{html.escape(parameter.help)}'>{html.escape(label or address)}"
-                                  f"</span>", layout=widgets.Layout(width="150px"))
-        self.message = widgets.HTML("", layout=widgets.Layout(width="auto"))
+                                  f"</span>", layout=shared_layout(width="150px"),
+                                  style=shared_style(widgets.HTML))
+        self.message = widgets.HTML("", layout=shared_layout(width="auto"), style=shared_style(widgets.HTML))
         self.message.add_class("ampplan-control-message")
         children = [self.label, self.slider, self.text]
         if parameter.optional:
             children.append(self.fitted)
         children.append(self.message)
-        super().__init__(children=children, value=value)
+        super().__init__(children=children, value=value, layout=shared_layout())
         self.add_class("ampplan-control")
         self.add_class(f"ampplan-control-{css_name(address)}")
         self.slider.disabled = value is None
@@ -317,11 +345,12 @@ class ChoiceControl(widgets.HBox):
         self._accept = accept
         self._quiet = False
         self._last_good = value
-        self.dropdown = widgets.Dropdown(options=list(options), value=value, layout=widgets.Layout(width="320px"))
-        self.label = widgets.HTML(html.escape(label), layout=widgets.Layout(width="150px"))
-        self.message = widgets.HTML("")
+        self.dropdown = widgets.Dropdown(options=list(options), value=value, layout=shared_layout(width="320px"))
+        self.label = widgets.HTML(html.escape(label), layout=shared_layout(width="150px"),
+                                  style=shared_style(widgets.HTML))
+        self.message = widgets.HTML("", layout=shared_layout(), style=shared_style(widgets.HTML))
         self.message.add_class("ampplan-control-message")
-        super().__init__(children=[self.label, self.dropdown, self.message], value=value)
+        super().__init__(children=[self.label, self.dropdown, self.message], value=value, layout=shared_layout())
         self.add_class("ampplan-control")
         self.add_class(f"ampplan-control-{css_name(address)}")
         self.dropdown.observe(self._from_dropdown, names="value")
