@@ -114,6 +114,8 @@ class Layout:
         self._parameter_cache: dict = {}
         self._assembly_cache: dict = {}
         self._entry_cache: dict = {}
+        #: Stamped constant-drop systems of single solves, by parameters, edge, sample and assignment.
+        self.stamped: dict = {}
         #: Planned sparse eliminations of the constant-drop systems, by region assignment.
         self.region_plans: dict = {}
 

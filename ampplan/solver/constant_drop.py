@@ -75,6 +75,8 @@ WORK_BYTES = 16 * 2**20
 #: region assignment, up to this many unknowns; beyond it, and in single solves, LAPACK solves one
 #: dense system at a time.
 SPARSE_ORDER = 400
+#: Stamped single systems kept per layout (the circuit's own parameters only).
+STAMPED_KEPT = 128
 
 CUTOFF, ACTIVE, SATURATION, REVERSE = rg.CUTOFF, rg.ACTIVE, rg.SATURATION, rg.REVERSE
 
@@ -167,6 +169,8 @@ class RegionProblem:
         """
         n = self.layout.size
         count = len(samples)
+        if count == 1 and not self.sparse:
+            return self._solve_one(samples, regions)
         if not self.sparse or count == 0:
             return self._solve_dense(samples, regions)
         # Systems that share an assignment share a sparsity pattern: the planned sparse elimination
@@ -188,6 +192,42 @@ class RegionProblem:
         if rest.size:
             out_x[rest], out_ok[rest] = self._solve_dense(samples[rest], regions[rest])
         return out_x, out_ok
+
+    def _solve_one(self, samples, regions):
+        """:meth:`solve` for one system, lean: one LAPACK solve of the stamped matrix (kept per
+        assignment when the parameters are the circuit's own, so repeated single solves of an
+        unchanged circuit stamp it once) and :func:`~.linear.solve_batch`'s residual test."""
+        lay = self.layout
+        n = lay.size
+        k = int(samples[0])
+        key = (id(self.params), self.active_edge, k, regions.tobytes())
+        kept = lay.stamped.get(key)
+        if kept is None or kept[0] is not self.params:
+            matrix, rhs = self.matrix[samples], self.rhs[samples]
+            self._stamp(matrix, rhs, samples, regions)
+            kept = (self.params, np.ascontiguousarray(matrix[0, :n, :n]), np.ascontiguousarray(rhs[0, :n]))
+            if self._assembled is not None and not self._assembled[0].flags.writeable:
+                # The layout's own parameters (read-only, kept): keep the stamped system too.
+                if len(lay.stamped) >= STAMPED_KEPT:
+                    lay.stamped.pop(next(iter(lay.stamped)))
+                lay.stamped[key] = kept
+        _, a, b = kept
+        out = np.empty((1, n + 1))
+        out[0, n] = 0.0
+        try:
+            x = np.linalg.solve(a, b)
+        except np.linalg.LinAlgError:
+            out[0, :n] = np.nan
+            return out, np.zeros(1, dtype=bool)
+        with np.errstate(all="ignore"):
+            ok = bool(np.all(np.isfinite(x)))
+            if ok:
+                # The residual test of linear.solve_batch.
+                resid = np.abs(a @ x - b).max(initial=0.0)
+                ok = resid <= 1e-8 * (np.abs(a).max(initial=0.0) * np.abs(x).max(initial=0.0)
+                                      + np.abs(b).max(initial=0.0)) + 1e-300
+        out[0, :n] = x if ok else np.nan
+        return out, np.array([ok])
 
     def _solve_dense(self, samples, regions):
         """:meth:`solve` one dense LAPACK solve per system."""
