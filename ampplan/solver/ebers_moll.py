@@ -487,7 +487,9 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
                 x[moved[ok]] = xs[ok]
     left = left[~converged[left]]
     if left.size:
-        left = attempt(left, *own_start(left), "newton")
+        # Blocks of BLOCK samples, as above: working arrays that stay in cache.
+        left = np.concatenate([attempt(rows, *own_start(rows), "newton")
+                               for rows in np.array_split(left, -(-left.size // BLOCK))])
     for label, rungs in (("conductance ladder", [{"ladder_conductance": g} for g in LADDER]),
                          ("source stepping", [{"scale": a} for a in np.linspace(0.0, 1.0, SOURCE_STEPS + 1)])):
         if not left.size:
