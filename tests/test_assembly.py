@@ -163,3 +163,14 @@ def test_entries_refuse_positions_that_leave_out_a_stamp():
         layout.entries(params, positions, ladder_conductance=1e-3)
     with pytest.raises(ValueError, match="resistor stamps"):
         layout.entries(params, positions[positions != layout.index["b"] * (m + 1)])
+
+
+def test_a_kept_temperature_is_not_validated_again_but_a_bad_one_still_is():
+    from ampplan.errors import InvalidValueError
+    layout = layout_of(_circuit())
+    one = layout.parameters(1.0)
+    assert layout.parameters(1.0) is one
+    with pytest.raises(InvalidValueError, match="temperature"):
+        layout.parameters(True)            # equal to 1.0 as a key, but not a temperature
+    with pytest.raises(InvalidValueError, match="temperature"):
+        layout.parameters(float("nan"))

@@ -303,6 +303,11 @@ class Layout:
         UnknownNameError
             A batch key that names no element or transistor parameter.
         """
+        if not batch and type(temperature) is float:
+            # A single solve at a temperature already validated and kept: nothing to check again.
+            cached = self._parameter_cache.get(temperature)
+            if cached is not None:
+                return cached
         temperature = check_temperature(temperature)
         if batch is not None and not isinstance(batch, Mapping):
             raise InvalidValueError(f"batch must be a dict of name -> values, got {type(batch).__name__}")

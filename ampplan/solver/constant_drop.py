@@ -398,17 +398,25 @@ class RegionProblem:
             Margin above minus a rounding tolerance scaled to the circuit's voltages and currents.
         """
         lay = self.layout
-        s = lay.sign
-        v_be = s * (x[:, lay.q_b] - x[:, lay.q_e])
-        v_bc = s * (x[:, lay.q_b] - x[:, lay.q_c])
-        i_b = x[:, lay.q_ib]
-        i_c = x[:, lay.q_ic]
-        beta = self.dev["beta"][samples]
-        zero = np.zeros_like(i_b)
-        # The quantity and limit slots of the shared check table (regions.QUANTITIES, LIMITS).
-        quantities = np.stack([v_be, v_bc, v_be - v_bc, -v_bc, i_b, i_c], axis=-1)
-        bounds = np.stack([self.vbe_on[samples], self.vbc_on[samples], self.edge[samples], zero, beta * i_b,
-                           -self.dev["vce_sat"][samples]], axis=-1)
+        k_count, n_q = regions.shape
+        # The quantity and limit slots of the shared check table (regions.QUANTITIES, LIMITS),
+        # written into place: (v_be, v_bc, v_ce, v_cb, i_b, i_c) and (V_BE(on), V_BC(on), edge, 0,
+        # β·I_B, -V_CE(sat)).
+        ports = x[:, self.ports]                     # (K, N, 5): V_B, V_C, V_E, I_B, I_C
+        s = lay.sign[:, None]
+        quantities = np.empty((k_count, n_q, 6))
+        quantities[..., 0] = s.T * (ports[..., 0] - ports[..., 2])
+        quantities[..., 1] = s.T * (ports[..., 0] - ports[..., 1])
+        quantities[..., 2] = quantities[..., 0] - quantities[..., 1]
+        quantities[..., 3] = -quantities[..., 1]
+        quantities[..., 4:] = ports[..., 3:]
+        bounds = np.empty((k_count, n_q, 6))
+        bounds[..., 0] = self.vbe_on[samples]
+        bounds[..., 1] = self.vbc_on[samples]
+        bounds[..., 2] = self.edge[samples]
+        bounds[..., 3] = 0.0
+        bounds[..., 4] = self.dev["beta"][samples] * ports[..., 3]
+        bounds[..., 5] = -self.dev["vce_sat"][samples]
         reg = regions.astype(np.intp)
         values, limits, margins = self.table.evaluate(quantities, bounds, reg)
         # Rounding tolerance: relative to the largest voltage and the largest current in the answer.
