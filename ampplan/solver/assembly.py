@@ -303,7 +303,7 @@ class Layout:
         UnknownNameError
             A batch key that names no element or transistor parameter.
         """
-        if not batch and type(temperature) is float:
+        if batch is None and type(temperature) is float:
             # A single solve at a temperature already validated and kept: nothing to check again.
             cached = self._parameter_cache.get(temperature)
             if cached is not None:
