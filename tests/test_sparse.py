@@ -141,3 +141,38 @@ def test_the_residual_test_rejects_an_unstable_answer(monkeypatch):
     x, ok = plan.solve(values, rhs, check_residual=False)
     assert ok.tolist() == [True, True]            # only the residual test saw it
     assert np.max(np.abs(x[:, 1] - np.linalg.solve([[1e-20, 1.0], [1.0, 1.0]], [1.0, 2.0]))) > 0.5
+
+
+def test_ebers_moll_batches_through_the_sparse_plan_agree_with_lapack(monkeypatch):
+    # Newton's linear systems of a large batch go through the planned elimination, a small batch's
+    # through LAPACK (numpy.linalg.solve); the same samples either way agree to Newton's tolerance.
+    import ampplan
+    from ampplan.solver import ebers_moll as em
+    from ampplan.solver.assembly import layout_of
+
+    def chain():
+        c = ampplan.Circuit()
+        c.voltage_source("VCC", "vcc", "gnd", 12.0)
+        for name, a, b, r in [("R1", "vcc", "b1", 47e3), ("R2", "b1", "gnd", 10e3), ("RC1", "vcc", "c1", 4.7e3),
+                              ("RE1", "e1", "gnd", 1e3), ("RC2", "vcc", "c2", 3.3e3), ("RE2", "e2", "gnd", 3.9e3)]:
+            c.resistor(name, a, b, r)
+        c.bjt("Q1", collector="c1", base="b1", emitter="e1", device=ampplan.Transistor())
+        c.bjt("Q2", collector="c2", base="c1", emitter="e2", device=ampplan.Transistor())
+        return c
+
+    rng = np.random.default_rng(2)
+    size = em.SPARSE_MIN_BATCH + 44
+    batch = {"RC1": rng.uniform(2e3, 9e3, size), "Q2.beta": rng.uniform(50.0, 400.0, size)}
+    circuit = chain()
+    sparse = circuit.solve(model="ebers-moll", batch=batch)
+    assert "ebers-moll" in layout_of(circuit).region_plans
+    small = chain()
+    few = {k: v[:8] for k, v in batch.items()}
+    small.solve(model="ebers-moll", batch=few)
+    assert "ebers-moll" not in layout_of(small).region_plans
+    monkeypatch.setattr(em, "SPARSE_ORDER", -1)            # every batch through LAPACK
+    dense = chain().solve(model="ebers-moll", batch=batch)
+    for name in sparse.v:
+        np.testing.assert_allclose(sparse.v[name], dense.v[name], rtol=1e-9, atol=1e-12)
+    for name in sparse.transistors:
+        np.testing.assert_allclose(sparse.transistors[name].ic, dense.transistors[name].ic, rtol=1e-9, atol=1e-15)

@@ -55,6 +55,11 @@ BLOCK = 2048
 #: A batch's Newton steps solve their linear systems through the planned sparse elimination
 #: (:mod:`.sparse`) up to this many unknowns; beyond it, and in single solves, LAPACK.
 SPARSE_ORDER = 400
+#: ... and for batches of at least this many samples: below it, the elimination's fixed cost per
+#: step outweighs LAPACK's (the clipping search of one plan solves batches of a few dozen). Newton
+#: answers agree to its tolerance either way; a warm-started batch never matched its single solves
+#: bit for bit anyway.
+SPARSE_MIN_BATCH = 256
 #: Iterations allowed from a solved neighbour before the sample restarts from its own guess.
 WARM_ITERATIONS = 40
 LADDER = (1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9, 1e-10, 1e-11, 1e-12, 0.0)
@@ -141,7 +146,7 @@ class NewtonProblem:
     def __init__(self, layout, params, sparse: bool = False):
         self.layout = layout
         self.params = params
-        self.sparse = sparse and layout.n_nodes + layout.n_vs <= SPARSE_ORDER
+        self.sparse = sparse and layout.n_nodes + layout.n_vs <= SPARSE_ORDER and params.size >= SPARSE_MIN_BATCH
         self.dev = params.at_temperature
         self.v_t = thermal_voltage(params.temperature[:, None])
         nvt = self.dev["emission_coefficient"] * self.v_t
