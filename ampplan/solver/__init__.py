@@ -402,6 +402,27 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
         circuit=circuit, unknowns=x[:, :n].copy())
 
 
+class _Names:
+    """A layout's element names and unknown indices as plain lists, for single solves' results."""
+
+    def __init__(self, layout):
+        self.resistors = [r.name for r in layout.resistors]
+        self.r_a, self.r_b = layout.r_a.tolist(), layout.r_b.tolist()
+        self.voltage_sources = [src.name for src in layout.voltage_sources]
+        self.vs_row = layout.vs_row.tolist()
+        self.current_sources = [src.name for src in layout.current_sources]
+        self.transistors = list(zip(layout.bjts, layout.sign.tolist(), layout.q_ib.tolist(), layout.q_ic.tolist(),
+                                    layout.q_b.tolist(), layout.q_c.tolist(), layout.q_e.tolist()))
+
+
+def _names(layout) -> _Names:
+    """:class:`_Names` of ``layout`` (kept on it)."""
+    names = getattr(layout, "_result_names", None)
+    if names is None:
+        names = layout._result_names = _Names(layout)
+    return names
+
+
 def _build_single(circuit, layout, params, x, regions, checks, status, model, method, iterations,
                   alternatives=()):
     """The OperatingPoint of one solve from unknowns ``x`` (size + 1,), regions (N,) and checks
@@ -410,27 +431,28 @@ def _build_single(circuit, layout, params, x, regions, checks, status, model, me
     failed = status not in ("ok", "assumption-fails")
     x = np.full(n + 1, np.nan) if failed else x.copy()
     x[n] = 0.0
+    names_of = _names(layout)
+    xl = x.tolist()
     v = {"gnd": 0.0}
-    v.update(zip(layout.nodes, x[:layout.n_nodes].tolist()))
-    currents = dict(zip([r.name for r in layout.resistors],
-                        ((x[layout.r_a] - x[layout.r_b]) * params.conductance[0]).tolist()))
-    currents.update(zip([src.name for src in layout.voltage_sources], (-x[layout.vs_row]).tolist()))
-    currents.update(zip([src.name for src in layout.current_sources], params.current[0].tolist()))
-    ib, ic = x[layout.q_ib], x[layout.q_ic]
-    vbe, vce = x[layout.q_b] - x[layout.q_e], x[layout.q_c] - x[layout.q_e]
-    figures = np.stack([ic, ib, vbe, vce, layout.sign * (vce * ic + vbe * ib)], axis=1).tolist()
+    v.update(zip(layout.nodes, xl[:layout.n_nodes]))
+    g = params.conductance[0].tolist()
+    currents = {name: (xl[a] - xl[b]) * gk for name, a, b, gk in zip(names_of.resistors, names_of.r_a, names_of.r_b, g)}
+    currents.update((name, -xl[row]) for name, row in zip(names_of.voltage_sources, names_of.vs_row))
+    currents.update(zip(names_of.current_sources, params.current[0].tolist()))
     if failed:
         blank = [[math.nan, math.nan]] * n_q
         names, values, limits, holds, margins = [["", ""]] * n_q, blank, blank, [[False, False]] * n_q, blank
     else:
         names, values, limits, margins, holds = (a.tolist() for a in checks)
     transistors = {}
-    for j, q in enumerate(layout.bjts):
-        c_, b_, be_, ce_, p_ = figures[j]
+    for j, (q, sg, ib_at, ic_at, b_at, c_at, e_at) in enumerate(names_of.transistors):
+        b_, c_ = xl[ib_at], xl[ic_at]
+        be_, ce_ = xl[b_at] - xl[e_at], xl[c_at] - xl[e_at]
         nm, va, li, ho, ma = names[j], values[j], limits[j], holds[j], margins[j]
         transistors[q.name] = TransistorResult(
             name=q.name, polarity=q.device.polarity, region=UNSOLVED if failed else REGIONS[regions[j]],
-            ic=c_, ib=b_, ie=b_ + c_, vbe=be_, vce=ce_, beta_forced=c_ / b_ if b_ != 0 else math.nan, power=p_,
+            ic=c_, ib=b_, ie=b_ + c_, vbe=be_, vce=ce_, beta_forced=c_ / b_ if b_ != 0 else math.nan,
+            power=sg * (ce_ * c_ + be_ * b_),
             checks=(Check(nm[0], va[0], li[0], ho[0], ma[0]), Check(nm[1], va[1], li[1], ho[1], ma[1])))
     return OperatingPoint(
         model=model, v=v, i=currents, transistors=transistors, status=status,

@@ -109,6 +109,8 @@ class Layout:
         self.q_ib = self.n_nodes + self.n_vs + 2 * np.arange(self.n_bjt, dtype=np.intp)
         self.q_ic = self.q_ib + 1
         self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
+        #: Per transistor, the unknowns its device rows touch: V_B, V_C, V_E, I_B, I_C (N, 5).
+        self.ports = np.stack([self.q_b, self.q_c, self.q_e, self.q_ib, self.q_ic], axis=1)
         self.structure = self._structure()
         self._pattern_cache: dict = {}
         self._parameter_cache: dict = {}

@@ -132,7 +132,7 @@ class RegionProblem:
         self.table = rg.table("constant-drop", active_edge)
         self._assembled = None
         # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
-        self.ports = np.stack([layout.q_b, layout.q_c, layout.q_e, layout.q_ib, layout.q_ic], axis=1)
+        self.ports = layout.ports
         # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
         # alternatives come back to the same few samples many times.
         self._references: dict = {}
@@ -659,6 +659,10 @@ def search(problem: RegionProblem, rows: np.ndarray, starts: np.ndarray) -> Sear
     good, _, checks = problem.consistent(rows, regions, x, ok, score=False)
     checks = list(checks)
     solves, deepest = count, 1
+    if good.all():
+        # Every sample consistent at its start (most amplifiers): nothing to repair or search.
+        return Search(regions=regions, found=good, x=x, ok=ok, checks=checks, stale=np.zeros(count, dtype=bool),
+                      ties={}, misses={}, solves=solves, deepest=deepest)
     # Repair, vectorised over the samples still failing; ``history`` holds what each has tried.
     active = np.flatnonzero(~good)
     history = [regions[active]]
