@@ -131,6 +131,7 @@ class RegionProblem:
         self.active_edge = active_edge
         self.table = rg.table("constant-drop", active_edge)
         self._assembled = None
+        self._bounds = None
         # Per transistor, the unknowns its two rows touch: V_B, V_C, V_E, I_B, I_C.
         self.ports = layout.ports
         # Reference solutions of solve_ports by sample (x0, W, regular): the local search and the
@@ -410,20 +411,22 @@ class RegionProblem:
         quantities[..., 2] = quantities[..., 0] - quantities[..., 1]
         quantities[..., 3] = -quantities[..., 1]
         quantities[..., 4:] = ports[..., 3:]
-        bounds = np.empty((k_count, n_q, 6))
-        bounds[..., 0] = self.vbe_on[samples]
-        bounds[..., 1] = self.vbc_on[samples]
-        bounds[..., 2] = self.edge[samples]
-        bounds[..., 3] = 0.0
+        if self._bounds is None:
+            # The limits that do not depend on the answer, for every sample (all but β·I_B).
+            fixed = np.zeros(self.vbe_on.shape + (6,))
+            fixed[..., 0], fixed[..., 1], fixed[..., 2] = self.vbe_on, self.vbc_on, self.edge
+            fixed[..., 5] = -self.dev["vce_sat"]
+            self._bounds = fixed
+        bounds = self._bounds[samples]
         bounds[..., 4] = self.dev["beta"][samples] * ports[..., 3]
-        bounds[..., 5] = -self.dev["vce_sat"][samples]
         reg = regions.astype(np.intp)
         values, limits, margins = self.table.evaluate(quantities, bounds, reg)
         # Rounding tolerance: relative to the largest voltage and the largest current in the answer.
         n_nodes = lay.n_nodes
         with np.errstate(invalid="ignore"):
-            v_scale = np.max(np.abs(x[:, :n_nodes]), axis=1, initial=1.0)
-            i_scale = np.max(np.abs(x[:, n_nodes:lay.size]), axis=1, initial=0.0)
+            size = np.abs(x[:, :lay.size])
+            v_scale = np.max(size[:, :n_nodes], axis=1, initial=1.0)
+            i_scale = np.max(size[:, n_nodes:], axis=1, initial=0.0)
         tol = np.where(self.table.is_current[reg], (1e-9 * i_scale + 1e-18)[:, None, None], (1e-9 * v_scale)[:, None, None])
         holds = margins >= -tol
         return values, limits, margins, holds
