@@ -195,7 +195,7 @@ class RegionProblem:
         return out_x, out_ok
 
     def _solve_one(self, samples, regions):
-        """:meth:`solve` for one system, lean: one LAPACK solve of the stamped matrix (kept per
+        """:meth:`solve` for one system, lean: one LAPACK solve (dgesv) of the stamped matrix (kept per
         assignment when the parameters are the circuit's own, so repeated single solves of an
         unchanged circuit stamp it once) and :func:`~.linear.solve_batch`'s residual test."""
         lay = self.layout
@@ -206,18 +206,19 @@ class RegionProblem:
         if kept is None or kept[0] is not self.params:
             matrix, rhs = self.matrix[samples], self.rhs[samples]
             self._stamp(matrix, rhs, samples, regions)
-            kept = (self.params, np.ascontiguousarray(matrix[0, :n, :n]), np.ascontiguousarray(rhs[0, :n]))
+            a, b = np.ascontiguousarray(matrix[0, :n, :n]), np.ascontiguousarray(rhs[0, :n])
+            kept = (self.params, a, b, np.abs(a).max(initial=0.0), np.abs(b).max(initial=0.0))
             if self._assembled is not None and not self._assembled[0].flags.writeable:
                 # The layout's own parameters (read-only, kept): keep the stamped system too.
                 if len(lay.stamped) >= STAMPED_KEPT:
                     lay.stamped.pop(next(iter(lay.stamped)))
                 lay.stamped[key] = kept
-        _, a, b = kept
+        _, a, b, a_size, b_size = kept
         out = np.empty((1, n + 1))
         out[0, n] = 0.0
-        try:
-            x = np.linalg.solve(a, b)
-        except np.linalg.LinAlgError:
+        # LAPACK's dgesv itself (what numpy.linalg.solve calls, without its wrapper's cost).
+        _, _, x, info = _dgesv()(a, b)
+        if info != 0:
             out[0, :n] = np.nan
             return out, np.zeros(1, dtype=bool)
         with np.errstate(all="ignore"):
@@ -225,8 +226,7 @@ class RegionProblem:
             if ok:
                 # The residual test of linear.solve_batch.
                 resid = np.abs(a @ x - b).max(initial=0.0)
-                ok = resid <= 1e-8 * (np.abs(a).max(initial=0.0) * np.abs(x).max(initial=0.0)
-                                      + np.abs(b).max(initial=0.0)) + 1e-300
+                ok = resid <= 1e-8 * (a_size * np.abs(x).max(initial=0.0) + b_size) + 1e-300
         out[0, :n] = x if ok else np.nan
         return out, np.array([ok])
 
@@ -464,6 +464,18 @@ class RegionProblem:
         new = np.where((regions == REVERSE) & first_fail, CUTOFF, new)
         new = np.where((regions == REVERSE) & ~first_fail & second_fail, SATURATION, new)
         return new
+
+
+def _dgesv():
+    """LAPACK's dgesv through scipy (imported on first use: importing ampplan does not pay for it)."""
+    global _DGESV
+    if _DGESV is None:
+        from scipy.linalg.lapack import dgesv
+        _DGESV = dgesv
+    return _DGESV
+
+
+_DGESV = None
 
 
 def _sparse_plan(layout, assignment):
