@@ -352,7 +352,8 @@ def _distinct_others(x, candidates, pick, layout):
 # -- results --------------------------------------------------------------------------------------
 def _build(circuit, layout, params, x, regions, checks, status, model, method, iterations, single,
            alternatives=()):
-    """Assemble an OperatingPoint from unknowns ``x`` (S, size + 1) and regions (S, N).
+    """Assemble an OperatingPoint from unknowns ``x`` (S, size + 1) and regions (S, N); a batch's
+    ``x`` is taken over (failed rows set to NaN in place, kept as the result's unknowns).
 
     A single solve takes a lean path (:func:`_build_single`): a handful of array operations, then
     plain floats.
@@ -360,9 +361,9 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
     if single:
         return _build_single(circuit, layout, params, x[0], regions[0], [c[0] for c in checks], str(status[0]),
                              model, method, iterations, alternatives)
-    # Samples with no answer at all get NaN; an assumption that fails keeps its numbers.
+    # Samples with no answer at all get NaN; an assumption that fails keeps its numbers. ``x`` is
+    # the solver's own array, taken over here (no copy: at 100,000 samples each copy is 16 MB).
     failed = (status != "ok") & (status != "assumption-fails")
-    x = x.copy()
     x[failed] = np.nan
     n = layout.size
     x[:, n] = 0.0
@@ -399,7 +400,7 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
     return OperatingPoint(
         model=model, v=v, i=currents, transistors=transistors, status=status.astype(str),
         temperature=params.temperature, method=method, iterations=int(iterations), batch_size=params.size,
-        circuit=circuit, unknowns=x[:, :n].copy())
+        circuit=circuit, unknowns=x[:, :n])
 
 
 class _Names:

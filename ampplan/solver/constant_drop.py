@@ -195,7 +195,7 @@ class RegionProblem:
         return out_x, out_ok
 
     def _solve_one(self, samples, regions):
-        """:meth:`solve` for one system, lean: one LAPACK solve (dgesv) of the stamped matrix (kept per
+        """:meth:`solve` for one system, lean: one LAPACK solve of the stamped matrix (kept per
         assignment when the parameters are the circuit's own, so repeated single solves of an
         unchanged circuit stamp it once) and :func:`~.linear.solve_batch`'s residual test."""
         lay = self.layout
@@ -216,9 +216,9 @@ class RegionProblem:
         _, a, b, a_size, b_size = kept
         out = np.empty((1, n + 1))
         out[0, n] = 0.0
-        # LAPACK's dgesv itself (what numpy.linalg.solve calls, without its wrapper's cost).
-        _, _, x, info = _dgesv()(a, b)
-        if info != 0:
+        try:
+            x = np.linalg.solve(a, b)
+        except np.linalg.LinAlgError:
             out[0, :n] = np.nan
             return out, np.zeros(1, dtype=bool)
         with np.errstate(all="ignore"):
@@ -464,18 +464,6 @@ class RegionProblem:
         new = np.where((regions == REVERSE) & first_fail, CUTOFF, new)
         new = np.where((regions == REVERSE) & ~first_fail & second_fail, SATURATION, new)
         return new
-
-
-def _dgesv():
-    """LAPACK's dgesv through scipy (imported on first use: importing ampplan does not pay for it)."""
-    global _DGESV
-    if _DGESV is None:
-        from scipy.linalg.lapack import dgesv
-        _DGESV = dgesv
-    return _DGESV
-
-
-_DGESV = None
 
 
 def _sparse_plan(layout, assignment):
