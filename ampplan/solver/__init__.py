@@ -257,8 +257,8 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
                     elif i in again.ties:
                         result.settle(k, _nearest(again.ties[i], guess[len(tied) + i]))
         deepest = max(deepest, result.deepest)
-        stale = np.flatnonzero(result.stale)
-        if stale.size:
+        stale = np.flatnonzero(result.stale) if result.stale.any() else ()
+        if len(stale):
             result.x[stale], result.ok[stale] = problem.solve(stale, result.regions[stale])
             iterations += stale.size
             for whole, part in zip(result.checks, problem.checks(stale, result.regions[stale], result.x[stale])):
@@ -277,13 +277,16 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
     steps = ("forward-active start", "repair by failed checks",
              "enumeration" if n_q <= cd.ENUMERATION_LIMIT else "local search")
     method = ", ".join(steps[:deepest] + tuple(dict.fromkeys(notes)))
-    status = np.where(found, "ok", "no-consistent-region")
+    status = _OK if single else np.where(found, "ok", "no-consistent-region")   # a failed single solve raised
     alternatives = ()
     if single and n_q:
         chosen = regions[0].copy()
         alternatives = Alternatives(lambda: _alternatives(circuit, layout, params, problem, chosen, method))
     return _build(circuit, layout, params, x, regions, (problem.check_names(regions),) + tuple(checks), status,
                   "constant-drop", method, iterations, single, alternatives)
+
+
+_OK = np.array(["ok"])
 
 
 def _nearest(candidates, guess):

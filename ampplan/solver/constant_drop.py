@@ -106,6 +106,9 @@ def check_size(layout) -> None:
 def blocks(count: int, layout):
     """Index arrays that cover ``count`` samples in blocks small enough for :data:`WORK_BYTES`."""
     size = max(1, WORK_BYTES // (8 * (layout.size + 1) ** 2))
+    if count <= size:
+        yield np.arange(count)
+        return
     for start in range(0, count, size):
         yield np.arange(start, min(count, start + size))
 
