@@ -12,7 +12,8 @@ Prints
     loop calls root with its defaults (hybr, its own finite-difference Jacobian), each sample
     starting from the nominal answer (ampplan's batch likewise starts every sample from one
     solved sample); the same loop given an analytic Jacobian is printed beside it as a
-    stronger reference;
+    stronger reference; the batch is timed again with BLAS held to one thread and its answers
+    compared bit for bit (the batched path runs no matrix products, so neither may change);
 (c) the constant-drop batch of the same 10,000 parameter sets.
 
 The targets (issue 2 §8, for a 2-core machine) are printed beside the figures. Missing a
@@ -325,6 +326,16 @@ def bench_batch() -> bool:
     print(f"    ampplan batched Ebers–Moll:  {t_batch:.3f} s for {SAMPLES:,} samples "
           f"({t_batch / SAMPLES * 1e6:.1f} µs/sample), {n_ok:,} converged")
     print(f"    regions: {region_counts(op, q_names)}")
+    # The same batch with BLAS held to one thread (threadpoolctl): the solver keeps matrix products
+    # out of its batched path, so the figure and the answers must not depend on the thread setting.
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(limits=1, user_api="blas"):
+        one_thread = min(median_time(lambda: c.solve(model="ebers-moll", batch=batch), repeat=1, warmup=0)
+                         for _ in range(ROUNDS))
+        op_one = c.solve(model="ebers-moll", batch=batch)
+    same = all(np.array_equal(op_one.v[n], op.v[n], equal_nan=True) for n in op.v)
+    print(f"    the same batch with BLAS on one thread: {one_thread:.3f} s ({one_thread / t_batch:.2f}x the "
+          f"default-threads figure), answers {'bit-identical' if same else 'DIFFERENT'}")
 
     t_loop = t_loop_subset * SAMPLES / LOOP_SAMPLES
     print("    loop of scipy.optimize.root given an analytic Jacobian (hybr, start at the nominal answer):")
