@@ -89,6 +89,10 @@ import ampplan.live, ampplan.analyses.plane, ampplan.notebook, ampplan.notebook.
 live = ampplan.live.ObservablePlan(plan)
 live.set("s1.rc", 3.9e3)
 ampplan.analyses.plane.plan_planes(live.result, live.plan)
+# What the notebook's what-if views draw is plain data below them too.
+import ampplan.analyses.whatif.pictures as pictures
+pictures.sweep_picture(live.plan, "s1.rc", 1e3, 10e3, n=8)
+pictures.tolerance_picture(live.plan.tolerance(samples=20, seed=1))
 loaded = {name: name in sys.modules for name in %(modules)r}
 print(json.dumps({"regions": regions, "loaded": loaded}))
 """

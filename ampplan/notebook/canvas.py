@@ -101,6 +101,11 @@ class _StagePanel:
                                                alpha=0.45, hatch_pattern="/", hatch_color="#666666",
                                                hatch_alpha=0.5)
         self.renderers["cutoff"] = f.patch("x", "y", source=s["cutoff"], color=COLOURS["cutoff"], alpha=0.6)
+        # A tolerance run's sampled Q-points (empty until one is run; see Canvas.set_clouds).
+        self.renderers["cloud"] = f.scatter("x", "y", source=s["cloud"], color=COLOURS["cloud"], size=4,
+                                            alpha=0.35, line_color=None)
+        self.renderers["cloud_failed"] = f.scatter("x", "y", source=s["cloud_failed"], color=COLOURS["cloud_failed"],
+                                                   size=6, marker="x", alpha=0.7)
         self.renderers["power"] = f.line("x", "y", source=s["power"], color=COLOURS["power"], line_width=2,
                                          line_dash="dotted")
         self.renderers["dc"] = f.line("x", "y", source=s["dc"], color=COLOURS["dc"], line_width=2)
@@ -115,10 +120,13 @@ class _StagePanel:
                                                                       "power")],
                               tooltips=[("", "@text")]))
 
-    def update(self, plane: StagePlane, stale: bool):
+    def update(self, plane: StagePlane, stale: bool, cloud=None):
         scale, unit = current_scale(plane.i_max)
-        for layer in stage_layers(plane):
+        for layer in stage_layers(plane, cloud):
             _put(self.sources[layer.name], _data(layer))
+            if layer.name.startswith("cloud") and layer.x:
+                glyph = self.renderers[layer.name].glyph
+                _set(glyph, fill_color=layer.colour, line_color=None if layer.marker == "circle" else layer.colour)
         f = self.figure
         if unit != getattr(self, "_unit", None):  # another scale: the old range means nothing
             f.y_range.update(start=0.0, end=0.0)
@@ -186,6 +194,9 @@ class Canvas:
         self.chain = _ChainPanel()
         self.layout = column(children=[], name="ampplan-canvas-layout")
         self._order: tuple = ()
+        #: A tolerance run's samples per stage id (StageCloud), drawn on each panel; see set_clouds.
+        self.clouds: dict = {}
+        self._last = None
 
     def source(self, sid: str, layer: str) -> ColumnDataSource:
         """The data source of one layer of one stage (``canvas.source("s1", "qpoint")``)."""
@@ -200,13 +211,21 @@ class Canvas:
                 self.panels[sid] = _StagePanel(sid)
         for sid in [s for s in self.panels if s not in order]:
             del self.panels[sid]
+        self._last = (planes, stale)
         for plane in planes.stages:
-            self.panels[plane.sid].update(plane, stale)
+            self.panels[plane.sid].update(plane, stale, self.clouds.get(plane.sid))
         self.chain.update(planes, stale)
         if order != self._order:
             figures = [self.panels[sid].figure for sid in order] + [self.chain.figure]
             self.layout.children = [row(children=figures[k:k + COLUMNS]) for k in range(0, len(figures), COLUMNS)]
             self._order = order
+
+    def set_clouds(self, clouds) -> None:
+        """Draw a tolerance run's sampled Q-points (a sequence of StageCloud; empty to clear them)
+        on every stage's panel; only the cloud sources change."""
+        self.clouds = {c.sid: c for c in clouds}
+        if self._last is not None:
+            self.update(*self._last)
 
     def grey(self, note: str) -> None:
         """Grey every panel and say why in its title (the result shown is not the plan's)."""

@@ -21,7 +21,7 @@ from ..analyses.plane import ChainPlane, StagePlane
 from ..units import format_quantity
 
 __all__ = ["Layer", "COLOURS", "stage_layers", "chain_layers", "current_scale", "STALE_NOTE",
-           "LAYER_NAMES", "KEY", "key_html"]
+           "LAYER_NAMES", "KEY", "key_html", "cloud_layers"]
 
 #: Colours by what they mark (hex RGB).
 COLOURS = {
@@ -36,10 +36,13 @@ COLOURS = {
     "available": "#138a6e",
     "demanded": "#d4740f",
     "stale": "#e6e6e6",
+    "cloud": "#3d7fc4",        # mid blue dots: tolerance samples that pass
+    "cloud_failed": "#b0307a",  # reddish purple crosses: samples that fail
+    "cloud_stale": "#9a9a9a",   # grey: a run made before the latest edit
 }
 
 #: The layers of a stage panel, in drawing order (their data sources are ampplan-<sid>-<name>).
-LAYER_NAMES = ("saturation", "cutoff", "power", "dc", "ac", "swing", "limit", "qpoint")
+LAYER_NAMES = ("saturation", "cutoff", "cloud", "cloud_failed", "power", "dc", "ac", "swing", "limit", "qpoint")
 
 #: Said in every panel's title while the canvas shows the last good result of a changed plan.
 STALE_NOTE = "LAST GOOD RESULT (the plan as it is now did not settle)"
@@ -63,9 +66,11 @@ class Layer:
     width : float
         Line width or marker size, in points.
     marker : str
-        ``"circle"`` or ``"triangle"`` for markers.
+        ``"circle"``, ``"triangle"`` or ``"x"`` for markers.
     label : str
         Legend text.
+    alpha : float
+        Opacity (the tolerance clouds are translucent, so dense parts read darker).
     """
     name: str
     kind: str
@@ -77,6 +82,7 @@ class Layer:
     width: float = 2.0
     marker: str = "circle"
     label: str = ""
+    alpha: float = 1.0
 
 
 def current_scale(i_max: float) -> tuple[float, str]:
@@ -109,9 +115,33 @@ def _line(plane, name, segment, scale, label, what):
                  dash="dashed" if name == "ac" else "solid", width=2.0, label=label)
 
 
-def stage_layers(plane: StagePlane) -> tuple:
+def cloud_layers(plane: StagePlane, cloud=None) -> tuple:
+    """The two cloud layers of a stage panel: a tolerance run's sampled Q-points that pass (dots)
+    and that fail (crosses), from a :class:`~ampplan.analyses.whatif.pictures.StageCloud`, scaled
+    like the panel; both empty without a run. A run made before the latest edit is grey and says so."""
+    scale, _ = current_scale(plane.i_max)
+    if cloud is None or not cloud.v:
+        return (Layer("cloud", "markers", (), (), (), COLOURS["cloud"], width=3.0, label="", alpha=0.35),
+                Layer("cloud_failed", "markers", (), (), (), COLOURS["cloud_failed"], width=5.0, marker="x",
+                      label="", alpha=0.7))
+    shown = len(cloud.v)
+    of = f" of {cloud.total} drawn" if shown < cloud.total else ""
+    when = ", earlier plan" if cloud.stale else ""
+    layers = []
+    for name, keep, marker, width, alpha in (("cloud", True, "circle", 3.0, 0.35),
+                                              ("cloud_failed", False, "x", 5.0, 0.7)):
+        points = [(v, i) for v, i, p in zip(cloud.v, cloud.i, cloud.passed) if p == keep]
+        colour = COLOURS["cloud_stale"] if cloud.stale else COLOURS[name]
+        label = f"tolerance samples, {'pass' if keep else 'fail'} ({len(points)}{of}{when})" if points else ""
+        layers.append(Layer(name, "markers", tuple(v for v, _ in points), tuple(i * scale for _, i in points),
+                            ("",) * len(points), colour, width=width, marker=marker, label=label, alpha=alpha))
+    return tuple(layers)
+
+
+def stage_layers(plane: StagePlane, cloud=None) -> tuple:
     """The layers of one stage's panel (see :data:`LAYER_NAMES`), currents scaled by
-    :func:`current_scale` of the panel's ``i_max``."""
+    :func:`current_scale` of the panel's ``i_max``; ``cloud`` a tolerance run's samples of the stage
+    (:func:`cloud_layers`)."""
     scale, _ = current_scale(plane.i_max)
     # The bands reach past the panel to the next decade, so they do not move while a value is
     # dragged (each renderer clips them to its axes).
@@ -125,6 +155,7 @@ def stage_layers(plane: StagePlane) -> tuple:
                                            f"{format_quantity(plane.saturation_edge, 'V')})"),
         Layer("cutoff", "band", (0.0, v_max, v_max, 0.0), (low, low, 0.0, 0.0),
               ("cutoff: I_C = 0",) * 4, COLOURS["cutoff"], label="cutoff (I_C = 0)"),
+        *cloud_layers(plane, cloud),
     ]
     if plane.power_v:
         rating = format_quantity(plane.power_rating, "W")
@@ -188,6 +219,8 @@ KEY = (
     ("limit", "▲", "the side that limits it"),
     ("power", "┈┈", "rated power"),
     ("saturation", "▨", "saturation (hatched) and cutoff (grey) edges"),
+    ("cloud", "•", "tolerance samples that pass"),
+    ("cloud_failed", "✕", "and fail (after live.tolerance_view)"),
 )
 
 

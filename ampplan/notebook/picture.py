@@ -18,12 +18,12 @@ __all__ = ["draw_png", "COLUMNS"]
 #: Panels per row of the picture.
 COLUMNS = 3
 _DASH = {"solid": "-", "dashed": "--", "dotted": ":"}
-_MARKER = {"circle": "o", "triangle": "^"}
+_MARKER = {"circle": "o", "triangle": "^", "x": "x"}
 
 
-def _draw_stage(ax, plane, stale: bool):
+def _draw_stage(ax, plane, stale: bool, cloud=None):
     scale, unit = current_scale(plane.i_max)
-    for layer in stage_layers(plane):
+    for layer in stage_layers(plane, cloud):
         if not layer.x:
             continue
         if layer.kind == "band":
@@ -33,7 +33,9 @@ def _draw_stage(ax, plane, stale: bool):
                     label=layer.label, solid_capstyle="butt")
         else:
             ax.plot(layer.x, layer.y, linestyle="none", marker=_MARKER[layer.marker], color=layer.colour,
-                    markersize=layer.width * 0.8, label=layer.label, zorder=5)
+                    markersize=layer.width * 0.8, label=layer.label or None, alpha=layer.alpha,
+                    markeredgewidth=0 if layer.marker == "circle" and layer.alpha < 1 else None,
+                    zorder=3 if layer.name.startswith("cloud") else 5)
     ax.set_xlim(0.0, plane.v_max)
     ax.set_ylim(-0.04 * plane.i_max * scale, plane.i_max * scale)
     ax.set_xlabel(f"{plane.voltage_label} (V)")
@@ -72,7 +74,7 @@ def _wrap(text: str, width: int) -> str:
     return "\n".join(textwrap.wrap(text, width)) or " "
 
 
-def draw_png(planes: PlanPlanes, stale: bool = False, dpi: int = 80) -> bytes:
+def draw_png(planes: PlanPlanes, stale: bool = False, dpi: int = 80, clouds=None) -> bytes:
     """The whole canvas as PNG bytes: one panel per stage, then the chain view.
 
     Parameters
@@ -83,6 +85,8 @@ def draw_png(planes: PlanPlanes, stale: bool = False, dpi: int = 80) -> bytes:
         Grey the panels and say so in each title (the plan as it is did not settle).
     dpi : int
         Dots per inch (the picture is 4.2 × 3.6 inches per panel).
+    clouds : dict of str -> StageCloud, optional
+        A tolerance run's sampled Q-points per stage id, drawn on each panel.
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
@@ -99,7 +103,7 @@ def draw_png(planes: PlanPlanes, stale: bool = False, dpi: int = 80) -> bytes:
                                             top=1 - 0.11 / rows * 2, wspace=0.3, hspace=0.42 * rows / 2))
     axes = axes.ravel()
     for ax, plane in zip(axes, planes.stages):
-        _draw_stage(ax, plane, stale)
+        _draw_stage(ax, plane, stale, (clouds or {}).get(plane.sid))
     _draw_chain(axes[len(planes.stages)], planes.chain, stale)
     for ax in axes[count:]:
         ax.set_visible(False)

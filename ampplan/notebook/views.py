@@ -288,7 +288,7 @@ class CanvasView(_View):
         from .picture import draw_png
         if self._planes is None:
             return {"text/plain": "no picture: the plan has no result"}
-        png = draw_png(self._planes, stale=not self.live.result_is_current)
+        png = draw_png(self._planes, stale=not self.live.result_is_current, clouds=self.canvas.clouds)
         return {"image/png": png,
                 "text/plain": "Static picture of the canvas: " + "; ".join(p.title for p in self._planes.stages)}
 
