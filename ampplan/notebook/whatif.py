@@ -119,13 +119,14 @@ class SweepView(_WhatIfView):
                        x_axis_type="log" if self.picture.log else "linear", x_range=x_range, y_range=Range1d(0, 1),
                        toolbar_location=None, tools="", name=f"{name}-figure-{k}")
             f.title.text_font_size = "9pt"
-            f.vstrip(x0="x0", x1="x1", source=self.spans, fill_color="colour", fill_alpha=0.45, line_color=None)
+            strips = f.vstrip(x0="x0", x1="x1", source=self.spans, fill_color="colour", fill_alpha=0.45,
+                              line_color=None)
             f.vspan(x="x", source=self.now, line_color=SWEEP_COLOURS["now"], line_dash="dashed", line_width=1)
             src = ColumnDataSource(data={"x": [], "y": []}, name=f"{name}-curve-{k}")
             mark = ColumnDataSource(data={"x": [], "y": [], "text": []}, name=f"{name}-marker-{k}")
             line = f.line("x", "y", source=src, color=SWEEP_COLOURS["curve"], line_width=2)
             dot = f.scatter("x", "y", source=mark, color=SWEEP_COLOURS["marker"], size=9)
-            f.add_tools(HoverTool(renderers=[dot], tooltips=[("", "@text")]))
+            f.add_tools(HoverTool(renderers=[dot, strips], tooltips=[("", "@text")]))
             f.add_tools(HoverTool(renderers=[line], tooltips=[("", "(@x, @y)")], mode="vline"))
             self.curves.append(src)
             self.markers.append(mark)
