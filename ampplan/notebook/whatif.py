@@ -21,7 +21,7 @@ import time
 
 import ipywidgets as widgets
 from bokeh.layouts import column, gridplot
-from bokeh.models import ColumnDataSource, HoverTool, Range1d
+from bokeh.models import ColumnDataSource, HoverTool, LabelSet, Range1d
 from bokeh.plotting import figure
 
 from ..analyses.whatif.pictures import stale_clouds, sweep_picture, tolerance_picture
@@ -29,10 +29,17 @@ from ..errors import AmpplanError
 from ..units import format_quantity
 from .record import StaticRecord, html_block
 from .tables import status_html as _status_words
-from .whatif_picture import (HISTOGRAM_COLOURS, SWEEP_COLOURS, axis_label, display_scale, span_colour, sweep_png,
-                             tolerance_png, y_limits)
+from .whatif_picture import (HISTOGRAM_COLOURS, SWEEP_COLOURS, axis_label, display_scale, span_colour, span_label,
+                             span_middle, sweep_png, tolerance_png, y_limits)
 
-__all__ = ["SweepView", "ToleranceView", "Records"]
+__all__ = ["SweepView", "ToleranceView", "Records", "HISTOGRAM_KEY"]
+
+#: The key of the histograms (the bokeh figures carry no legend: it would cover the bars).
+HISTOGRAM_KEY = (f"<div class='ampplan-tolerance-key' style='font-size:85%'>Histograms: "
+                 f"<span style='color:{HISTOGRAM_COLOURS['passed']};font-weight:bold'>■</span> samples that "
+                 f"pass, <span style='color:{HISTOGRAM_COLOURS['failed']};font-weight:bold'>▩</span> samples that "
+                 f"fail (stacked, crossed), <span style='color:{HISTOGRAM_COLOURS['nominal']}'>┆</span> the plan "
+                 "as it is.</div>")
 
 _SERIAL = itertools.count(1)
 _WIDTH = 620
@@ -72,8 +79,22 @@ class Records:
                 part._flush()
 
 
+#: In a live JupyterLab page the two static outputs right after a what-if view (its HTML and its
+#: picture) would show everything twice: this rule, carried by the view, hides them. Where the view
+#: does not render (a saved notebook without a kernel, nbconvert's HTML, a code host) the rule is
+#: not on the page and the records show (as the other live views do, :data:`.views.LIVE_STYLE`).
+LIVE_STYLE = ("<style>.jp-OutputArea-child:has(.ampplan-whatif-view) + .jp-OutputArea-child, "
+              ".jp-OutputArea-child:has(.ampplan-whatif-view) + .jp-OutputArea-child + .jp-OutputArea-child "
+              "{display: none;}</style>")
+
+
 class _WhatIfView(widgets.VBox):
     record: Records
+
+    def _start(self, children) -> None:
+        self._style = widgets.HTML(LIVE_STYLE, layout=widgets.Layout(display="none"))
+        super().__init__(children=[*children, self._style])
+        self.add_class("ampplan-whatif-view")
 
     def _ipython_display_(self):
         from IPython.display import display
@@ -111,7 +132,8 @@ class SweepView(_WhatIfView):
         self.stale = False
         name = f"ampplan-sweep{self.serial}"
         self.now = ColumnDataSource(data={"x": []}, name=f"{name}-now")
-        self.spans = ColumnDataSource(data={"x0": [], "x1": [], "colour": [], "text": []}, name=f"{name}-spans")
+        self.spans = ColumnDataSource(data={"x0": [], "x1": [], "xm": [], "label": [], "colour": [], "text": []},
+                                      name=f"{name}-spans")
         self.curves, self.markers, self.figures = [], [], []
         x_range = Range1d(0, 1)
         for k, curve in enumerate(self.picture.curves):
@@ -128,6 +150,10 @@ class SweepView(_WhatIfView):
             dot = f.scatter("x", "y", source=mark, color=SWEEP_COLOURS["marker"], size=9)
             f.add_tools(HoverTool(renderers=[dot, strips], tooltips=[("", "@text")]))
             f.add_tools(HoverTool(renderers=[line], tooltips=[("", "(@x, @y)")], mode="vline"))
+            if k == 0:   # each span named on the top panel (and in words under the view)
+                f.add_layout(LabelSet(x="xm", y=4, y_units="screen", text="label", source=self.spans,
+                                      text_font_size="8pt", text_align="center", text_color="#333333",
+                                      background_fill_color="#ffffff", background_fill_alpha=0.75))
             self.curves.append(src)
             self.markers.append(mark)
             self.figures.append(f)
@@ -141,7 +167,7 @@ class SweepView(_WhatIfView):
         self.words.add_class("ampplan-sweep-words")
         self.status = widgets.HTML("")
         self.status.add_class("ampplan-status")
-        super().__init__(children=[self.heading, self.status, self.plot, self.words])
+        self._start([self.heading, self.status, self.plot, self.words])
         self.add_class("ampplan-sweep")
         self.add_class(f"ampplan-sweep{self.serial}")
         self.record = Records(self._record_html, self._record_png)
@@ -188,6 +214,8 @@ class SweepView(_WhatIfView):
         if (self.x_range.start, self.x_range.end) != (xs[0], xs[-1]):
             self.x_range.update(start=xs[0], end=xs[-1])
         _put(self.spans, {"x0": [s.lo * x_factor for s in p.spans], "x1": [s.hi * x_factor for s in p.spans],
+                          "xm": [span_middle(s, p.log) * x_factor for s in p.spans],
+                          "label": [span_label(s) for s in p.spans],
                           "colour": [span_colour(s.what) for s in p.spans], "text": [s.text for s in p.spans]})
         _put(self.now, {"x": [p.current * x_factor]})
         last = len(p.curves) - 1
@@ -284,8 +312,7 @@ class ToleranceView(_WhatIfView):
         self.bokeh_layout = None
         self.plot = None
         self.record = Records(self._record_html, self._record_png)
-        super().__init__(children=[self.heading, widgets.HBox([self.button, self.progress]), self.status,
-                                   self.summary])
+        self._start([self.heading, widgets.HBox([self.button, self.progress]), self.status, self.summary])
         self.add_class("ampplan-tolerance")
         self._batched = BatchedBokehModel
 
@@ -358,17 +385,13 @@ class ToleranceView(_WhatIfView):
             src = ColumnDataSource(data={"left": [], "right": [], "passed": [], "total": []},
                                    name=f"ampplan-tolerance-hist-{k}")
             nominal = ColumnDataSource(data={"x": []}, name=f"ampplan-tolerance-nominal-{k}")
-            legend = (lambda text: {"legend_label": text}) if k == 0 else (lambda text: {})
             f.quad(left="left", right="right", bottom=0, top="passed", source=src,
-                   color=HISTOGRAM_COLOURS["passed"], **legend("pass"))
+                   fill_color=HISTOGRAM_COLOURS["passed"], line_color=None)
             f.quad(left="left", right="right", bottom="passed", top="total", source=src,
-                   color=HISTOGRAM_COLOURS["failed"], hatch_pattern="x", hatch_color="#ffffff", **legend("fail"))
+                   fill_color=HISTOGRAM_COLOURS["failed"], line_color=None, hatch_pattern="x",
+                   hatch_color="#ffffff")
             f.vspan(x="x", source=nominal, line_color=HISTOGRAM_COLOURS["nominal"], line_dash="dashed",
                     line_width=1.5)
-            if k == 0:
-                f.legend.label_text_font_size = "7pt"
-                f.legend.location = "top_right"
-                f.legend.background_fill_alpha = 0.6
             self.sources.append(src)
             self.nominals.append(nominal)
             figures.append(f)
@@ -384,7 +407,7 @@ class ToleranceView(_WhatIfView):
             self._fill()
             self.plot = self._batched(self.bokeh_layout)
             self.plot.add_class("ampplan-tolerance-plot")
-            self.children = [self.heading, self.children[1], self.status, self.summary, self.plot]
+            self.children = [self.heading, self.children[1], self.status, self.summary, self.plot, self._style]
         else:
             with self.plot.batch():
                 self._fill()
@@ -405,8 +428,8 @@ class ToleranceView(_WhatIfView):
                        + ", ".join(f"{_e(name)} ({rho:+.2f})" for name, rho in pairs) + "</td></tr>"
                        for address, pairs in p.sensitivity if pairs)
         return (f"<p style='margin:2px 0'><b>{_e(p.title)}</b></p><ul style='margin:2px 0'>"
-                + "".join(f"<li>{_e(w)}</li>" for w in p.words) + "</ul>"
-                "<table><thead><tr><th>margin</th><th>driven most by (Spearman rank correlation)</th></tr></thead>"
+                + "".join(f"<li>{_e(w)}</li>" for w in p.words) + "</ul>" + HISTOGRAM_KEY
+                + "<table><thead><tr><th>margin</th><th>driven most by (Spearman rank correlation)</th></tr></thead>"
                 f"<tbody>{rows}</tbody></table>")
 
     def _record_html(self) -> dict:
@@ -414,7 +437,7 @@ class ToleranceView(_WhatIfView):
             return {"text/plain": "no tolerance run yet"}
         note = " (of the plan before a later edit)" if self.stale else ""
         return {"text/html": html_block(self._summary_html(), f"Static record of the tolerance run{note}"),
-                "text/plain": "\n".join(self.picture.words)}
+                "text/plain": "\n".join(self.picture.words + self.picture.drivers)}
 
     def _record_png(self) -> dict:
         if self.picture is None:

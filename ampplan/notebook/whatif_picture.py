@@ -14,7 +14,8 @@ import math
 from .look import COLOURS
 
 __all__ = ["display_scale", "SPAN_COLOURS", "SWEEP_COLOURS", "HISTOGRAM_COLOURS", "span_colour",
-           "sweep_png", "tolerance_png", "axis_label", "y_limits"]
+           "sweep_png", "tolerance_png", "axis_label", "y_limits", "span_label",
+           "span_middle"]
 
 #: Shading of the spans of a sweep, by what they mark (the canvas's limit bands' greys, and a
 #: light purple where the plan does not solve); each span is also stated in words.
@@ -25,6 +26,15 @@ SWEEP_COLOURS = {"curve": COLOURS["dc"], "now": COLOURS["qpoint"], "marker": COL
 HISTOGRAM_COLOURS = {"passed": COLOURS["cloud"], "failed": COLOURS["cloud_failed"], "nominal": COLOURS["qpoint"]}
 
 _PREFIXES = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"))
+
+
+def span_label(span) -> str:
+    """A span's short name on the picture: ``"s2 saturation"``, ``"no solution"``."""
+    return f"{span.sid} {span.what}" if span.sid else span.what
+
+
+def span_middle(span, log: bool) -> float:
+    return math.sqrt(span.lo * span.hi) if log and span.lo > 0 else (span.lo + span.hi) / 2
 
 
 def span_colour(what: str) -> str:
@@ -109,6 +119,10 @@ def sweep_png(picture, stale: bool = False, dpi: int = 80) -> bytes:
         ax.set_xlim(xs[0], xs[-1])
         if stale:
             ax.set_facecolor(COLOURS["stale"])
+    for span in picture.spans:   # each span named on the top panel (and in words beside the picture)
+        axes[0].text(span_middle(span, picture.log) * x_factor, 0.97, span_label(span), fontsize=7, ha="center",
+                     va="top", transform=axes[0].get_xaxis_transform(), clip_on=True,
+                     bbox=dict(facecolor="white", alpha=0.75, linewidth=0, pad=1))
     axes[-1].set_xlabel(axis_label(picture.address, x_unit))
     title = ("STALE: " if stale else "") + picture.title
     figure.suptitle(_wrap(title, 90), fontsize=9, x=0.02, ha="left")
@@ -141,9 +155,10 @@ def tolerance_png(picture, dpi: int = 80, columns: int = 3) -> bytes:
         ax.set_title(axis_label(h.address, unit), fontsize=8, loc="left")
         ax.tick_params(labelsize=7)
         ax.grid(True, axis="y", linewidth=0.3, alpha=0.6)
-    axes[0].legend(fontsize=6, loc="upper right")
+    handles, labels = axes[0].get_legend_handles_labels()
+    figure.legend(handles, labels, fontsize=7, loc="upper right", ncol=3, frameon=False)
     for ax in axes[count:]:
         ax.set_visible(False)
-    figure.suptitle(_wrap(picture.title + f": yield {100 * picture.yield_fraction:.1f} %", 110), fontsize=9,
+    figure.suptitle(_wrap(picture.title + f": yield {100 * picture.yield_fraction:.1f} %", 95), fontsize=9,
                     x=0.02, ha="left")
     return _png(figure, dpi)

@@ -336,6 +336,9 @@ class TolerancePicture:
     sensitivity : tuple of (str, tuple of (str, float))
         Per margin, the three varied values that drive it most, with their rank correlation.
     words : tuple of str
+        The yield and how many samples did not solve, in sentences.
+    drivers : tuple of str
+        The strongest driver of each margin, in sentences.
     model : str
     seed : int
     title : str
@@ -348,6 +351,7 @@ class TolerancePicture:
     histograms: tuple
     sensitivity: tuple
     words: tuple
+    drivers: tuple
     model: str
     seed: int
     title: str
@@ -401,12 +405,11 @@ def tolerance_picture(run, nominal=None, cloud_points: int = CLOUD_POINTS, bins:
                 else "") + ")."]
     if failed_to_solve:
         words.append(f"{failed_to_solve} samples did not solve.")
-    for address, pairs in sensitivity:
-        if pairs and address.endswith(("saturation_margin", "cutoff_margin")):
-            name, rho = pairs[0]
-            words.append(f"{address} is driven most by {name} (rank correlation {rho:+.2f}).")
+    drivers = tuple(f"{address} is driven most by {pairs[0][0]} (rank correlation {pairs[0][1]:+.2f})."
+                    for address, pairs in sensitivity if pairs)
     title = f"Tolerance run: {run.samples} samples ({run.distribution}, {run.model}, seed {run.seed})"
     return TolerancePicture(samples=run.samples, passed=count, failed_to_solve=failed_to_solve,
                             yield_fraction=run.yield_fraction, clouds=tuple(clouds), histograms=tuple(histograms),
-                            sensitivity=sensitivity, words=tuple(words), model=run.model, seed=run.seed,
+                            sensitivity=sensitivity, words=tuple(words), drivers=drivers, model=run.model,
+                            seed=run.seed,
                             title=title)
