@@ -71,7 +71,7 @@ def test_sweep_view_curves_equal_single_solves(live):
     now = solve_at(live.plan, "s1.rc", live.get("s1.rc"))
     assert view.markers[0].data["x"] == pytest.approx([4.7])  # kΩ
     assert p.curves[0].current == pytest.approx(now["s1.vce"], rel=1e-12)
-    assert view.now.data["x"] == pytest.approx([4.7])
+    assert all(line.location == pytest.approx(4.7) for line in view.now)
 
 
 def test_sweep_view_is_one_batched_sweep(live):

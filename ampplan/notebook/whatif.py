@@ -7,9 +7,12 @@ Both render plain data computed below the notebook layer
 HTML table and a PNG drawn by matplotlib from the same data (:mod:`.whatif_picture`).
 
 Bokeh data sources are named for the browser: ``ampplan-sweep<N>-curve-<k>``,
-``ampplan-sweep<N>-marker-<k>`` (the plan's current value on curve k), ``ampplan-sweep<N>-now``,
-``ampplan-sweep<N>-spans``; ``ampplan-tolerance-hist-<k>``. N counts the sweep views of the
-process from 1.
+``ampplan-sweep<N>-marker-<k>`` (the plan's current value on curve k), ``ampplan-sweep<N>-spans``;
+``ampplan-tolerance-hist-<k>``. N counts the sweep views of the process from 1.
+
+A saved notebook keeps every widget's state, bokeh documents included, and must stay small: the
+views use as few bokeh models as they can (no selection or muted copies of the glyphs, lines
+across a figure as annotations, one renderer per histogram).
 """
 
 from __future__ import annotations
@@ -20,8 +23,8 @@ import math
 import time
 
 import ipywidgets as widgets
-from bokeh.layouts import column, gridplot
-from bokeh.models import ColumnDataSource, HoverTool, LabelSet, Range1d
+from bokeh.layouts import column, row
+from bokeh.models import ColumnDataSource, HoverTool, LabelSet, Range1d, Span
 from bokeh.plotting import figure
 
 from ..analyses.whatif.pictures import stale_clouds, sweep_picture, tolerance_picture
@@ -47,6 +50,19 @@ _WIDTH = 620
 
 def _e(text) -> str:
     return html.escape(str(text))
+
+
+def _lean(renderer):
+    """No glyph copies for selection (nothing is selectable) or muting (no legend to mute from)."""
+    renderer.nonselection_glyph = None
+    renderer.muted_glyph = None
+    return renderer
+
+
+def _r(value: float) -> float:
+    """A value sent to the browser, to 7 significant digits: plenty for a picture, and the saved
+    widget state of a notebook holds half the characters."""
+    return float(f"{value:.7g}")
 
 
 def _put(source, data: dict) -> None:
@@ -88,11 +104,17 @@ LIVE_STYLE = ("<style>.jp-OutputArea-child:has(.ampplan-whatif-view) + .jp-Outpu
               "{display: none;}</style>")
 
 
+_STYLE: list = []
+
+
 class _WhatIfView(widgets.VBox):
     record: Records
 
     def _start(self, children) -> None:
-        self._style = widgets.HTML(LIVE_STYLE, layout=widgets.Layout(display="none"))
+        # One hidden style widget shared by every what-if view (each widget is saved with the notebook).
+        if not _STYLE:
+            _STYLE.append(widgets.HTML(LIVE_STYLE, layout=widgets.Layout(display="none")))
+        self._style = _STYLE[0]
         super().__init__(children=[*children, self._style])
         self.add_class("ampplan-whatif-view")
 
@@ -131,7 +153,7 @@ class SweepView(_WhatIfView):
         self.refresh_count = 0
         self.stale = False
         name = f"ampplan-sweep{self.serial}"
-        self.now = ColumnDataSource(data={"x": []}, name=f"{name}-now")
+        self.now = []   # one vertical line per figure at the plan's current value
         self.spans = ColumnDataSource(data={"x0": [], "x1": [], "xm": [], "label": [], "colour": [], "text": []},
                                       name=f"{name}-spans")
         self.curves, self.markers, self.figures = [], [], []
@@ -141,13 +163,16 @@ class SweepView(_WhatIfView):
                        x_axis_type="log" if self.picture.log else "linear", x_range=x_range, y_range=Range1d(0, 1),
                        toolbar_location=None, tools="", name=f"{name}-figure-{k}")
             f.title.text_font_size = "9pt"
-            strips = f.vstrip(x0="x0", x1="x1", source=self.spans, fill_color="colour", fill_alpha=0.45,
-                              line_color=None)
-            f.vspan(x="x", source=self.now, line_color=SWEEP_COLOURS["now"], line_dash="dashed", line_width=1)
+            strips = _lean(f.vstrip(x0="x0", x1="x1", source=self.spans, fill_color="colour", fill_alpha=0.45,
+                                    line_color=None))
+            now = Span(location=0.0, dimension="height", line_color=SWEEP_COLOURS["now"], line_dash="dashed",
+                       line_width=1, name=f"{name}-now-{k}")
+            f.add_layout(now)
+            self.now.append(now)
             src = ColumnDataSource(data={"x": [], "y": []}, name=f"{name}-curve-{k}")
             mark = ColumnDataSource(data={"x": [], "y": [], "text": []}, name=f"{name}-marker-{k}")
-            line = f.line("x", "y", source=src, color=SWEEP_COLOURS["curve"], line_width=2)
-            dot = f.scatter("x", "y", source=mark, color=SWEEP_COLOURS["marker"], size=9)
+            line = _lean(f.line("x", "y", source=src, color=SWEEP_COLOURS["curve"], line_width=2))
+            dot = _lean(f.scatter("x", "y", source=mark, color=SWEEP_COLOURS["marker"], size=9))
             f.add_tools(HoverTool(renderers=[dot, strips], tooltips=[("", "@text")]))
             f.add_tools(HoverTool(renderers=[line], tooltips=[("", "(@x, @y)")], mode="vline"))
             if k == 0:   # each span named on the top panel (and in words under the view)
@@ -162,12 +187,11 @@ class SweepView(_WhatIfView):
         self._draw()
         self.plot = BatchedBokehModel(self.bokeh_layout)
         self.plot.add_class("ampplan-sweep-plot")
-        self.heading = widgets.HTML("")
         self.words = widgets.HTML("")
         self.words.add_class("ampplan-sweep-words")
         self.status = widgets.HTML("")
         self.status.add_class("ampplan-status")
-        self._start([self.heading, self.status, self.plot, self.words])
+        self._start([self.status, self.plot, self.words])
         self.add_class("ampplan-sweep")
         self.add_class(f"ampplan-sweep{self.serial}")
         self.record = Records(self._record_html, self._record_png)
@@ -217,12 +241,14 @@ class SweepView(_WhatIfView):
                           "xm": [span_middle(s, p.log) * x_factor for s in p.spans],
                           "label": [span_label(s) for s in p.spans],
                           "colour": [span_colour(s.what) for s in p.spans], "text": [s.text for s in p.spans]})
-        _put(self.now, {"x": [p.current * x_factor]})
+        for now in self.now:
+            if now.location != _r(p.current * x_factor):
+                now.location = _r(p.current * x_factor)
         last = len(p.curves) - 1
         for k, (curve, f) in enumerate(zip(p.curves, self.figures)):
             factor, unit = display_scale(curve.y, curve.unit)
             ys = [y * factor for y in curve.y]
-            _put(self.curves[k], {"x": xs, "y": [y if math.isfinite(y) else math.nan for y in ys]})
+            _put(self.curves[k], {"x": [_r(x) for x in xs], "y": [_r(y) if math.isfinite(y) else math.nan for y in ys]})
             finite = [y for y in ys if math.isfinite(y)]
             if math.isfinite(curve.current):
                 finite.append(curve.current * factor)
@@ -249,8 +275,8 @@ class SweepView(_WhatIfView):
 
     def _texts(self) -> None:
         p = self.picture
-        self.heading.value = f"<b>Sweep</b>: {_e(p.title)}"
-        self.words.value = "<ul style='margin:2px 0'>" + "".join(f"<li>{_e(w)}</li>" for w in p.words) + "</ul>"
+        self.words.value = (f"<b>Sweep</b>: {_e(p.title)}<ul style='margin:2px 0'>"
+                            + "".join(f"<li>{_e(w)}</li>" for w in p.words) + "</ul>")
         self.status.value = _status_words(self.live.status, self.live.model)
 
     def _record_html(self) -> dict:
@@ -296,7 +322,6 @@ class ToleranceView(_WhatIfView):
         self.picture = None
         self.stale = False
         self.run_seconds = math.nan
-        self.heading = widgets.HTML("<b>Tolerance run</b>")
         self.button = widgets.Button(description="Run again with the plan as it is now",
                                      layout=widgets.Layout(width="320px"))
         self.button.add_class("ampplan-tolerance-run")
@@ -312,7 +337,7 @@ class ToleranceView(_WhatIfView):
         self.bokeh_layout = None
         self.plot = None
         self.record = Records(self._record_html, self._record_png)
-        self._start([self.heading, widgets.HBox([self.button, self.progress]), self.status, self.summary])
+        self._start([widgets.HBox([self.button, self.progress]), self.status, self.summary])
         self.add_class("ampplan-tolerance")
         self._batched = BatchedBokehModel
 
@@ -382,22 +407,20 @@ class ToleranceView(_WhatIfView):
         for k, h in enumerate(self.picture.histograms):
             f = figure(width=230, height=170, toolbar_location=None, tools="", name=f"ampplan-tolerance-figure-{k}")
             f.title.text_font_size = "8pt"
-            src = ColumnDataSource(data={"left": [], "right": [], "passed": [], "total": []},
+            # Passing counts from 0, failing ones stacked on them: one quad per bin and kind.
+            src = ColumnDataSource(data={"left": [], "right": [], "bottom": [], "top": [], "colour": [], "hatch": []},
                                    name=f"ampplan-tolerance-hist-{k}")
-            nominal = ColumnDataSource(data={"x": []}, name=f"ampplan-tolerance-nominal-{k}")
-            f.quad(left="left", right="right", bottom=0, top="passed", source=src,
-                   fill_color=HISTOGRAM_COLOURS["passed"], line_color=None)
-            f.quad(left="left", right="right", bottom="passed", top="total", source=src,
-                   fill_color=HISTOGRAM_COLOURS["failed"], line_color=None, hatch_pattern="x",
-                   hatch_color="#ffffff")
-            f.vspan(x="x", source=nominal, line_color=HISTOGRAM_COLOURS["nominal"], line_dash="dashed",
-                    line_width=1.5)
+            nominal = Span(location=0.0, dimension="height", line_color=HISTOGRAM_COLOURS["nominal"],
+                           line_dash="dashed", line_width=1.5, visible=False, name=f"ampplan-tolerance-nominal-{k}")
+            _lean(f.quad(left="left", right="right", bottom="bottom", top="top", source=src, fill_color="colour",
+                         line_color=None, hatch_pattern="hatch", hatch_color="#ffffff"))
+            f.add_layout(nominal)
             self.sources.append(src)
             self.nominals.append(nominal)
             figures.append(f)
         self.figures = figures
-        self.bokeh_layout = gridplot(figures, ncols=3, toolbar_location=None)
-        self.bokeh_layout.name = "ampplan-tolerance-layout"
+        self.bokeh_layout = column(children=[row(children=figures[k:k + 3]) for k in range(0, len(figures), 3)],
+                                   name="ampplan-tolerance-layout")
 
     def _draw(self) -> None:
         p = self.picture
@@ -407,7 +430,7 @@ class ToleranceView(_WhatIfView):
             self._fill()
             self.plot = self._batched(self.bokeh_layout)
             self.plot.add_class("ampplan-tolerance-plot")
-            self.children = [self.heading, self.children[1], self.status, self.summary, self.plot, self._style]
+            self.children = [self.children[0], self.status, self.summary, self.plot, self._style]
         else:
             with self.plot.batch():
                 self._fill()
@@ -417,9 +440,16 @@ class ToleranceView(_WhatIfView):
         for h, f, src, nominal in zip(self.picture.histograms, self.figures, self.sources, self.nominals):
             factor, unit = display_scale(h.edges, h.unit)
             edges = [e * factor for e in h.edges]
-            _put(src, {"left": edges[:-1], "right": edges[1:], "passed": list(h.passed),
-                       "total": [a + b for a, b in zip(h.passed, h.failed)]})
-            _put(nominal, {"x": [h.nominal * factor] if math.isfinite(h.nominal) else []})
+            left, right = [_r(e) for e in edges[:-1]], [_r(e) for e in edges[1:]]
+            bins = len(h.passed)
+            _put(src, {"left": left * 2, "right": right * 2, "bottom": [0] * bins + list(h.passed),
+                       "top": list(h.passed) + [a + b for a, b in zip(h.passed, h.failed)],
+                       "colour": [HISTOGRAM_COLOURS["passed"]] * bins + [HISTOGRAM_COLOURS["failed"]] * bins,
+                       "hatch": [" "] * bins + ["x"] * bins})
+            if math.isfinite(h.nominal):
+                nominal.update(location=_r(h.nominal * factor), visible=True)
+            else:
+                nominal.visible = False
             f.title.text = axis_label(h.address, unit)
 
     def _summary_html(self) -> str:
