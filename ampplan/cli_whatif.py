@@ -238,10 +238,13 @@ def _tolerance(args, out, err) -> int:
         return status
     lines = [f"ampplan tolerance: {label} ({result.model} model, {result.samples} samples, {result.distribution}, "
              f"seed {result.seed})", "varied"]
-    lines += [f"  {s.address}: {s.low:.4g} … {s.high:.4g}" for s in result.spreads] or ["  nothing"]
+    units = {address: entry.unit for address, entry in plan.compile().addresses.items()}
+    lines += [f"  {s.address}: {format_quantity(s.low, units.get(s.address, ''))} … "
+              f"{format_quantity(s.high, units.get(s.address, ''))}" for s in result.spreads] or ["  nothing"]
+    handles = (f" and handle {format_quantity(result.required_amplitude, 'V')}" if result.required_amplitude
+               else "")
     lines += ["", f"yield {100 * result.yield_fraction:.2f} % ({int(result.passed.sum())} of {result.samples} pass "
-                  "the check rule" + (f" and handle {result.required_amplitude:g} V" if result.required_amplitude
-                                      else "") + ")", "", "percentiles"]
+                  f"the check rule{handles})", "", "percentiles"]
     for address, p in result.percentiles.items():
         unit = RESULT_UNITS[address.rpartition(".")[2]]
         lines.append(f"  {address:28s} " + "  ".join(f"p{q} {format_quantity(v, unit)}" for q, v in p.items()))

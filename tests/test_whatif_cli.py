@@ -90,6 +90,18 @@ def test_tolerance_json_matches_the_api_and_min_yield_sets_the_exit_status(capsy
     assert status == 0 and "percentiles" in out and "most influential" in out
 
 
+def test_tolerance_text_states_the_spreads_in_engineering_notation(capsys):
+    # The demo's s1.rc is 4.7 kΩ (ampplan/data/demo_plan.json); ±5 % of it is 4.465 kΩ … 4.935 kΩ,
+    # and the default V_BE(on) spread is ±10 mV about 0.7 V (Plan.tolerance's documented defaults).
+    status, out, _ = run(capsys, "tolerance", "--demo", "--samples", "20", "--seed", "1",
+                         "--required-amplitude", "10m")
+    assert status in (0, 1)
+    assert "  s1.rc: 4.465 kΩ … 4.935 kΩ" in out
+    assert "  s1.device.vbe_on: 690 mV … 710 mV" in out
+    assert "  temperature: 0 °C … 50 °C" in out
+    assert "and handle 10 mV)" in out
+
+
 @pytest.mark.parametrize("argv, message", [
     (["--resistors", "lots"], r"--resistors 'lots'"),
     (["--beta", "2"], r"--beta '2': expected LO..HI"),
