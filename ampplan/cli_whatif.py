@@ -105,6 +105,14 @@ def _cell(value, unit: str) -> str:
     return format_quantity(float(value), unit)
 
 
+def _achieved(value: float, unit: str, name: str) -> str:
+    """The exact value's target quantity; the symmetric swing's difference, a root-finder's few fV
+    about zero, is shown as centred to 1 nV rather than as numerical noise."""
+    if name == "symmetric_swing" and abs(value) < 1e-9:
+        return "0 V (centred to 1 nV: swing toward saturation − toward cutoff)"
+    return format_quantity(value, unit, 6)
+
+
 # ------------------------------------------------------------------------------------------------
 # sweep
 # ------------------------------------------------------------------------------------------------
@@ -327,7 +335,7 @@ def _design(args, out, err) -> int:
     lines = [f"ampplan design: {label} ({args.model} model): {args.address} for {result.target} = "
              f"{format_quantity(result.value, target_unit)}",
              f"  exact     {args.address} = {format_quantity(result.exact, unit, 6)}  ->  {result.target} = "
-             f"{format_quantity(result.achieved, target_unit, 6)}"]
+             f"{_achieved(result.achieved, target_unit, name)}"]
     if len(result.roots) > 1:
         lines.append("  note: the target is reached at " + ", ".join(format_quantity(r, unit, 6) for r in result.roots)
                      + "; the one nearest the plan's value is used")

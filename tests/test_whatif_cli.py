@@ -164,6 +164,8 @@ def test_design_symmetric_swing_and_json(capsys):
     data = json.loads(out)
     assert data["target"] == "s1.symmetric_swing" and abs(data["achieved"]) < 1e-6
     assert data["exit_status"] == status
+    status, out, _ = run(capsys, "design", "--demo", "s2.rc", "--target", "symmetric_swing", "--series", "E24")
+    assert "s2.symmetric_swing = 0 V (centred to 1 nV" in out and "<- chosen" in out
 
 
 def test_design_out_of_reach_exits_1(capsys, tmp_path):

@@ -18,7 +18,7 @@ from ampplan import eseries
 from ampplan.errors import InvalidValueError, TargetNotReachedError, UnknownModelError, UnknownNameError
 
 from test_whatif_sweep import demo_plan
-from test_whatif_tolerance import BETA, RB, RC, VBE, VCC, fixed_bias_plan
+from test_whatif_tolerance import BETA, RB, RC, VBE, VCC, VCE_SAT, fixed_bias_plan
 
 
 def test_collector_resistor_for_a_vce_by_hand():
@@ -74,6 +74,37 @@ def test_symmetric_swing_centres_the_q_point():
     assert solved["s1.swing_to_saturation"] == pytest.approx(solved["s1.swing_to_cutoff"], rel=1e-8)
     assert abs(result.achieved) < 1e-8 * solved["s1.swing"]
     assert result.snapped in eseries.neighbours(result.exact, "E12")
+
+
+def test_symmetric_swing_by_hand_and_never_in_saturation():
+    # Fixed bias, no load, infinite Early voltage: the AC load line is the DC one, so the swing
+    # toward saturation is V_CE − V_CE(sat) and toward cutoff I_C·R_C. Equal when
+    # R_C = (V_CC − V_CE(sat)) / (2·I_C), I_C = β·(V_CC − V_BE)/R_B (Sedra & Smith, the BJT chapter,
+    # from memory). The bounds reach far into saturation (R_C above (V_CC − V_CE(sat))/I_C), where
+    # both swings are 0: a difference of 0 there is no centred Q-point and must not count as a root.
+    plan = fixed_bias_plan(rb=2.2e6)
+    ic = BETA * (VCC - VBE) / 2.2e6
+    assert plan.get("s1.device.early_voltage") == math.inf
+    result = plan.design("s1.rc", "s1.symmetric_swing", bounds=(100.0, 1e6))
+    assert result.roots == (result.exact,)
+    assert result.exact == pytest.approx((VCC - VCE_SAT) / (2 * ic), rel=1e-9)
+    assert result.result["s1.region"] == "forward-active"
+
+
+def test_symmetric_swing_of_a_later_stage_keeps_it_forward_active():
+    # In the demo, raising s1.rc far enough saturates the direct-coupled s2 (both its swings 0).
+    # The centred Q-point of s2 must come from forward-active samples only, and so must the E24
+    # neighbour chosen: re-solved, its two swings differ by little and it is forward-active.
+    plan = demo_plan()
+    result = plan.design("s1.rc", "s2.symmetric_swing", series="E24")
+    for value in (result.exact, *result.roots):
+        trial = plan.copy()
+        trial.set("s1.rc", value)
+        solved = trial.solve()
+        assert solved["s2.region"] == "forward-active"
+        assert solved["s2.swing_to_saturation"] == pytest.approx(solved["s2.swing_to_cutoff"], rel=1e-8)
+    snapped = result.plan.solve()
+    assert snapped["s2.region"] == "forward-active" and snapped["s2.swing"] > 0
 
 
 def test_a_target_reached_twice_reports_both_roots():

@@ -2,7 +2,8 @@
 
 "What collector resistor puts V_CE at 5 V?" is ``design(plan, "s1.rc", ("s1.vce", 5.0))``. The
 named target ``"sN.symmetric_swing"`` asks for the Q-point centred on the stage's AC load line:
-swing toward saturation equal to swing toward cutoff.
+swing toward saturation equal to swing toward cutoff. Only forward-active samples count for it:
+outside forward-active both swings are zero, which is a difference of zero but no centred Q-point.
 
 Method: one batched solve over a grid of the bounds (logarithmic when they span a factor of four
 or more, else linear) brackets every sign change of ``result − target``; each bracket is then
@@ -122,8 +123,14 @@ def _target(plan, target) -> tuple:
             raise InvalidValueError(f"design target {target!r}: a named target is '<stage id>.{SYMMETRIC_SWING}'; "
                                     "otherwise give (result address, value), e.g. ('s1.vce', 5.0)")
         check_result_address(f"{sid}.swing", plan.stage_ids)
-        up, down = f"{sid}.swing_to_saturation", f"{sid}.swing_to_cutoff"
-        return target, 0.0, (up, down), lambda t: t[up] - t[down]
+        up, down, region = f"{sid}.swing_to_saturation", f"{sid}.swing_to_cutoff", f"{sid}.region"
+
+        def centred(t):
+            # Saturated or cut off, both swings are 0: no centred Q-point, so no value at all.
+            active = np.asarray(t[region]) == "forward-active"
+            with np.errstate(invalid="ignore"):
+                return np.where(active, np.asarray(t[up], dtype=float) - np.asarray(t[down], dtype=float), np.nan)
+        return target, 0.0, (up, down, region), centred
     try:
         address, value = target
     except (TypeError, ValueError):
@@ -176,11 +183,12 @@ def _bounds(plan, address: str, bounds) -> tuple:
 
 
 def _resolve(plan, address: str, x: float, model: str, columns):
-    """The plan with ``address = x`` solved on its own: (plan, result, columns as floats)."""
+    """The plan with ``address = x`` solved on its own: (plan, result, columns: floats, words as str)."""
     trial = plan.copy()
     trial.set(address, x)
     result = trial.solve(model=model)
-    return trial, result, {c: float(result[c]) for c in columns}
+    return trial, result, {c: result[c] if c.rpartition(".")[2] in WORD_RESULTS else float(result[c])
+                           for c in columns}
 
 
 def design(plan, address: str, target, series=None, bounds=None, model: str = "constant-drop") -> DesignResult:
@@ -290,7 +298,9 @@ def design(plan, address: str, target, series=None, bounds=None, model: str = "c
 
 
 def _quantity(got: dict, columns, value: float) -> float:
-    """The target quantity from re-solved columns (the swing difference for the symmetric target)."""
-    if len(columns) == 2:
-        return got[columns[0]] - got[columns[1]]
+    """The target quantity from re-solved columns (the swing difference for the symmetric target,
+    NaN when that stage is not forward-active)."""
+    if len(columns) == 3:
+        up, down, region = columns
+        return got[up] - got[down] if got[region] == "forward-active" else math.nan
     return got[columns[0]]
