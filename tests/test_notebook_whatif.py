@@ -224,6 +224,23 @@ def test_tolerance_view_after_an_edit_and_again(live):
     assert again is view and again.run.samples == 100
 
 
+def test_tolerance_view_is_current_again_when_an_undo_restores_the_plan_that_was_run(live):
+    canvas = live.canvas()
+    view = live.tolerance_view(samples=200, seed=1)
+    glyph = canvas.canvas.panels["s1"].renderers["cloud"].glyph
+    live.set("s2.rc", 3.3e3)
+    assert view.stale and glyph.fill_color == "#9a9a9a"
+    live.set("s2.rc", 3.6e3)                       # still not the plan that was run
+    assert view.stale
+    live.undo()
+    live.undo()                                    # back to the plan of the run
+    assert not view.stale and "back to the one that was run" in view.status.value
+    assert not any(c.stale for c in live.clouds) and glyph.fill_color != "#9a9a9a"
+    assert "before a later edit" not in view._record_html()["text/html"]
+    live.redo()
+    assert view.stale and "changed since this run" in view.status.value
+
+
 def test_tolerance_view_button_runs_it_again(live):
     view = live.tolerance_view(samples=100, seed=5)
     first = view.run

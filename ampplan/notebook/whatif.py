@@ -29,6 +29,7 @@ from bokeh.plotting import figure
 
 from ..analyses.whatif.pictures import stale_clouds, sweep_picture, tolerance_picture
 from ..errors import AmpplanError
+from ..record.convert import plan_to_dict
 from ..units import format_quantity
 from .record import StaticRecord, html_block
 from .tables import status_html as _status_words
@@ -321,6 +322,7 @@ class ToleranceView(_WhatIfView):
         self.run = None
         self.picture = None
         self.stale = False
+        self._ran_on = None  # (plan file dict, model) of the latest run
         self.run_seconds = math.nan
         self.button = widgets.Button(description="Run again with the plan as it is now",
                                      layout=widgets.Layout(width="320px"))
@@ -379,20 +381,37 @@ class ToleranceView(_WhatIfView):
             self.button.disabled = False
         self.options = options
         self.run = run
+        self._ran_on = (plan_to_dict(plan), model)
         self.picture = tolerance_picture(run, nominal)
         self.run_seconds = time.perf_counter() - start
         self.progress.bar_style = "success"
         self.stale = False
         self._draw()
         live._set_clouds(self.picture.clouds)
-        self.status.value = (f"<span style='color:#1b5e20'>✓ {run.samples} samples in {self.run_seconds:.2f} s "
-                             f"({_e(run.model)} model)</span>")
+        self._say_done()
         self.record.refresh()
         return True
 
+    def _say_done(self, again: str = "") -> None:
+        run = self.run
+        self.status.value = (f"<span style='color:#1b5e20'>✓ {run.samples} samples in {self.run_seconds:.2f} s "
+                             f"({_e(run.model)} model){again}</span>")
+
     def refresh(self, change=None) -> None:
-        """After an edit of the live plan: the run shown is of the plan before it (say so once)."""
-        if self.run is None or self.stale or change is None or change.status.kind == "refused":
+        """After an edit of the live plan: the run shown is of the plan before it (say so once),
+        until an edit (an undo, say) brings the plan back to the one that was run."""
+        if self.run is None or change is None or change.status.kind == "refused":
+            return
+        live = self.live
+        now = (plan_to_dict(live.plan), self.options.get("model") or live.model)
+        if now == self._ran_on:
+            if self.stale:
+                self.stale = False
+                self._say_done("; the plan is back to the one that was run")
+                live._set_clouds(self.picture.clouds)
+                self.record.refresh()
+            return
+        if self.stale:
             return
         self.stale = True
         self.status.value = ("<span style='color:#8a5a00'><b>The plan changed since this run</b> "
