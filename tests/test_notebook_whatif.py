@@ -25,7 +25,7 @@ from ampplan.analyses.plane import plan_planes  # noqa: E402
 from ampplan.analyses.whatif.pictures import CLOUD_POINTS, sweep_picture  # noqa: E402
 from ampplan.errors import InvalidValueError, TargetNotReachedError, UnknownNameError  # noqa: E402
 from ampplan.notebook.look import current_scale  # noqa: E402
-from ampplan.notebook.whatif_picture import display_scale  # noqa: E402
+from ampplan.notebook.whatif_picture import display_scale, log_ticks  # noqa: E402
 
 PNG = b"\x89PNG\r\n\x1a\n"
 
@@ -72,6 +72,17 @@ def test_sweep_view_curves_equal_single_solves(live):
     assert view.markers[0].data["x"] == pytest.approx([4.7])  # kΩ
     assert p.curves[0].current == pytest.approx(now["s1.vce"], rel=1e-12)
     assert all(line.location == pytest.approx(4.7) for line in view.now)
+    # A log axis over 1 … 20 kΩ is labelled 1, 2, 5, 10, 20 (the 1-2-5 sequence of log scales:
+    # common practice, no source), in the live figures and the static picture alike.
+    assert all(f.xaxis[0].ticker.ticks == [1.0, 2.0, 5.0, 10.0, 20.0] for f in view.figures)
+
+
+def test_log_ticks():
+    assert log_ticks(1.0, 20.0) == [1.0, 2.0, 5.0, 10.0, 20.0]
+    assert log_ticks(0.47, 10.0) == [0.5, 1.0, 2.0, 5.0, 10.0]
+    assert log_ticks(1.5, 4.0) == [2.0, 3.0, 4.0]          # too few of 1, 2, 5: every mantissa
+    assert log_ticks(3.3, 4.7) == []                        # narrower still: the library's ticks
+    assert log_ticks(0.0, 1.0) == []
 
 
 def test_sweep_view_is_one_batched_sweep(live):

@@ -24,7 +24,7 @@ import time
 
 import ipywidgets as widgets
 from bokeh.layouts import column, row
-from bokeh.models import ColumnDataSource, HoverTool, LabelSet, Range1d, Span
+from bokeh.models import ColumnDataSource, FixedTicker, HoverTool, LabelSet, Range1d, Span
 from bokeh.plotting import figure
 
 from ..analyses.whatif.pictures import stale_clouds, sweep_picture, tolerance_picture
@@ -33,8 +33,8 @@ from ..record.convert import plan_to_dict
 from ..units import format_quantity
 from .record import StaticRecord, html_block
 from .tables import status_html as _status_words
-from .whatif_picture import (HISTOGRAM_COLOURS, SWEEP_COLOURS, axis_label, display_scale, span_colour, span_label,
-                             span_middle, sweep_png, tolerance_png, y_limits)
+from .whatif_picture import (HISTOGRAM_COLOURS, SWEEP_COLOURS, axis_label, display_scale, log_ticks, span_colour,
+                             span_label, span_middle, sweep_png, tolerance_png, y_limits)
 
 __all__ = ["SweepView", "ToleranceView", "Records", "HISTOGRAM_KEY"]
 
@@ -184,6 +184,12 @@ class SweepView(_WhatIfView):
             self.markers.append(mark)
             self.figures.append(f)
         self.x_range = x_range
+        if self.picture.log:
+            x_factor = display_scale(self.picture.x, self.picture.unit)[0]
+            ticks = log_ticks(self.picture.x[0] * x_factor, self.picture.x[-1] * x_factor)
+            if ticks:
+                for f in self.figures:
+                    f.xaxis.ticker = FixedTicker(ticks=ticks, minor_ticks=[])
         self.bokeh_layout = column(children=self.figures, name=f"{name}-layout")
         self._draw()
         self.plot = BatchedBokehModel(self.bokeh_layout)

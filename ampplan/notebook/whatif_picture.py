@@ -15,7 +15,7 @@ from .look import COLOURS
 
 __all__ = ["display_scale", "SPAN_COLOURS", "SWEEP_COLOURS", "HISTOGRAM_COLOURS", "span_colour",
            "sweep_png", "tolerance_png", "axis_label", "y_limits", "span_label",
-           "span_middle"]
+           "span_middle", "log_ticks"]
 
 #: Shading of the spans of a sweep, by what they mark (the canvas's limit bands' greys, and a
 #: light purple where the plan does not solve); each span is also stated in words.
@@ -35,6 +35,21 @@ def span_label(span) -> str:
 
 def span_middle(span, log: bool) -> float:
     return math.sqrt(span.lo * span.hi) if log and span.lo > 0 else (span.lo + span.hi) / 2
+
+
+def log_ticks(lo: float, hi: float) -> list:
+    """Ticks of a logarithmic axis from ``lo`` to ``hi`` (display units): 1, 2, 5 in each decade,
+    or every mantissa 1 … 9 when that gives fewer than four, so a designer reads 1 k, 2 k, 5 k, 10 k
+    rather than a decade's end alone; empty when even that gives fewer than three."""
+    if not (lo > 0 and hi > lo and math.isfinite(hi)):
+        return []
+    for mantissas in ((1, 2, 5), (1, 2, 3, 4, 5, 6, 7, 8, 9)):
+        ticks = [m * 10.0 ** k for k in range(math.floor(math.log10(lo)), math.ceil(math.log10(hi)) + 1)
+                 for m in mantissas]
+        ticks = [float(f"{t:.6g}") for t in ticks if lo * (1 - 1e-9) <= t <= hi * (1 + 1e-9)]
+        if len(ticks) >= 4:
+            break
+    return ticks if len(ticks) >= 3 else []   # a narrow range: the plotting library's own ticks
 
 
 def span_colour(what: str) -> str:
@@ -101,6 +116,7 @@ def sweep_png(picture, stale: bool = False, dpi: int = 80) -> bytes:
     """The sweep view as a PNG: one panel per curve, sharing the swept axis, spans shaded."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
+    from matplotlib.ticker import NullFormatter
 
     rows = len(picture.curves)
     figure = Figure(figsize=(7.0, 0.6 + 2.0 * rows), dpi=dpi)
@@ -126,6 +142,10 @@ def sweep_png(picture, stale: bool = False, dpi: int = 80) -> bytes:
         ax.grid(True, linewidth=0.3, alpha=0.6)
         if picture.log:
             ax.set_xscale("log")
+            ticks = log_ticks(xs[0], xs[-1])
+            if ticks:
+                ax.set_xticks(ticks, [f"{t:g}" for t in ticks])
+                ax.xaxis.set_minor_formatter(NullFormatter())
         ax.set_xlim(xs[0], xs[-1])
         if stale:
             ax.set_facecolor(COLOURS["stale"])
