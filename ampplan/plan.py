@@ -23,6 +23,7 @@ from .devices import FIELDS as DEVICE_FIELDS
 from .devices import PARAMETERS as DEVICE_PARAMETERS
 from .errors import DuplicateNameError, InvalidValueError, UnknownModelError, UnknownNameError
 from .stages import Parameter, Rails, Stage, StageNodes, declared, declared_parameters
+from .units import format_quantity
 from .validation import MAX_TEXT_LENGTH, check_samples, check_text, shown
 
 __all__ = ["Plan", "PlanValues", "Coupling", "COUPLINGS", "CompiledPlan", "PlanAddress", "PLAN_PARAMETERS"]
@@ -83,7 +84,7 @@ class PlanValues:
             # Below the circuit's smallest resistance the source would swamp the equations' precision;
             # 0 is the ideal source.
             raise InvalidValueError(f"Plan.source_resistance: must be 0 (an ideal source) or >= "
-                                    f"{RESISTANCE_RANGE[0]:g} Ω, got {shown(self.source_resistance)}")
+                                    f"{format_quantity(RESISTANCE_RANGE[0], 'Ω')}, got {shown(self.source_resistance)}")
 
 
 #: Plan-level numbers by name, read from :class:`PlanValues`' declarations.

@@ -96,7 +96,7 @@ class Parameter:
                             required=self.help)
 
     def bounds_text(self) -> str:
-        """The allowed range in words, e.g. ``"> 0 F"`` or ``">= 1e-06 Ω and <= 1e+12 Ω"``."""
+        """The allowed range in words, e.g. ``"> 0 F"`` or ``">= 1 µΩ and <= 1 TΩ"``."""
         return bounds_text(self.minimum, self.maximum, self.minimum_inclusive, self.unit)
 
 

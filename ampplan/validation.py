@@ -20,6 +20,7 @@ import numbers
 import numpy as np
 
 from .errors import InvalidValueError
+from .units import format_quantity
 
 __all__ = ["shown", "bounds_text", "check_number", "check_samples", "check_text", "unencodable",
            "MAX_NAME_LENGTH", "MAX_TEXT_LENGTH"]
@@ -51,12 +52,19 @@ def shown(value) -> str:
 
 def bounds_text(minimum: float = -math.inf, maximum: float = math.inf, minimum_inclusive: bool = False,
                 unit: str = "") -> str:
-    """The allowed range in words: ``"> 0 Ω"``, ``">= 1e-06 Ω and <= 1e+12 Ω"`` or ``"finite"``."""
+    """The allowed range in words: ``"> 0 Ω"``, ``">= 1 µΩ and <= 1 TΩ"`` or ``"finite"``.
+
+    A bound with a unit is written in engineering notation (:func:`ampplan.units.format_quantity`);
+    a plain number as ``%g``.
+    """
+    def bound(value: float) -> str:
+        return format_quantity(value, unit) if unit else f"{value:g}"
+
     parts = []
     if math.isfinite(minimum):
-        parts.append(f"{'>=' if minimum_inclusive else '>'} {minimum:g} {unit}".rstrip())
+        parts.append(f"{'>=' if minimum_inclusive else '>'} {bound(minimum)}")
     if math.isfinite(maximum):
-        parts.append(f"<= {maximum:g} {unit}".rstrip())
+        parts.append(f"<= {bound(maximum)}")
     return " and ".join(parts) or "finite"
 
 

@@ -182,7 +182,7 @@ def test_set_reads_the_unit_of_the_address(capsys, saturated, with_unit, without
     pytest.param("supply=12Ω", ["unexpected 'Ω'", "expected V or no unit"], id="ohms-for-a-supply"),
     pytest.param("s1.device.beta=150A", ["unexpected 'A'", "expected no unit"], id="unit-on-a-gain"),
     pytest.param("s1.device.beta=True", ["cannot read 'True'"], id="bool-word"),
-    pytest.param("s1.rc=1n", ["CommonEmitter.rc", ">= 1e-06 Ω", "got 1e-09"], id="below-resistance-range"),
+    pytest.param("s1.rc=1n", ["CommonEmitter.rc", ">= 1 µΩ", "got 1e-09"], id="below-resistance-range"),
     pytest.param("s1.device=general", ["s1.device is a whole transistor", "s1.device.beta="], id="whole-device"),
     pytest.param("s1.rb1=none", ["needs its own base bias"], id="clearing-the-bias"),
 ])
@@ -223,7 +223,7 @@ def test_bad_file_exits_2(capsys, tmp_path, saturated):
     bad.write_text(json.dumps(data), encoding="utf-8")
     status, out, err = run(capsys, "check", str(bad))
     assert status == 2 and out == ""
-    assert err.strip() == f"ampplan: {bad}: stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got -4700"
+    assert err.strip() == f"ampplan: {bad}: stages[0].rc: must be >= 1 µΩ and <= 1 TΩ, got -4700"
 
 
 @pytest.mark.parametrize("content, expected", [

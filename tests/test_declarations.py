@@ -79,7 +79,7 @@ def test_device_typical_table_covers_exactly_the_numeric_parameters():
 def test_plan_values_validate_as_the_plan_does():
     with pytest.raises(ampplan.errors.InvalidValueError, match="Plan.supply: must be > 0 V"):
         PlanValues(supply=-1.0)
-    with pytest.raises(ampplan.errors.InvalidValueError, match="must be 0 \\(an ideal source\\) or >= 1e-06"):
+    with pytest.raises(ampplan.errors.InvalidValueError, match="must be 0 \\(an ideal source\\) or >= 1 µΩ"):
         PlanValues(source_resistance=1e-9)
     plan = Plan(supply=15.0)
     assert plan.values == PlanValues(supply=15.0)

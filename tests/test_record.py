@@ -232,16 +232,16 @@ def _drop(*path):
 MALFORMED = [
     # id, mutation of a valid document, text (or texts) the message must contain
     ("negative-resistor", _set("stages", 1, "rc", -4700),
-     "stages[1].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got -4700"),
-    ("zero-resistor", _set("stages", 0, "re", 0), "stages[0].re: must be >= 1e-06 Ω and <= 1e+12 Ω, got 0"),
+     "stages[1].rc: must be >= 1 µΩ and <= 1 TΩ, got -4700"),
+    ("zero-resistor", _set("stages", 0, "re", 0), "stages[0].re: must be >= 1 µΩ and <= 1 TΩ, got 0"),
     ("negative-optional-resistor", _set("stages", 4, "rb1", -1.5),
-     "stages[4].rb1: must be >= 1e-06 Ω and <= 1e+12 Ω, got -1.5"),
+     "stages[4].rb1: must be >= 1 µΩ and <= 1 TΩ, got -1.5"),
     # Resistances take their bounds from circuit.RESISTANCE_RANGE (1 µΩ to 1 TΩ) everywhere.
-    ("tiny-resistor", _set("stages", 0, "rc", 1e-9), "stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got 1e-09"),
+    ("tiny-resistor", _set("stages", 0, "rc", 1e-9), "stages[0].rc: must be >= 1 µΩ and <= 1 TΩ, got 1e-09"),
     ("huge-load", _set("load_resistance", 1e13),
-     "load_resistance: must be >= 1e-06 Ω and <= 1e+12 Ω, got 10000000000000"),
+     "load_resistance: must be >= 1 µΩ and <= 1 TΩ, got 10000000000000"),
     ("tiny-source-resistance", _set("source_resistance", 1e-9),
-     "source_resistance: must be 0 (an ideal source) or >= 1e-06 Ω, got 1e-09"),
+     "source_resistance: must be 0 (an ideal source) or >= 1 µΩ, got 1e-09"),
     ("text-for-number", _set("stages", 0, "rc", "4.7k"), 'stages[0].rc: must be a number, got "4.7k"'),
     ("boolean-for-number", _set("supply", True), "supply: must be a number, got true"),
     ("null-for-required", _set("stages", 0, "rc", None), "stages[0].rc: must be a number, got null"),
@@ -270,7 +270,7 @@ MALFORMED = [
     ("stage-not-an-object", _set("stages", 2, 7), "stages[2]: must be an object, got 7"),
     ("description-not-text", _set("description", 5), "description: must be text, got 5"),
     # Found by the constructors, re-addressed to the JSON path.
-    ("positive-lower-rail", _set("negative_supply", 5), ("negative_supply: must be >= -10000 V and <= 0 V, got 5", "got 5")),
+    ("positive-lower-rail", _set("negative_supply", 5), ("negative_supply: must be >= -10 kV and <= 0 V, got 5", "got 5")),
     ("zero-supply", _set("supply", 0), ("supply: must be > 0 V", "got 0")),
     ("negative-source-resistance", _set("source_resistance", -50), ("source_resistance: must be ", "got -50")),
     ("capacitor-coupled-without-bias", _set("stages", 1, "coupling", "capacitor"),
@@ -282,7 +282,7 @@ MALFORMED = [
     ("custom-node-count", _set("stages", 3, "elements", 7, "nodes", ["a", "b"]),
      "stages[3].elements[7].nodes: must list 3 nodes (collector, base, emitter), got 2"),
     ("custom-negative-resistor", _set("stages", 3, "elements", 0, "value", -5),
-     "stages[3].elements[0].value: must be >= 1e-06 Ω and <= 1e+12 Ω, got -5"),
+     "stages[3].elements[0].value: must be >= 1 µΩ and <= 1 TΩ, got -5"),
     ("custom-transistor-without-device", _drop("stages", 3, "elements", 7, "device"),
      "stages[3].elements[7]: missing key 'device'"),
     ("custom-value-on-transistor", _set("stages", 3, "elements", 7, "value", 1.0),
@@ -414,7 +414,7 @@ def test_plan_from_dict_names_its_source(document):
     data = copy.deepcopy(document)
     data["stages"][0]["rc"] = -4700
     message = str(pytest.raises(PlanFileError, plan_from_dict, data, source="pasted plan").value)
-    assert message == "pasted plan: stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got -4700"
+    assert message == "pasted plan: stages[0].rc: must be >= 1 µΩ and <= 1 TΩ, got -4700"
 
 
 def test_read_plan_file_returns_the_validated_dict(tmp_path, document):
@@ -504,7 +504,7 @@ def _plan_holding(value) -> Plan:
 
 
 @pytest.mark.parametrize("value, expected", [
-    pytest.param(1e-9, "stages[0].rc: must be >= 1e-06 Ω and <= 1e+12 Ω, got 1e-09", id="below-range"),
+    pytest.param(1e-9, "stages[0].rc: must be >= 1 µΩ and <= 1 TΩ, got 1e-09", id="below-range"),
     pytest.param("4.7k", 'stages[0].rc: must be a number, got "4.7k"', id="text"),
 ])
 def test_save_refuses_a_plan_that_would_not_load(tmp_path, value, expected):

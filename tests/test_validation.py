@@ -108,7 +108,7 @@ def test_numbers_print_plainly():
     assert shown(np.str_("a")) == "'a'"
     assert shown(np.bool_(True)) == "True"
     assert bounds_text() == "finite"
-    assert bounds_text(RESISTANCE_RANGE[0], RESISTANCE_RANGE[1], True, "Ω") == ">= 1e-06 Ω and <= 1e+12 Ω"
+    assert bounds_text(RESISTANCE_RANGE[0], RESISTANCE_RANGE[1], True, "Ω") == ">= 1 µΩ and <= 1 TΩ"
 
 
 # ------------------------------------------------------------------------------------------------
@@ -294,7 +294,7 @@ def _batch_circuit():
                  id="polarity"),
     pytest.param({"temperature": [25.0, -300.0]}, ["batch['temperature']", ">= -55 °C and <= 150 °C", "got -300 at sample 1"],
                  id="temperature-sample"),
-    pytest.param({"RC": np.array([1e3, 1e-9])}, ["batch['RC']", ">= 1e-06 Ω and <= 1e+12 Ω", "got 1e-09 at sample 1"],
+    pytest.param({"RC": np.array([1e3, 1e-9])}, ["batch['RC']", ">= 1 µΩ and <= 1 TΩ", "got 1e-09 at sample 1"],
                  id="tiny-resistor"),
     pytest.param({"RC": [[1e3, 2e3]]}, ["batch['RC']", "shape (1, 2)"], id="two-dimensional"),
     pytest.param({"RC": [1e3, [2e3]]}, ["batch['RC']", "1-D array"], id="ragged"),
@@ -341,12 +341,12 @@ def test_stage_resistances_take_the_circuit_range():
 
 @pytest.mark.parametrize("make, words", [
     pytest.param(lambda: CommonEmitter(rb1=47e3, rb2=10e3, rc=1e-9), ["CommonEmitter.rc", "got 1e-09"], id="tiny-rc"),
-    pytest.param(lambda: CommonCollector(re=1e13), ["CommonCollector.re", "<= 1e+12 Ω"], id="huge-re"),
-    pytest.param(lambda: CommonBase(rb1=1e-7), ["CommonBase.rb1", ">= 1e-06 Ω"], id="tiny-rb1"),
-    pytest.param(lambda: Plan(load_resistance=1e-9), ["Plan.load_resistance", ">= 1e-06 Ω"], id="tiny-load"),
-    pytest.param(lambda: Plan(source_resistance=1e-9), ["Plan.source_resistance", "0 (an ideal source) or >= 1e-06"],
+    pytest.param(lambda: CommonCollector(re=1e13), ["CommonCollector.re", "<= 1 TΩ"], id="huge-re"),
+    pytest.param(lambda: CommonBase(rb1=1e-7), ["CommonBase.rb1", ">= 1 µΩ"], id="tiny-rb1"),
+    pytest.param(lambda: Plan(load_resistance=1e-9), ["Plan.load_resistance", ">= 1 µΩ"], id="tiny-load"),
+    pytest.param(lambda: Plan(source_resistance=1e-9), ["Plan.source_resistance", "0 (an ideal source) or >= 1 µΩ"],
                  id="tiny-source"),
-    pytest.param(lambda: Plan(source_resistance=1e13), ["Plan.source_resistance", "<= 1e+12 Ω"], id="huge-source"),
+    pytest.param(lambda: Plan(source_resistance=1e13), ["Plan.source_resistance", "<= 1 TΩ"], id="huge-source"),
 ])
 def test_resistance_out_of_range(make, words):
     _raises(errors.InvalidValueError, words, make)
