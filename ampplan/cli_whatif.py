@@ -34,6 +34,7 @@ import numpy as np
 
 from . import eseries
 from .analyses.addresses import RESULT_UNITS, WORD_RESULTS, check_result_address
+from .analyses.whatif.sweeps import check_address
 from .cli import EXIT_BAD_INPUT, EXIT_NOT_OK, EXIT_OK, _apply_settings, _BadInput, _fail, _read, _verdict
 from .errors import AmpplanError, ConvergenceError, NoConsistentRegionError, PlanFileError, TargetNotReachedError
 from .record import save_plan
@@ -125,9 +126,10 @@ def _sweep_values(plan, varies, grid: bool) -> dict:
         if not sep or not address or not text.strip():
             raise _BadInput(f"--vary {item!r}: expected ADDRESS=LO..HI[:N][log], e.g. s1.rc=1k..10k:20log")
         try:
+            check_address(plan, address, "--vary")   # the API's words for what a batch cannot vary
             unit = plan.unit(address)
         except AmpplanError as exc:
-            raise _BadInput(f"--vary {item}: {exc}") from None
+            raise _BadInput(f"{exc}" if str(exc).startswith("--vary") else f"--vary {item}: {exc}") from None
         lo, hi, n, log = parse_range(text, unit, f"--vary {address}")
         n = DEFAULT_POINTS if n is None else n
         values[address] = np.geomspace(lo, hi, n) if log else np.linspace(lo, hi, n)
