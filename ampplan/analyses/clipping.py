@@ -30,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..circuit import Capacitor, Circuit, UnionFind, VoltageSource
+from .clipping_newton import newton_edges
 
 __all__ = ["ClipArrays", "clipping_batch", "COARSE_STEPS", "RELATIVE_TOLERANCE"]
 
@@ -113,8 +114,25 @@ def clipping_batch(compiled, op, params, drive, system, regions, ib, vce, edges,
     if op.model == "constant-drop":
         _exact(out, todo, drive, system, ib, vce, edges, stages, span)
     else:
-        _searched(out, todo, compiled, op, params, stages, span, active_edge, batch, estimate)
+        _newton(out, todo, compiled, op, params, drive, system, stages, span, active_edge, batch, estimate)
     return out
+
+
+def _newton(out, todo, compiled, op, params, drive, system, stages, span, active_edge, batch, estimate):
+    """Ebers–Moll: Newton to each edge (:mod:`.clipping_newton`); the grid search for the rest."""
+    cached = compiled.cache.get("held")
+    if cached is None:
+        cached = compiled.cache["held"] = held_circuit(compiled.circuit)
+    amount, who, check, found = newton_edges(compiled, cached[0], op, params, drive, system, todo, span, REACH)
+    entered = np.array(["cutoff", "saturation"], dtype=object)
+    for side, name in enumerate(("positive", "negative")):
+        hit = found[:, side] & np.isfinite(amount[:, side])
+        getattr(out, name)[todo] = amount[:, side]
+        getattr(out, f"{name}_stage")[todo] = np.where(hit, stages[np.maximum(who[:, side], 0)], None)
+        getattr(out, f"{name}_region")[todo] = np.where(hit, entered[np.maximum(check[:, side], 0)], None)
+    rest = todo[~found.all(axis=1)]
+    if rest.size:
+        _searched(out, rest, compiled, op, params, stages, span, active_edge, batch, estimate)
 
 
 def _exact(out, todo, drive, system, ib, vce, edges, stages, span):

@@ -304,3 +304,32 @@ class Elimination:
                 ok &= residual <= RESIDUAL * scale + 1e-300
         x[:, ~ok] = np.nan
         return x, ok
+
+    def solve_several(self, values: np.ndarray, rhs: tuple) -> tuple[tuple, np.ndarray]:
+        """Solve A·x = b for several right-hand sides b of every sample, factorising once.
+
+        Parameters
+        ----------
+        values : ndarray, shape (P, S)
+        rhs : tuple of ndarray, each of shape (n, S)
+
+        Returns
+        -------
+        x : tuple of ndarray, each of shape (n, S)
+        ok : ndarray of bool, shape (S,)
+            As for :meth:`solve` without the residual test (NaN columns where False).
+        """
+        s_count = values.shape[1]
+        if self.singular:
+            return tuple(np.full(b.shape, np.nan) for b in rhs), np.zeros(s_count, dtype=bool)
+        factors = self.factor(values)
+        xs = tuple(self.substitute(factors, b) for b in rhs)
+        with np.errstate(all="ignore"):
+            ok = np.ones(s_count, dtype=bool)
+            for x in xs:
+                ok &= np.all(np.isfinite(x), axis=0)
+            if self._multipliers.size:
+                ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+        for x in xs:
+            x[:, ~ok] = np.nan
+        return xs, ok

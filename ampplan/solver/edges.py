@@ -1,0 +1,230 @@
+"""Ebers–Moll: the value of one source at which a transistor reaches an edge of forward-active.
+
+The circuit's equations F(x) = b + δ·e (e: the unit right-hand side of the varied source's row, δ
+its excursion from the value in ``params``) are bordered by one more equation, a forward-active
+check of one transistor held at its limit (the *pinned* check, in the NPN frame):
+
+* ``"be conducts"`` (``check = 0``): V_BE = its conduction voltage (the edge toward cutoff);
+* ``"above edge"`` (``check = 1``): V_CE = V_CE(sat) (the edge toward saturation).
+
+Both are linear in the node voltages, a·x = L. Newton's method on the bordered system in (x, δ)
+(Keller's bordering, from memory; Allgower & Georg, *Numerical Continuation Methods*, the chapter
+on Newton's method for underdetermined systems, from memory) needs at each iterate the usual
+Newton matrix J (the linear part plus every transistor's companion model, exactly as
+:meth:`~ampplan.solver.ebers_moll.NewtonProblem.newton` builds it) and two solves with it:
+
+    J·u = b − j (the plain Newton iterate at δ = 0),   J·w = e (the tangent dx/dδ),
+    δ = (L − a·u) / (a·w),   x = u + δ·w,
+
+so every iterate meets the pinned check exactly and Kirchhoff's law to rounding. A junction that
+is pinned toward cutoff is linearised at its pinned voltage (where the new iterate puts it), not
+at the last iterate: its exponential then never has to be followed down from the Q-point, and
+the pinned transistor is a known current from the first step. Every other junction is limited
+between iterates as in the plain Newton. An iterate has converged when its step is below
+:data:`~ampplan.solver.ebers_moll.RELATIVE_TOLERANCE` (the excursion included) or its device
+currents match the linearised ones to :data:`~ampplan.solver.ebers_moll.FIT_RELATIVE`, the tests
+of the plain Newton; the answer is then checked against the circuit's equations
+(:func:`~ampplan.solver.ebers_moll.residuals`).
+
+This answers "where is the edge of this check", not "which check goes first": the caller picks the
+check, and checks the others at the answer.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .assembly import take_samples
+from .ebers_moll import (_COMPANION, _MODEL_PARAMETERS, CURRENT_TOLERANCE, FIT_RELATIVE, FIT_TOLERANCE,
+                         RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE, NewtonProblem, _limit_junction, conduction_voltage,
+                         device_currents, residuals)
+from .linear import solve_batch
+
+__all__ = ["EdgeProblem", "Edges", "EDGE_ITERATIONS"]
+
+#: Newton iterations allowed for the bordered system; a bracket that has not converged by then is
+#: reported as such (the caller searches it another way).
+EDGE_ITERATIONS = 30
+
+
+@dataclass(frozen=True)
+class Edges:
+    """Answers of :meth:`EdgeProblem.solve`, one per bracket (K of them).
+
+    Attributes
+    ----------
+    delta : ndarray, shape (K,)
+        The source's excursion at the edge, volts (signed; NaN where not converged).
+    x : ndarray, shape (K, size + 1)
+        The unknowns there (full layout, ground last; NaN rows where not converged).
+    tangent : ndarray, shape (K, n_nodes + 1)
+        dV/dδ of every node there (ground last, 0), from the last iterate's Newton matrix.
+    converged : ndarray of bool, shape (K,)
+        Newton converged and the answer meets the circuit's equations.
+    iterations : ndarray of int, shape (K,)
+    """
+    delta: np.ndarray
+    x: np.ndarray
+    tangent: np.ndarray
+    converged: np.ndarray
+    iterations: np.ndarray
+
+
+class EdgeProblem(NewtonProblem):
+    """The Ebers–Moll equations of one layout for S samples, bordered by one pinned check per bracket."""
+
+    def pin(self, rows, transistor, check):
+        """Node indices, frame sign and limit of the pinned checks: (plus, minus, sign, limit), each (K,).
+
+        The pinned quantity is ``sign·(V[plus] − V[minus])``: V_BE for ``check`` 0, V_CE for 1.
+        """
+        lay = self.layout
+        sign = lay.sign[transistor]
+        plus = np.where(check == 0, lay.q_b[transistor], lay.q_c[transistor])
+        minus = lay.q_e[transistor]
+        dev = {k: self.dev[k][rows] for k in ("emission_coefficient", "saturation_current", "vce_sat")}
+        at = np.arange(rows.size)
+        on = conduction_voltage(dev, self.v_t[rows])[at, transistor]
+        limit = np.where(check == 0, on, dev["vce_sat"][at, transistor])
+        return plus, minus, sign, limit
+
+    def solve(self, rows, x, source, transistor, check, max_iterations=EDGE_ITERATIONS) -> Edges:
+        """Bordered Newton (module docstring) for K brackets.
+
+        Parameters
+        ----------
+        rows : ndarray of int, shape (K,)
+            The sample of each bracket (samples may repeat: one bracket per direction).
+        x : ndarray, shape (K, size + 1)
+            Starting unknowns (a solution at δ = 0 is a good start); the last column is ground, 0.
+        source : int
+            Index of the varied voltage source in ``layout.voltage_sources``.
+        transistor : ndarray of int, shape (K,)
+            The pinned transistor of each bracket (index in ``layout.bjts``).
+        check : ndarray of int, shape (K,)
+            0: its base-emitter junction at the conduction voltage; 1: V_CE at V_CE(sat).
+
+        Returns
+        -------
+        Edges
+        """
+        lay = self.layout
+        nu = lay.n_nodes + lay.n_vs
+        k_count = rows.size
+        src_row = lay.n_nodes + source
+        params = take_samples(self.params, rows, device=False)
+        dev = {k: self.dev[k][rows] for k in _MODEL_PARAMETERS}
+        v_t, nvt, v_crit = self.v_t[rows], self.nvt[rows], self.v_crit[rows]
+        plus, minus, sign, limit = self.pin(rows, transistor, check)
+        # Reduced indices (ground is the appended zero column nu of u and w).
+        red = lambda i: np.where(i == lay.size, nu, i)  # noqa: E731
+        plus_r, minus_r = red(plus), red(minus)
+        cut = check == 0
+        abs_tol = self.abs_tol[:nu]
+        if self.sparse:
+            positions = self._sparse_plan(nu)[0]
+            entries, right = lay.entries(params, positions, reduced=True)
+        else:
+            base, rhs0 = lay.assemble(params, reduced=True)
+            base, rhs0 = np.ascontiguousarray(base[:, :nu, :nu]), np.ascontiguousarray(rhs0[:, :nu])
+
+        x = x.copy()
+        delta = np.zeros(k_count)
+        tangent = np.zeros((k_count, nu + 1))
+        converged = np.zeros(k_count, dtype=bool)
+        iterations = np.zeros(k_count, dtype=int)
+        vbe_old, vbc_old = self.junctions(x)
+        active = np.arange(k_count)
+        for _ in range(max_iterations):
+            if active.size == 0:
+                break
+            xa = x[active]
+            k = active
+            q_k = transistor[k]
+            at = np.arange(k.size)
+            d_act = {name: value[k] for name, value in dev.items()}
+            vbe_raw, vbc_raw = self.junctions(xa)
+            # A junction pinned toward cutoff is linearised where the new iterate will hold it.
+            pinned_cut = cut[k]
+            vbe_raw[at[pinned_cut], q_k[pinned_cut]] = limit[k][pinned_cut]
+            vbe = _limit_junction(vbe_raw, vbe_old[k], nvt[k], v_crit[k])
+            vbc = _limit_junction(vbc_raw, vbc_old[k], nvt[k], v_crit[k])
+            was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
+            i_b, i_c, d = device_currents(vbe, vbc, d_act, v_t[k])
+            j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
+            j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
+            if self.sparse:
+                u, w, ok = self._solve_pair(np.ascontiguousarray(entries[:, k]), np.ascontiguousarray(right[:, k]),
+                                            params, k, d, j_b, j_c, src_row)
+            else:
+                matrix, rhs = base[k].copy(), rhs0[k].copy()
+                self._stamp_companion(matrix, rhs, d, j_b, j_c)
+                unit = np.zeros_like(rhs)
+                unit[:, src_row] = 1.0
+                both, ok = solve_batch(matrix, np.stack([rhs, unit], axis=-1), check_residual=False)
+                u, w = both[..., 0], both[..., 1]
+            zero = np.zeros((k.size, 1))
+            u_ext, w_ext = np.concatenate([u, zero], axis=1), np.concatenate([w, zero], axis=1)
+            s_k = sign[k]
+            a_u = s_k * (u_ext[at, plus_r[k]] - u_ext[at, minus_r[k]])
+            a_w = s_k * (w_ext[at, plus_r[k]] - w_ext[at, minus_r[k]])
+            with np.errstate(all="ignore"):
+                d_new = (limit[k] - a_u) / a_w
+            ok &= np.isfinite(d_new)
+            d_new = np.where(ok, d_new, 0.0)
+            new = xa.copy()
+            new[:, :nu] = u + d_new[:, None] * w
+            step = np.abs(new[:, :nu] - xa[:, :nu])
+            small = (np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(new[:, :nu]), np.abs(xa[:, :nu]))
+                            + abs_tol, axis=1)
+                     & (np.abs(d_new - delta[k]) <= RELATIVE_TOLERANCE * np.maximum(np.abs(d_new), np.abs(delta[k]))
+                        + VOLTAGE_TOLERANCE))
+            iterations[k] += 1
+            vbe_new, vbc_new = self.junctions(new)
+            lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
+            lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+            new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
+            true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, v_t[k])
+            fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
+                          & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE), axis=1)
+            done = ok & ((small & ~was_limited) | fits)
+            x[k] = np.where(ok[:, None], new, xa)
+            delta[k] = np.where(ok, d_new, delta[k])
+            tangent[k] = np.where(ok[:, None], w_ext, tangent[k])
+            vbe_old[k], vbc_old[k] = vbe, vbc
+            converged[k[done]] = True
+            active = k[~done & ok]
+        good = np.flatnonzero(converged)
+        if good.size:
+            check_ = residuals(lay, take_samples(self.params, rows[good]), x[good])
+            converged[good[~check_.ok]] = False
+        x[~converged] = np.nan
+        delta[~converged] = np.nan
+        nodes = np.concatenate([tangent[:, :lay.n_nodes], tangent[:, nu:]], axis=1)
+        return Edges(delta=delta, x=x, tangent=nodes, converged=converged, iterations=iterations)
+
+    def _solve_pair(self, entries, right, params, k, d, j_b, j_c, src_row):
+        """One bordered step's two solves with the same Newton matrix, through the planned sparse
+        elimination (dense LAPACK for the samples whose pivots it does not suit): the plain
+        iterate u and the tangent w, each (K', m), and ok (K',)."""
+        _, elimination, conductances, currents = self._sparse_plan(right.shape[0])
+        values = conductances.last(np.concatenate([d[name].T for name in _COMPANION]), entries)
+        rhs = currents.last(np.concatenate([j_b.T, j_c.T]), right)
+        unit = np.zeros_like(rhs)
+        unit[src_row] = 1.0
+        (u, w), ok = elimination.solve_several(values, (rhs, unit))
+        u, w = u.T.copy(), w.T.copy()
+        bad = np.flatnonzero(~ok)
+        if bad.size:
+            sub = take_samples(params, k[bad], device=False)
+            matrix, b = self.layout.assemble(sub, reduced=True)
+            m = right.shape[0]
+            matrix, b = matrix[:, :m, :m].copy(), b[:, :m].copy()
+            self._stamp_companion(matrix, b, {name: v[bad] for name, v in d.items()}, j_b[bad], j_c[bad])
+            one = np.zeros_like(b)
+            one[:, src_row] = 1.0
+            both, ok[bad] = solve_batch(matrix, np.stack([b, one], axis=-1), check_residual=False)
+            u[bad], w[bad] = both[..., 0], both[..., 1]
+        return u, w, ok
