@@ -14,16 +14,20 @@ held circuit (capacitors held at their Q-point voltages).
    pinned.
 2. **Where.** Newton's method on the held circuit bordered by that check held at its limit
    (:mod:`ampplan.solver.edges`), from the Q-point: a few iterations to the exact edge, no
-   bracketing.
+   bracketing. Where that does not converge (the Q-point's tangent can fling a transistor biased
+   at a few microamperes far off), the circuit is first solved at the check's first-order edge
+   with the excursion held there, and the bordered Newton starts again from that answer.
 3. **Verified.** At the answer every other check must still hold; one that does not went first,
    and the check whose margin the straight line between the two points puts to zero earliest is
-   pinned next (at most two rounds per transistor). The pinned check must cross there (its slope
-   points out of forward-active), and no check may dip below its limit in between: a cubic
-   through each margin's values and slopes at both ends (in volts, and toward cutoff in the
-   current's terms too) must stay above zero.
+   pinned next, its answer required to lie nearer than where it was seen crossed (at most two
+   rounds per transistor). The pinned check must cross there (its slope points out of
+   forward-active), and no check may dip below its limit in between: a cubic through each
+   margin's values and slopes at both ends (in volts, and toward cutoff in the current's terms
+   too) must stay above zero.
 
 A bracket that fails any of this (no check moves toward its edge to first order, Newton does not
-converge, the answer lies on the wrong side, a check dips) is handed back to the caller, which
+converge, the answer lies on the wrong side, a check dips or comes back above its limit) is
+handed back to the caller, which
 searches it on a grid (:func:`ampplan.analyses.clipping._searched`). The edge found is exact to
 Newton's tolerance (a part in 10^9 of the excursion or better), far inside the grid search's
 resolution.
@@ -172,18 +176,20 @@ def newton_edges(compiled, held, op, params, drive, system, todo, span, reach_fa
     amount = np.full(sample.size, np.nan)
     who = np.full(sample.size, -1)
     which = np.full(sample.size, -1)
-    for _ in range(ROUNDS_PER_TRANSISTOR * n_q):
+    start = x_q[sample]
+    retried = np.zeros(sample.size, dtype=bool)
+    ceiling = np.full(sample.size, np.inf)       # a check was seen crossed this far out
+    for _ in range(ROUNDS_PER_TRANSISTOR * n_q + 1):
         if pending.size == 0:
             break
         q, c = np.divmod(pinned[pending], 2)
         rows = sample[pending]
-        edge = problem.solve(rows, x_q[rows], hm["source"], q, c)
-        ok = edge.converged
+        edge = problem.solve(rows, start[pending], hm["source"], q, c)
         d = direction[pending]
         k_count = pending.size
         at = np.arange(k_count)
         with np.errstate(invalid="ignore"):
-            ok &= d * edge.delta > 0
+            ok = edge.converged & (d * edge.delta > 0) & (d * edge.delta < ceiling[pending])
         vbe, vbc = problem.junctions(np.where(ok[:, None], edge.x, x_q[rows]))
         m1 = np.stack([vbe - on[rows], vbe - vbc - sat[rows]], axis=-1)               # (K', N, 2)
         tan = edge.tangent
@@ -194,11 +200,11 @@ def newton_edges(compiled, held, op, params, drive, system, todo, span, reach_fa
         is_pinned = np.zeros((k_count, n_q, 2), dtype=bool)
         is_pinned[at, q, c] = True
         crossed = ok[:, None, None] & ~is_pinned & (m1 < -MARGIN_TOLERANCE)
-        # The pinned check must leave there, and nothing may dip below its limit on the way.
-        ok &= s1[at, q, c] < 0
-        ok &= ~_dips(m0[pending], s0[pending], m1, s1, np.abs(edge.delta), n_vt[pending])
         again = ok & crossed.any(axis=(1, 2))
-        accept = ok & ~again
+        # Where nothing went first, the pinned check must leave there, and nothing may dip below
+        # its limit on the way.
+        accept = (ok & ~again & (s1[at, q, c] < 0)
+                  & ~_dips(m0[pending], s0[pending], m1, s1, np.abs(edge.delta), n_vt[pending]))
         i = pending[accept]
         size = np.abs(edge.delta[accept])
         amount[i] = np.where(size <= reach[i], size, np.inf)
@@ -207,7 +213,19 @@ def newton_edges(compiled, held, op, params, drive, system, todo, span, reach_fa
         with np.errstate(all="ignore"):
             t = np.where(crossed, m0[pending] / (m0[pending] - m1), np.inf).reshape(k_count, -1)
         pinned[pending[again]] = np.argmin(t[again], axis=1)
-        pending = pending[again]
+        ceiling[pending[again]] = np.abs(edge.delta[again])
+        start[pending[again]] = x_q[rows[again]]
+        # Newton that did not converge from the Q-point gets one more start: the circuit solved
+        # at the pinned check's first-order edge (where the Q-point's tangent no longer reaches).
+        lost = pending[~edge.converged & ~retried[pending]]
+        retry = lost[np.isfinite(flat[lost, pinned[lost]])]
+        if retry.size:
+            settled = problem.solve(sample[retry], x_q[sample[retry]], hm["source"], np.zeros(retry.size, np.intp),
+                                    np.ones(retry.size, np.intp), hold=direction[retry] * flat[retry, pinned[retry]])
+            retry = retry[settled.converged]
+            start[retry] = settled.x[settled.converged]
+            retried[retry] = True
+        pending = np.concatenate([pending[again], retry])
     found = np.isfinite(amount) | np.isinf(amount)
     found &= who >= 0
     return (amount.reshape(t_count, 2), who.reshape(t_count, 2), which.reshape(t_count, 2),

@@ -26,6 +26,9 @@ currents match the linearised ones to :data:`~ampplan.solver.ebers_moll.FIT_RELA
 of the plain Newton; the answer is then checked against the circuit's equations
 (:func:`~ampplan.solver.ebers_moll.residuals`).
 
+With the excursion held (``hold=``) instead of bordered, the same iterations are the plain
+Newton of the circuit at that excursion (a start for a bordered solve that did not converge).
+
 This answers "where is the edge of this check", not "which check goes first": the caller picks the
 check, and checks the others at the answer.
 """
@@ -90,7 +93,7 @@ class EdgeProblem(NewtonProblem):
         limit = np.where(check == 0, on, dev["vce_sat"][at, transistor])
         return plus, minus, sign, limit
 
-    def solve(self, rows, x, source, transistor, check, max_iterations=EDGE_ITERATIONS) -> Edges:
+    def solve(self, rows, x, source, transistor, check, hold=None, max_iterations=EDGE_ITERATIONS) -> Edges:
         """Bordered Newton (module docstring) for K brackets.
 
         Parameters
@@ -105,6 +108,10 @@ class EdgeProblem(NewtonProblem):
             The pinned transistor of each bracket (index in ``layout.bjts``).
         check : ndarray of int, shape (K,)
             0: its base-emitter junction at the conduction voltage; 1: V_CE at V_CE(sat).
+        hold : ndarray, shape (K,), optional
+            Brackets with a finite value here are not bordered: their excursion is held at that
+            value (volts) and Newton solves the circuit there (their ``transistor`` and ``check``
+            are not read). None: every bracket is bordered.
 
         Returns
         -------
@@ -117,11 +124,12 @@ class EdgeProblem(NewtonProblem):
         params = take_samples(self.params, rows, device=False)
         dev = {k: self.dev[k][rows] for k in _MODEL_PARAMETERS}
         v_t, nvt, v_crit = self.v_t[rows], self.nvt[rows], self.v_crit[rows]
+        held = np.zeros(k_count, dtype=bool) if hold is None else np.isfinite(hold)
+        check = np.where(held, 1, check)         # a held bracket pins nothing toward cutoff
         plus, minus, sign, limit = self.pin(rows, transistor, check)
-        # Reduced indices (ground is the appended zero column nu of u and w).
-        red = lambda i: np.where(i == lay.size, nu, i)  # noqa: E731
-        plus_r, minus_r = red(plus), red(minus)
-        cut = check == 0
+        # Reduced indices: ground is the zero column nu appended to u and w.
+        plus = np.where(plus == lay.size, nu, plus)
+        minus = np.where(minus == lay.size, nu, minus)
         abs_tol = self.abs_tol[:nu]
         if self.sparse:
             positions = self._sparse_plan(nu)[0]
@@ -137,65 +145,85 @@ class EdgeProblem(NewtonProblem):
         iterations = np.zeros(k_count, dtype=int)
         vbe_old, vbc_old = self.junctions(x)
         active = np.arange(k_count)
+        gathered = False
         for _ in range(max_iterations):
             if active.size == 0:
                 break
+            if not gathered:
+                # Gather the still-active brackets once per change of the active set.
+                gathered = True
+                g = (lambda a: a) if active.size == k_count else (lambda a: a[active])  # noqa: E731
+                d_act = {name: g(value) for name, value in dev.items()}
+                vt_a, nvt_a, crit_a = g(v_t), g(nvt), g(v_crit)
+                plus_a, minus_a, sign_a, limit_a = g(plus), g(minus), g(sign), g(limit)
+                held_a = g(held)
+                hold_a = g(hold)[held_a] if held_a.any() else None
+                here = np.arange(active.size)
+                cut_at = (here[g(check) == 0], g(transistor)[g(check) == 0])
+                cut_limit = limit_a[cut_at[0]]
+                if self.sparse:
+                    ent_a, right_a = (entries, right) if active.size == k_count else \
+                        (np.ascontiguousarray(entries[:, active]), np.ascontiguousarray(right[:, active]))
+                else:
+                    base_a, rhs_a = g(base), g(rhs0)
+                ext = np.zeros((active.size, nu + 1))     # u, then w, with ground's zero column
             xa = x[active]
-            k = active
-            q_k = transistor[k]
-            at = np.arange(k.size)
-            d_act = {name: value[k] for name, value in dev.items()}
             vbe_raw, vbc_raw = self.junctions(xa)
             # A junction pinned toward cutoff is linearised where the new iterate will hold it.
-            pinned_cut = cut[k]
-            vbe_raw[at[pinned_cut], q_k[pinned_cut]] = limit[k][pinned_cut]
-            vbe = _limit_junction(vbe_raw, vbe_old[k], nvt[k], v_crit[k])
-            vbc = _limit_junction(vbc_raw, vbc_old[k], nvt[k], v_crit[k])
+            vbe_raw[cut_at] = cut_limit
+            vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_a, crit_a)
+            vbc = _limit_junction(vbc_raw, vbc_old[active], nvt_a, crit_a)
             was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
-            i_b, i_c, d = device_currents(vbe, vbc, d_act, v_t[k])
+            i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_a)
             j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
             j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
             if self.sparse:
-                u, w, ok = self._solve_pair(np.ascontiguousarray(entries[:, k]), np.ascontiguousarray(right[:, k]),
-                                            params, k, d, j_b, j_c, src_row)
+                u, w, ok = self._solve_pair(ent_a.copy(), right_a.copy(), params, active, d, j_b, j_c, src_row)
             else:
-                matrix, rhs = base[k].copy(), rhs0[k].copy()
+                matrix, rhs = base_a.copy(), rhs_a.copy()
                 self._stamp_companion(matrix, rhs, d, j_b, j_c)
                 unit = np.zeros_like(rhs)
                 unit[:, src_row] = 1.0
                 both, ok = solve_batch(matrix, np.stack([rhs, unit], axis=-1), check_residual=False)
                 u, w = both[..., 0], both[..., 1]
-            zero = np.zeros((k.size, 1))
-            u_ext, w_ext = np.concatenate([u, zero], axis=1), np.concatenate([w, zero], axis=1)
-            s_k = sign[k]
-            a_u = s_k * (u_ext[at, plus_r[k]] - u_ext[at, minus_r[k]])
-            a_w = s_k * (w_ext[at, plus_r[k]] - w_ext[at, minus_r[k]])
+            # The bordered step: x = u + δ·w with the pinned check at its limit.
+            ext[:, :nu] = u
+            a_u = sign_a * (ext[here, plus_a] - ext[here, minus_a])
+            ext[:, :nu] = w
+            a_w = sign_a * (ext[here, plus_a] - ext[here, minus_a])
             with np.errstate(all="ignore"):
-                d_new = (limit[k] - a_u) / a_w
+                d_new = (limit_a - a_u) / a_w
+            if hold_a is not None:
+                d_new[held_a] = hold_a
             ok &= np.isfinite(d_new)
-            d_new = np.where(ok, d_new, 0.0)
+            d_new[~ok] = 0.0
+            d_old = delta[active]
             new = xa.copy()
             new[:, :nu] = u + d_new[:, None] * w
             step = np.abs(new[:, :nu] - xa[:, :nu])
             small = (np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(new[:, :nu]), np.abs(xa[:, :nu]))
                             + abs_tol, axis=1)
-                     & (np.abs(d_new - delta[k]) <= RELATIVE_TOLERANCE * np.maximum(np.abs(d_new), np.abs(delta[k]))
+                     & (np.abs(d_new - d_old) <= RELATIVE_TOLERANCE * np.maximum(np.abs(d_new), np.abs(d_old))
                         + VOLTAGE_TOLERANCE))
-            iterations[k] += 1
+            iterations[active] += 1
             vbe_new, vbc_new = self.junctions(new)
             lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
             lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
             new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
-            true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, v_t[k])
+            true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, vt_a)
             fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
                           & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE), axis=1)
             done = ok & ((small & ~was_limited) | fits)
-            x[k] = np.where(ok[:, None], new, xa)
-            delta[k] = np.where(ok, d_new, delta[k])
-            tangent[k] = np.where(ok[:, None], w_ext, tangent[k])
-            vbe_old[k], vbc_old[k] = vbe, vbc
-            converged[k[done]] = True
-            active = k[~done & ok]
+            x[active[ok]] = new[ok]
+            delta[active[ok]] = d_new[ok]
+            tangent[active[ok]] = ext[ok]
+            vbe_old[active], vbc_old[active] = vbe, vbc
+            converged[active[done]] = True
+            # A singular or non-finite step ends that bracket's attempt.
+            still = ~done & ok
+            if not np.all(still):
+                active = active[still]
+                gathered = False
         good = np.flatnonzero(converged)
         if good.size:
             check_ = residuals(lay, take_samples(self.params, rows[good]), x[good])
@@ -210,7 +238,7 @@ class EdgeProblem(NewtonProblem):
         elimination (dense LAPACK for the samples whose pivots it does not suit): the plain
         iterate u and the tangent w, each (K', m), and ok (K',)."""
         _, elimination, conductances, currents = self._sparse_plan(right.shape[0])
-        values = conductances.last(np.concatenate([d[name].T for name in _COMPANION]), entries)
+        values = conductances.last(np.concatenate([d[name].T for name in _COMPANION]), entries)   # in place
         rhs = currents.last(np.concatenate([j_b.T, j_c.T]), right)
         unit = np.zeros_like(rhs)
         unit[src_row] = 1.0
