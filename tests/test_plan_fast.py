@@ -183,3 +183,129 @@ def test_amplitude_and_estimate_agree_when_a_stage_is_out():
     assert "∞" not in summary
     assert "s2 is already in saturation" in summary
     assert "n/a" in summary.splitlines()[0]
+
+
+# -- Ebers–Moll clipping: every path of the Newton search, and the grid search behind it ------------
+def _no_newton(compiled, held, op, params, drive, system, todo, span, reach):
+    """Newton finds nothing: every bracket goes to the grid search."""
+    nothing = np.full((todo.size, 2), -1)
+    return np.full((todo.size, 2), np.nan), nothing, nothing, np.zeros((todo.size, 2), dtype=bool)
+
+
+@pytest.mark.parametrize("name", list(variants()))
+def test_grid_search_alone_equals_the_bisected_sweep(name, monkeypatch):
+    from ampplan.analyses import clipping
+    monkeypatch.setattr(clipping, "newton_edges", _no_newton)
+    plan = variants()[name]
+    res = plan.solve(model="ebers-moll")
+    ref = oracle(plan, "ebers-moll")
+    # Source: the bisected sweep (module docstring), to its resolution.
+    for side in ("positive", "negative"):
+        got, want = getattr(res.clipping, side), getattr(ref, side)
+        assert math.isclose(got, want, rel_tol=1e-6) or (math.isinf(got) and math.isinf(want)), (side, got, want)
+        assert getattr(res.clipping, f"{side}_stage") == getattr(ref, f"{side}_stage")
+        assert getattr(res.clipping, f"{side}_region") == getattr(ref, f"{side}_region")
+
+
+def _wide_spread(count, seed):
+    """The demo with every stage resistor within a factor of two and β from a fifth to five times
+    nominal (a seeded generator: inputs only; the answers come from the bisected sweep)."""
+    plan = demo()
+    rng = np.random.default_rng(seed)
+    batch = {}
+    for address in ("s1.rb1", "s1.rb2", "s1.rc", "s1.re", "s1.re_bypassed", "s2.rc", "s2.re", "s2.re_bypassed",
+                    "s3.re"):
+        batch[address] = plan.get(address) * np.exp(rng.uniform(-0.7, 0.7, count))
+    for sid in ("s1", "s2", "s3"):
+        batch[f"{sid}.device.beta"] = plan.get(f"{sid}.device.beta") * np.exp(rng.uniform(-1.6, 1.6, count))
+    return plan, batch
+
+
+def test_every_path_of_the_newton_search_equals_the_bisected_sweep(monkeypatch):
+    """Newton from the Q-point, Newton again from the circuit solved at the first-order edge, and
+    the grid search for what Newton cannot settle: found in a batch of widely spread plans, each
+    checked alone against the bisected sweep."""
+    from ampplan.analyses import clipping
+    from ampplan.solver import edges
+    plan, batch = _wide_spread(400, seed=5)
+    seen = {"todo": None, "calls": [], "grid": []}
+    newton_edges, solve, searched = clipping.newton_edges, edges.EdgeProblem.solve, clipping._searched
+
+    def spy_newton(compiled, held, op, params, drive, system, todo, *rest):
+        seen["todo"] = todo
+        return newton_edges(compiled, held, op, params, drive, system, todo, *rest)
+
+    def spy_solve(self, rows, *args, hold=None, **kw):
+        seen["calls"].append((rows, hold is not None))
+        return solve(self, rows, *args, hold=hold, **kw)
+
+    def spy_searched(out, todo, *rest):
+        seen["grid"].append(todo)
+        return searched(out, todo, *rest)
+
+    monkeypatch.setattr(clipping, "newton_edges", spy_newton)
+    monkeypatch.setattr(edges.EdgeProblem, "solve", spy_solve)
+    monkeypatch.setattr(clipping, "_searched", spy_searched)
+    res = plan.solve(model="ebers-moll", batch=batch)
+    todo = seen["todo"]
+    retried = set(todo[np.concatenate([r for r, held in seen["calls"] if held])].tolist())
+    grid = set(np.concatenate(seen["grid"]).tolist()) if seen["grid"] else set()
+    later = set(todo[np.concatenate([r for r, held in seen["calls"][1:] if not held])].tolist())
+    paths = {"retried": sorted(retried - grid), "grid search": sorted(grid),
+             "first pin": sorted(set(todo.tolist()) - later - retried - grid)}
+    assert all(paths.values()), {k: len(v) for k, v in paths.items()}
+    for path, samples in paths.items():
+        for k in samples[:2]:
+            single = plan.copy()
+            for address, values in batch.items():
+                single.set(address, float(values[k]))
+            ref = oracle(single, "ebers-moll")
+            for side in ("positive", "negative"):
+                got, want = float(getattr(res.clipping, side)[k]), getattr(ref, side)
+                # Source: the bisected sweep of that plan alone, to its resolution.
+                assert math.isclose(got, want, rel_tol=1e-6) or (math.isinf(got) and math.isinf(want)), \
+                    (path, k, side, got, want)
+                assert getattr(res.clipping, f"{side}_stage")[k] == getattr(ref, f"{side}_stage"), (path, k)
+                assert getattr(res.clipping, f"{side}_region")[k] == getattr(ref, f"{side}_region"), (path, k)
+
+
+def _two_common_emitters(rc1):
+    """Two capacitor-coupled common-emitter stages: a positive excursion drives the first toward
+    saturation and the second toward cutoff, and ``rc1`` moves which of the two comes first."""
+    plan = ampplan.Plan(supply=12.0, source_resistance=600.0, load_resistance=10e3)
+    q = ampplan.Transistor(polarity="npn", beta=150.0, early_voltage=90.0)
+    plan.add(ampplan.CommonEmitter(rb1=82e3, rb2=15e3, rc=rc1, re=220.0, re_bypassed=1e3, device=q))
+    plan.add(ampplan.CommonEmitter(rb1=47e3, rb2=10e3, rc=3.3e3, re=1e3, re_bypassed=None, device=q))
+    return plan
+
+
+@pytest.mark.parametrize("rc1, path", [
+    (9.8e3, "the first-order order is wrong: the second stage's cutoff is pinned first, the first "
+            "stage is past saturation there, so its saturation is pinned next"),
+    (10e3, "the second stage's cutoff is never reached (the first saturates and stops driving it): "
+           "Newton fails from the Q-point and from the first-order edge, the next check is pinned"),
+])
+def test_a_check_pinned_after_the_first_equals_the_bisected_sweep(rc1, path, monkeypatch):
+    from ampplan.solver import edges
+    calls = []
+    solve = edges.EdgeProblem.solve
+
+    def spy(self, rows, x, source, transistor, check, hold=None, **kw):
+        calls.append((transistor.tolist(), check.tolist(), hold is not None))
+        return solve(self, rows, x, source, transistor, check, hold=hold, **kw)
+
+    monkeypatch.setattr(edges.EdgeProblem, "solve", spy)
+    plan = _two_common_emitters(rc1)
+    res = plan.solve(model="ebers-moll")
+    # The path the parameter names (brackets: positive, then negative; checks: 0 cutoff, 1 saturation).
+    assert calls[0][:2] == ([1, 1], [0, 1])
+    assert calls[-1][:2] == ([0], [1]) and not calls[-1][2]
+    assert any(held for _, _, held in calls) == (rc1 == 10e3), path
+    ref = oracle(plan, "ebers-moll")
+    assert res.clipping.positive_stage == ref.positive_stage == "s1"
+    for side in ("positive", "negative"):
+        got, want = getattr(res.clipping, side), getattr(ref, side)
+        # Source: the bisected sweep (module docstring), to its resolution.
+        assert math.isclose(got, want, rel_tol=1e-6), (side, got, want)
+        assert getattr(res.clipping, f"{side}_stage") == getattr(ref, f"{side}_stage")
+        assert getattr(res.clipping, f"{side}_region") == getattr(ref, f"{side}_region")

@@ -44,6 +44,35 @@ def test_solutions_equal_lapack(seed):
             assert np.max(np.abs(x[:, s] - expected)) <= bound
 
 
+def test_several_right_hand_sides_equal_lapack():
+    """One factorisation, several right-hand sides (the bordered Newton's two solves)."""
+    rng = np.random.default_rng(21)
+    for _ in range(10):
+        n = int(rng.integers(2, 20))
+        rows, cols, rep = _random_system(rng, n, rng.uniform(0.1, 0.4))
+        plan = Elimination(n, rows, cols, rep)
+        values = rep[:, None] * rng.uniform(0.8, 1.25, (rows.size, 5))
+        first, second = rng.normal(size=(n, 5)), rng.normal(size=(n, 5))
+        (x, y), ok = plan.solve_several(values, (first, second))
+        assert ok.all()
+        for s in range(5):
+            a = _dense(n, rows, cols, values[:, s])
+            for got, b in ((x, first), (y, second)):
+                # Source: numpy.linalg.solve (LAPACK), within the condition number's bound.
+                expected = np.linalg.solve(a, b[:, s])
+                bound = 1e-13 * np.linalg.cond(a) * np.max(np.abs(expected)) + 1e-300
+                assert np.max(np.abs(got[:, s] - expected)) <= bound
+    # A sample whose planned pivot is zero is reported, with NaN in every answer.
+    plan = Elimination(2, [0, 0, 1, 1], [0, 1, 0, 1], [2.0, 1.0, 1.0, 3.0])
+    values = np.array([[2.0, 0.0], [1.0, 1.0], [1.0, 1.0], [3.0, 3.0]])
+    (x, y), ok = plan.solve_several(values, (np.ones((2, 2)), np.zeros((2, 2))))
+    assert ok.tolist() == [True, False]
+    assert np.isnan(x[:, 1]).all() and np.isnan(y[:, 1]).all()
+    singular = Elimination(3, [0, 1, 2, 0], [0, 0, 2, 2], [1.0, 2.0, 3.0, 4.0])
+    (x,), ok = singular.solve_several(np.ones((4, 2)), (np.ones((3, 2)),))
+    assert not ok.any() and np.isnan(x).all()
+
+
 def test_block_diagonal_equals_each_block_alone():
     rng = np.random.default_rng(11)
     block, count = 7, 4

@@ -12,15 +12,22 @@ gives the clipping amplitude, which transistor leaves and the region it enters (
 I_B reaches zero, saturation when its V_CE reaches the edge). This is what the bisected sweep of
 :mod:`.sweep` converges to; the tests keep that sweep as the oracle.
 
-**Ebers–Moll model: a bracketed search on the held circuit.** A coarse logarithmic grid of
-excursions (one batched solve) brackets the first excursion at which a transistor is out of
-forward-active; each bracket is then narrowed to a part in 10^9 of the excursion by regula falsi
-(Illinois variant) on the margins of the leaving transistor's forward-active checks, each step
-confirmed by a solve just below and just above its estimate, with bisection where the margins say
-nothing useful. The margins come from the quantities the checks test (V_BE, V_CE, V_BC, I_C, I_B,
-identified at the Q-point), so they are known on both sides of the edge. All samples and both
-directions go through one batched solve per step, every point Newton-started from its own
-constant-drop answer (the points of a step lie too far apart for one to start the others).
+**Ebers–Moll model: Newton to each edge, a bracketed search behind it.** The first edge in each
+direction is found by Newton's method on the held circuit bordered by the forward-active check
+that leaves (:mod:`.clipping_newton`, :mod:`ampplan.solver.edges`): the check is chosen from the
+drive solve's first-order edges and every other check is verified at the answer; the excursion
+is exact to Newton's tolerance, a part in 10^9 or better, all samples and both directions in
+one batched bordered Newton. What that cannot settle (a margin that does not move
+monotonically, no check left to pin) is searched on the held circuit as before: a coarse
+logarithmic grid of excursions (one batched solve) brackets the first excursion at which a
+transistor is out of forward-active; each bracket is then narrowed to a part in 10^9 of the
+excursion by regula falsi (Illinois variant) on the margins of the leaving transistor's
+forward-active checks, each step confirmed by a solve just below and just above its estimate,
+with bisection where the margins say nothing useful. The margins come from the quantities the
+checks test (V_BE, V_CE, V_BC, I_C, I_B, identified at the Q-point), so they are known on both
+sides of the edge. The samples searched and both directions go through one batched solve per
+step, every point Newton-started from its own constant-drop answer (the points of a step lie
+too far apart for one to start the others).
 """
 
 from __future__ import annotations
@@ -38,7 +45,8 @@ __all__ = ["ClipArrays", "clipping_batch", "COARSE_STEPS", "RELATIVE_TOLERANCE"]
 COARSE_STEPS = 12
 #: The coarse grid's steps about the load-line estimate, in units of it.
 NEAR_ESTIMATE = np.array([0.7, 0.85, 0.95, 1.0, 1.05, 1.15, 1.4, 2.0])
-#: The Ebers–Moll bracket is narrowed to this fraction of the excursion.
+#: The Ebers–Moll clipping amplitude is exact to this fraction of the excursion (the grid
+#: search narrows its bracket to it; Newton's answer is tighter).
 RELATIVE_TOLERANCE = 1e-9
 #: Secant and bisection steps at most (each halves the bracket at worst: 2^-60 is far below 1e-9).
 MAX_STEPS = 60
@@ -183,7 +191,8 @@ def held_circuit(circuit: Circuit) -> tuple[Circuit, list]:
 
 
 def _searched(out, todo, compiled, op, params, stages, span, active_edge, batch, estimate):
-    """Ebers–Moll: coarse grid, then safeguarded secant steps on the held circuit (module docstring)."""
+    """Ebers–Moll, what Newton leaves: coarse grid, then safeguarded secant steps on the held circuit
+    (module docstring)."""
     cached = compiled.cache.get("held")
     if cached is None:
         cached = compiled.cache["held"] = held_circuit(compiled.circuit)

@@ -19,15 +19,17 @@ held circuit (capacitors held at their Q-point voltages).
    with the excursion held there, and the bordered Newton starts again from that answer.
 3. **Verified.** At the answer every other check must still hold; one that does not went first,
    and the check whose margin the straight line between the two points puts to zero earliest is
-   pinned next, its answer required to lie nearer than where it was seen crossed (at most two
-   rounds per transistor). The pinned check must cross there (its slope points out of
-   forward-active), and no check may dip below its limit in between: a cubic through each
-   margin's values and slopes at both ends (in volts, and toward cutoff in the current's terms
-   too) must stay above zero.
+   pinned next, its answer required to lie nearer than where it was seen crossed. The pinned
+   check must cross there (its slope points out of forward-active), and no check may dip below
+   its limit in between: a cubic through each margin's values and slopes at both ends (in volts,
+   and toward cutoff in the current's terms too) must stay above zero.
+4. **The next check.** A pinned check whose edge Newton cannot find from either start, or finds
+   on the wrong side or beyond where another check was seen past its limit, has no edge before
+   the first one (typically another transistor leaves first and stops driving it): the untried
+   check with the next nearest first-order edge is pinned.
 
-A bracket that fails any of this (no check moves toward its edge to first order, Newton does not
-converge, the answer lies on the wrong side, a check dips or comes back above its limit) is
-handed back to the caller, which
+A bracket that runs out of checks, or whose answer fails the slope or dip test (a margin that
+does not move monotonically), is handed back to the caller, which
 searches it on a grid (:func:`ampplan.analyses.clipping._searched`). The edge found is exact to
 Newton's tolerance (a part in 10^9 of the excursion or better), far inside the grid search's
 resolution.
@@ -41,10 +43,8 @@ from ..solver.assembly import Parameters, layout_of
 from ..solver.ebers_moll import conduction_voltage
 from ..solver.edges import EdgeProblem
 
-__all__ = ["newton_edges", "ROUNDS_PER_TRANSISTOR"]
+__all__ = ["newton_edges"]
 
-#: Pinned checks tried per transistor and bracket before the bracket is handed back.
-ROUNDS_PER_TRANSISTOR = 2
 #: Volts: a margin below minus this counts as crossed (rounding at the edge itself is not).
 MARGIN_TOLERANCE = 1e-12
 #: Interior points of [0, edge] where the cubic through each margin is checked.
@@ -177,9 +177,39 @@ def newton_edges(compiled, held, op, params, drive, system, todo, span, reach_fa
     who = np.full(sample.size, -1)
     which = np.full(sample.size, -1)
     start = x_q[sample]
-    retried = np.zeros(sample.size, dtype=bool)
-    ceiling = np.full(sample.size, np.inf)       # a check was seen crossed this far out
-    for _ in range(ROUNDS_PER_TRANSISTOR * n_q + 1):
+    tried = np.zeros(flat.shape, dtype=bool)     # checks whose own edge was not the answer
+    retried = np.zeros(sample.size, dtype=bool)  # the current pin has had its second start
+    ceiling = np.full(sample.size, np.inf)       # a check was seen past its limit this far out
+
+    def next_candidate(brackets):
+        """Pin each bracket's untried check with the nearest first-order edge; those with none left
+        are dropped (returned are the brackets that go on)."""
+        order = np.where(tried[brackets], np.inf, flat[brackets])
+        best = np.argmin(order, axis=1)
+        left = np.isfinite(order[np.arange(brackets.size), best])
+        brackets, best = brackets[left], best[left]
+        pinned[brackets], retried[brackets] = best, False
+        start[brackets] = x_q[sample[brackets]]
+        return brackets
+
+    def first_past(brackets, margins):
+        """Per bracket, the check past its limit in ``margins`` (K', N, 2) that the straight line
+        from the Q-point puts there first (flat index), or -1 where none is past."""
+        if brackets.size == 0:
+            return np.zeros(0, dtype=np.intp)
+        past = margins < -MARGIN_TOLERANCE
+        with np.errstate(all="ignore"):
+            t = np.where(past, m0[brackets] / (m0[brackets] - margins), np.inf).reshape(brackets.size, -1)
+        return np.where(past.any(axis=(1, 2)), np.argmin(t, axis=1), -1)
+
+    def repin(brackets, check, at):
+        """Pin ``check`` (flat index) next, below excursion ``at``, from the Q-point."""
+        tried[brackets, pinned[brackets]] = True
+        pinned[brackets], retried[brackets] = check, False
+        ceiling[brackets] = np.abs(at)
+        start[brackets] = x_q[sample[brackets]]
+
+    for _ in range(4 * n_q + 2):
         if pending.size == 0:
             break
         q, c = np.divmod(pinned[pending], 2)
@@ -199,8 +229,12 @@ def newton_edges(compiled, held, op, params, drive, system, todo, span, reach_fa
                                           sign * (tan[:, node(lay.q_c)] - tan[:, node(lay.q_e)])], axis=-1)
         is_pinned = np.zeros((k_count, n_q, 2), dtype=bool)
         is_pinned[at, q, c] = True
-        crossed = ok[:, None, None] & ~is_pinned & (m1 < -MARGIN_TOLERANCE)
-        again = ok & crossed.any(axis=(1, 2))
+        m1_others = np.where(is_pinned | ~ok[:, None, None], np.inf, m1)
+        # A check past its limit at the answer went first: it is pinned next.
+        went_first = np.full(k_count, -1)
+        went_first[ok] = first_past(pending[ok], m1_others[ok])
+        again = went_first >= 0
+        repin(pending[again], went_first[again], edge.delta[again])
         # Where nothing went first, the pinned check must leave there, and nothing may dip below
         # its limit on the way.
         accept = (ok & ~again & (s1[at, q, c] < 0)
@@ -209,23 +243,30 @@ def newton_edges(compiled, held, op, params, drive, system, todo, span, reach_fa
         size = np.abs(edge.delta[accept])
         amount[i] = np.where(size <= reach[i], size, np.inf)
         who[i], which[i] = q_cols[q[accept]], c[accept]
-        # A check that went first: the straight line between its two margins puts its edge at t.
-        with np.errstate(all="ignore"):
-            t = np.where(crossed, m0[pending] / (m0[pending] - m1), np.inf).reshape(k_count, -1)
-        pinned[pending[again]] = np.argmin(t[again], axis=1)
-        ceiling[pending[again]] = np.abs(edge.delta[again])
-        start[pending[again]] = x_q[rows[again]]
-        # Newton that did not converge from the Q-point gets one more start: the circuit solved
+        # Newton that did not converge from the Q-point gets a second start: the circuit solved
         # at the pinned check's first-order edge (where the Q-point's tangent no longer reaches).
+        # A check already past its limit there went first, and is pinned instead.
         lost = pending[~edge.converged & ~retried[pending]]
         retry = lost[np.isfinite(flat[lost, pinned[lost]])]
         if retry.size:
+            at_edge = direction[retry] * flat[retry, pinned[retry]]
             settled = problem.solve(sample[retry], x_q[sample[retry]], hm["source"], np.zeros(retry.size, np.intp),
-                                    np.ones(retry.size, np.intp), hold=direction[retry] * flat[retry, pinned[retry]])
-            retry = retry[settled.converged]
-            start[retry] = settled.x[settled.converged]
+                                    np.ones(retry.size, np.intp), hold=at_edge)
+            retry, at_edge, x_s = retry[settled.converged], at_edge[settled.converged], settled.x[settled.converged]
             retried[retry] = True
-        pending = np.concatenate([pending[again], retry])
+            vbe, vbc = problem.junctions(x_s)
+            m_s = np.stack([vbe - on[sample[retry]], vbe - vbc - sat[sample[retry]]], axis=-1)
+            # The pinned check itself past its limit there: its edge lies between, found from here.
+            other = first_past(retry, m_s)
+            other = np.where(other == pinned[retry], -1, other)
+            repin(retry[other >= 0], other[other >= 0], at_edge[other >= 0])
+            start[retry[other < 0]] = x_s[other < 0]
+        # A pinned check whose edge Newton cannot find, or finds on the wrong side or beyond where
+        # another check was seen past its limit, has none before the first edge: the next check.
+        failed = ~edge.converged | (edge.converged & ~ok)
+        given_up = pending[failed & ~np.isin(pending, retry)]
+        tried[given_up, pinned[given_up]] = True
+        pending = np.concatenate([pending[again], retry, next_candidate(given_up)])
     found = np.isfinite(amount) | np.isinf(amount)
     found &= who >= 0
     return (amount.reshape(t_count, 2), who.reshape(t_count, 2), which.reshape(t_count, 2),

@@ -167,52 +167,53 @@ class EdgeProblem(NewtonProblem):
                 else:
                     base_a, rhs_a = g(base), g(rhs0)
                 ext = np.zeros((active.size, nu + 1))     # u, then w, with ground's zero column
-            xa = x[active]
-            vbe_raw, vbc_raw = self.junctions(xa)
-            # A junction pinned toward cutoff is linearised where the new iterate will hold it.
-            vbe_raw[cut_at] = cut_limit
-            vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_a, crit_a)
-            vbc = _limit_junction(vbc_raw, vbc_old[active], nvt_a, crit_a)
-            was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
-            i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_a)
-            j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
-            j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
-            if self.sparse:
-                u, w, ok = self._solve_pair(ent_a.copy(), right_a.copy(), params, active, d, j_b, j_c, src_row)
-            else:
-                matrix, rhs = base_a.copy(), rhs_a.copy()
-                self._stamp_companion(matrix, rhs, d, j_b, j_c)
-                unit = np.zeros_like(rhs)
-                unit[:, src_row] = 1.0
-                both, ok = solve_batch(matrix, np.stack([rhs, unit], axis=-1), check_residual=False)
-                u, w = both[..., 0], both[..., 1]
-            # The bordered step: x = u + δ·w with the pinned check at its limit.
-            ext[:, :nu] = u
-            a_u = sign_a * (ext[here, plus_a] - ext[here, minus_a])
-            ext[:, :nu] = w
-            a_w = sign_a * (ext[here, plus_a] - ext[here, minus_a])
-            with np.errstate(all="ignore"):
+            with np.errstate(all="ignore"):     # a diverging bracket overflows: it fails, the others go on
+                xa = x[active]
+                vbe_raw, vbc_raw = self.junctions(xa)
+                # A junction pinned toward cutoff is linearised where the new iterate will hold it.
+                vbe_raw[cut_at] = cut_limit
+                vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_a, crit_a)
+                vbc = _limit_junction(vbc_raw, vbc_old[active], nvt_a, crit_a)
+                was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=1)
+                i_b, i_c, d = device_currents(vbe, vbc, d_act, vt_a)
+                j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
+                j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
+                if self.sparse:
+                    u, w, ok = self._solve_pair(ent_a.copy(), right_a.copy(), params, active, d, j_b, j_c, src_row)
+                else:
+                    matrix, rhs = base_a.copy(), rhs_a.copy()
+                    self._stamp_companion(matrix, rhs, d, j_b, j_c)
+                    unit = np.zeros_like(rhs)
+                    unit[:, src_row] = 1.0
+                    both, ok = solve_batch(matrix, np.stack([rhs, unit], axis=-1), check_residual=False)
+                    u, w = both[..., 0], both[..., 1]
+                # The bordered step: x = u + δ·w with the pinned check at its limit.
+                ext[:, :nu] = u
+                a_u = sign_a * (ext[here, plus_a] - ext[here, minus_a])
+                ext[:, :nu] = w
+                a_w = sign_a * (ext[here, plus_a] - ext[here, minus_a])
                 d_new = (limit_a - a_u) / a_w
-            if hold_a is not None:
-                d_new[held_a] = hold_a
-            ok &= np.isfinite(d_new)
-            d_new[~ok] = 0.0
-            d_old = delta[active]
-            new = xa.copy()
-            new[:, :nu] = u + d_new[:, None] * w
-            step = np.abs(new[:, :nu] - xa[:, :nu])
-            small = (np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(new[:, :nu]), np.abs(xa[:, :nu]))
-                            + abs_tol, axis=1)
-                     & (np.abs(d_new - d_old) <= RELATIVE_TOLERANCE * np.maximum(np.abs(d_new), np.abs(d_old))
-                        + VOLTAGE_TOLERANCE))
-            iterations[active] += 1
-            vbe_new, vbc_new = self.junctions(new)
-            lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
-            lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
-            new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
-            true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, vt_a)
-            fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
-                          & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE), axis=1)
+                if hold_a is not None:
+                    d_new[held_a] = hold_a
+                ok &= np.isfinite(d_new)
+                d_new[~ok] = 0.0
+                d_old = delta[active]
+                new = xa.copy()
+                new[:, :nu] = u + d_new[:, None] * w
+                ok &= np.all(np.isfinite(new[:, :nu]), axis=1)
+                step = np.abs(new[:, :nu] - xa[:, :nu])
+                small = (np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(new[:, :nu]), np.abs(xa[:, :nu]))
+                                + abs_tol, axis=1)
+                         & (np.abs(d_new - d_old) <= RELATIVE_TOLERANCE * np.maximum(np.abs(d_new), np.abs(d_old))
+                            + VOLTAGE_TOLERANCE))
+                iterations[active] += 1
+                vbe_new, vbc_new = self.junctions(new)
+                lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
+                lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+                new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
+                true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, vt_a)
+                fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
+                              & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE), axis=1)
             done = ok & ((small & ~was_limited) | fits)
             x[active[ok]] = new[ok]
             delta[active[ok]] = d_new[ok]
