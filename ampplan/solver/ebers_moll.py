@@ -187,26 +187,16 @@ class NewtonProblem:
         -------
         x, v_old, converged (bool (S',)), iterations (int (S',))
         """
+        if self.sparse and rows.size >= SPARSE_MIN_BATCH:
+            return self._newton_sparse(rows, x, v_old, ladder_conductance, scale, max_iterations)
         lay = self.layout
         every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
         pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
         params = take_samples(self.params, rows, device=False) if not every else self.params
         nu = lay.n_nodes + lay.n_vs
-        if self.sparse:
-            # The linear part straight into the sparse plan's entries, samples last; the dense
-            # matrices only for samples the plan's pivots do not suit.
-            positions = self._sparse_plan(nu)[0]
-            entries, right = lay.entries(params, positions, reduced=True, source_scale=scale,
-                                         ladder_conductance=ladder_conductance)
-
-            def dense(local):
-                sub = take_samples(params, local, device=False)
-                b, r = lay.assemble(sub, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
-                return b[:, :nu, :nu], r[:, :nu]
-        else:
-            base, rhs0 = lay.assemble(params, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
-            # Drop ground's spare row and column once, so each iteration's matrix is contiguous.
-            base, rhs0 = np.ascontiguousarray(base[:, :nu, :nu]), np.ascontiguousarray(rhs0[:, :nu])
+        base, rhs0 = lay.assemble(params, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
+        # Drop ground's spare row and column once, so each iteration's matrix is contiguous.
+        base, rhs0 = np.ascontiguousarray(base[:, :nu, :nu]), np.ascontiguousarray(rhs0[:, :nu])
         dev = {k: pick(self.dev[k]) for k in _MODEL_PARAMETERS}
         v_t, nvt, v_crit = pick(self.v_t), pick(self.nvt), pick(self.v_crit)
         abs_tol = self.abs_tol[:nu]
@@ -226,18 +216,11 @@ class NewtonProblem:
                 if active.size == len(rows):
                     d_act = dev
                     vt_act, nvt_act, crit_act = v_t, nvt, v_crit
-                    if self.sparse:
-                        base_act, rhs_act, dense_act = entries, right, dense
-                    else:
-                        base_act, rhs_act = base, rhs0
+                    base_act, rhs_act = base, rhs0
                 else:
                     d_act = {k: v[active] for k, v in dev.items()}
                     vt_act, nvt_act, crit_act = v_t[active], nvt[active], v_crit[active]
-                    if self.sparse:
-                        base_act, rhs_act = np.ascontiguousarray(entries[:, active]), np.ascontiguousarray(right[:, active])
-                        dense_act = (lambda local, chosen=active: dense(chosen[local]))
-                    else:
-                        base_act, rhs_act = base[active], rhs0[active]
+                    base_act, rhs_act = base[active], rhs0[active]
             xa = x[active]
             vbe_raw, vbc_raw = self.junctions(xa)
             vbe = _limit_junction(vbe_raw, vbe_old[active], nvt_act, crit_act)
@@ -250,12 +233,9 @@ class NewtonProblem:
             # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
             j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
             j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
-            if self.sparse:
-                u, ok = self._solve_sparse(base_act, rhs_act, dense_act, d, j_b, j_c)
-            else:
-                matrix, rhs = base_act.copy(), rhs_act.copy()
-                self._stamp_companion(matrix, rhs, d, j_b, j_c)
-                u, ok = solve_batch(matrix, rhs, check_residual=False)
+            matrix, rhs = base_act.copy(), rhs_act.copy()
+            self._stamp_companion(matrix, rhs, d, j_b, j_c)
+            u, ok = solve_batch(matrix, rhs, check_residual=False)
             step = np.abs(u - xa[:, :nu])
             small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:, :nu])) + abs_tol,
                            axis=1)
@@ -287,23 +267,117 @@ class NewtonProblem:
                 ahead = (true_b[still], true_c[still], {k: v[still] for k, v in d_new.items()})
         return x, (vbe_old, vbc_old), converged, iterations
 
-    def _solve_sparse(self, entries, right, dense, d, j_b, j_c):
-        """One Newton step's linear systems through the planned sparse elimination: the linear
-        part's entries (P, K) and right-hand sides (m, K), plus every companion model scattered
-        into them; dense LAPACK (``dense(local)`` gives those samples' linear part) for the samples
-        whose pivots the plan does not suit."""
-        _, elimination, conductances, currents = self._sparse_plan(right.shape[0])
-        values = conductances.last(np.concatenate([d[k].T for k in _COMPANION]), entries.copy())
-        rhs = currents.last(np.concatenate([j_b.T, j_c.T]), right.copy())
-        x, ok = elimination.solve(values, rhs, check_residual=False)
-        x = x.T.copy()
-        bad = np.flatnonzero(~ok)
-        if bad.size:
-            matrix, b = dense(bad)
-            matrix, b = matrix.copy(), b.copy()
-            self._stamp_companion(matrix, b, {k: v[bad] for k, v in d.items()}, j_b[bad], j_c[bad])
-            x[bad], ok[bad] = solve_batch(matrix, b, check_residual=False)
-        return x, ok
+    def _newton_sparse(self, rows, x, v_old, ladder_conductance, scale, max_iterations):
+        """:meth:`newton` through the planned sparse elimination, with every array held samples
+        last ((unknowns, S'), (N, S')): the elimination reads and writes that layout, so nothing is
+        transposed per iteration, and every row operation runs over contiguous samples. The
+        arithmetic is that of :meth:`newton`'s dense path, value for value; the working arrays
+        hold the still-active samples only, written back when that set shrinks."""
+        lay = self.layout
+        every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
+        pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
+        params = take_samples(self.params, rows, device=False) if not every else self.params
+        nu = lay.n_nodes + lay.n_vs
+        positions, elimination, conductances, currents = self._sparse_plan(nu)
+        entries, right = lay.entries(params, positions, reduced=True, source_scale=scale,
+                                     ladder_conductance=ladder_conductance)
+
+        def dense(local):
+            sub = take_samples(params, local, device=False)
+            b, r = lay.assemble(sub, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
+            return b[:, :nu, :nu], r[:, :nu]
+
+        n_q, size = lay.n_bjt, lay.size + 1
+        abs_tol = self.abs_tol[:nu, None]
+        sign = lay.sign[:, None]
+        q_b, q_c, q_e = lay.q_b, lay.q_c, lay.q_e
+        x_all = np.ascontiguousarray(x.T)                   # (size + 1, S'), every sample
+        vbe_all, vbc_all = (np.ascontiguousarray(v.T) for v in v_old)
+        # Every per-sample array of the active samples as rows of one array, so that dropping the
+        # samples that are done is one gather: the iterate, the junction voltages last used, the
+        # linear part (entries, right-hand side), the device parameters, V_T, n·V_T, V_crit.
+        parts = [("x", x_all), ("vbe", vbe_all), ("vbc", vbc_all), ("entries", entries), ("right", right)]
+        parts += [(k, pick(self.dev[k]).T) for k in _MODEL_PARAMETERS]
+        parts += [("v_t", pick(self.v_t).T), ("nvt", pick(self.nvt).T), ("v_crit", pick(self.v_crit).T)]
+        at, spans = 0, {}
+        for name, a in parts:
+            spans[name] = slice(at, at + a.shape[0])
+            at += a.shape[0]
+        state = np.empty((at, len(rows)))
+        for name, a in parts:
+            state[spans[name]] = a
+
+        def views(state):
+            return ({name: state[span] for name, span in spans.items()},
+                    {k: state[spans[k]] for k in _MODEL_PARAMETERS})
+
+        w, d_act = views(state)
+        converged = np.zeros(len(rows), dtype=bool)
+        iterations = np.zeros(len(rows), dtype=int)
+        active = np.arange(len(rows))
+        dense_act = dense
+        ahead = None     # device currents at the latest iterate (rows i_b, i_c, then the four conductances)
+        for _ in range(max_iterations):
+            if active.size == 0:
+                break
+            xa = w["x"]
+            vbe_raw, vbc_raw = sign * (xa[q_b] - xa[q_e]), sign * (xa[q_b] - xa[q_c])
+            vbe = _limit_junction(vbe_raw, w["vbe"], w["nvt"], w["v_crit"])
+            vbc = _limit_junction(vbc_raw, w["vbc"], w["nvt"], w["v_crit"])
+            was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=0)
+            if ahead is not None and not was_limited.any():
+                # Evaluated at exactly these voltages last time round.
+                i_b, i_c = ahead[:n_q], ahead[n_q:2 * n_q]
+                d = {k: ahead[(2 + q) * n_q:(3 + q) * n_q] for q, k in enumerate(_COMPANION)}
+            else:
+                i_b, i_c, d = device_currents(vbe, vbc, d_act, w["v_t"])
+            # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
+            j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
+            j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
+            values = conductances.last(companion_terms(d), w["entries"].copy())
+            rhs = currents.last(np.concatenate([j_b, j_c]), w["right"].copy())
+            u, ok = elimination.solve(values, rhs, check_residual=False)
+            bad = np.flatnonzero(~ok)
+            if bad.size:
+                matrix, b = dense_act(bad)
+                matrix, b = matrix.copy(), b.copy()
+                self._stamp_companion(matrix, b, {k: v[:, bad].T for k, v in d.items()}, j_b[:, bad].T,
+                                      j_c[:, bad].T)
+                solved, ok[bad] = solve_batch(matrix, b, check_residual=False)
+                u[:, bad] = solved.T
+            step = np.abs(u - xa[:nu])
+            small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:nu])) + abs_tol, axis=0)
+            iterations[active] += 1
+            # I_B and I_C from the companion model at the new voltages.
+            new = xa.copy()
+            new[:nu] = u
+            vbe_new, vbc_new = sign * (new[q_b] - new[q_e]), sign * (new[q_b] - new[q_c])
+            lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
+            lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+            new[lay.q_ib], new[lay.q_ic] = lin_b, lin_c
+            # Converged as in newton(): a negligible step, or device currents that already match.
+            ahead = np.empty((6 * n_q, active.size))
+            true_b, true_c = ahead[:n_q], ahead[n_q:2 * n_q]
+            true_b[:], true_c[:], d_new = device_currents(vbe_new, vbc_new, d_act, w["v_t"])
+            for q, k in enumerate(_COMPANION):
+                ahead[(2 + q) * n_q:(3 + q) * n_q] = d_new[k]
+            fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
+                          & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE),
+                          axis=0)
+            done = ok & ((small & ~was_limited) | fits)
+            xa[:] = new if ok.all() else np.where(ok, new, xa)
+            w["vbe"][:], w["vbc"][:] = vbe, vbc
+            converged[active[done]] = True
+            # A singular or non-finite iterate ends that sample's attempt; a fallback takes over.
+            still = ~done & ok
+            if not np.all(still):
+                x_all[:, active], vbe_all[:, active], vbc_all[:, active] = w["x"], w["vbe"], w["vbc"]
+                active = active[still]
+                state, ahead = state[:, still], ahead[:, still]
+                w, d_act = views(state)
+                dense_act = (lambda local, chosen=active: dense(chosen[local]))
+        x_all[:, active], vbe_all[:, active], vbc_all[:, active] = w["x"], w["vbe"], w["vbc"]
+        return np.ascontiguousarray(x_all.T), (vbe_all.T, vbc_all.T), converged, iterations
 
     def _sparse_plan(self, m):
         """The sparse elimination of the reduced Newton system (m unknowns), planned once per
@@ -336,24 +410,27 @@ class NewtonProblem:
             rows, cols = np.nonzero(pattern)
             slot = np.full(m * m, -1, dtype=np.intp)
             slot[rows * m + cols] = np.arange(rows.size)
-            # The companion models as terms over (b_be, b_bc, c_be, c_bc) of every transistor
-            # (4N values) into the entries, and over (j_b, j_c) (2N) into the right-hand side,
-            # exactly as _stamp_companion adds them.
+            # The companion models as terms over the nine sums of companion_terms (9N values)
+            # into the entries, and over (j_b, j_c) (2N) into the right-hand side, as
+            # _stamp_companion adds them: one term per entry and transistor.
             g_pos, g_src, g_wt, j_pos, j_src, j_wt = [], [], [], [], [], []
             for k, (b, c, e, sg) in enumerate(self.terminals):
-                b_be, b_bc, c_be, c_bc = (q * n_q + k for q in range(4))
-                for node, sign, be, bc, j in ((b, 1.0, [b_be], [b_bc], [k]), (c, 1.0, [c_be], [c_bc], [n_q + k]),
-                                              (e, -1.0, [b_be, c_be], [b_bc, c_bc], [k, n_q + k])):
+                b_be, b_bc, c_be, c_bc, sum_b, sum_c, sum_all, sum_be, sum_bc = (q * n_q + k for q in range(9))
+                for node, weights, j, j_sign in ((b, ((b, sum_b, 1.0), (e, b_be, -1.0), (c, b_bc, -1.0)), [k], 1.0),
+                                                 (c, ((b, sum_c, 1.0), (e, c_be, -1.0), (c, c_bc, -1.0)), [n_q + k],
+                                                  1.0),
+                                                 (e, ((b, sum_all, -1.0), (e, sum_be, 1.0), (c, sum_bc, 1.0)),
+                                                  [k, n_q + k], -1.0)):
                     if node >= m:
                         continue
-                    for col, sources, weight in ((b, be + bc, sign), (e, be, -sign), (c, bc, -sign)):
+                    for col, source, weight in weights:
                         if col < m:
-                            g_pos += [slot[node * m + col]] * len(sources)
-                            g_src += sources
-                            g_wt += [weight] * len(sources)
+                            g_pos.append(slot[node * m + col])
+                            g_src.append(source)
+                            g_wt.append(weight)
                     j_pos += [node] * len(j)
                     j_src += j
-                    j_wt += [-sign * sg] * len(j)
+                    j_wt += [-j_sign * sg] * len(j)
             plan = (rows * m + cols, Elimination(m, rows, cols, matrix[0, rows, cols]),
                     Scatter(g_pos, g_src, g_wt), Scatter(j_pos, j_src, j_wt))
             _PLANS[shared] = plan
@@ -391,8 +468,29 @@ class NewtonProblem:
 _PLANS: dict = {}
 _PLANS_KEPT = 64
 
-#: The companion conductances of each transistor, in the order the sparse plan's scatter reads them.
+#: The companion conductances of each transistor (the first four rows of companion_terms).
 _COMPANION = ("b_be", "b_bc", "c_be", "c_bc")
+
+
+def companion_terms(d):
+    """What the companion models add to the sparse plan's entries, samples last.
+
+    Parameters
+    ----------
+    d : dict of str -> ndarray (N, S)
+        The conductances of :func:`device_currents` (``"b_be"`` ...), siemens.
+
+    Returns
+    -------
+    ndarray, shape (9N, S)
+        Rows of N: ∂i_b/∂v_be, ∂i_b/∂v_bc, ∂i_c/∂v_be, ∂i_c/∂v_bc, then the sums each entry
+        takes (base row: the two ∂i_b; collector row: the two ∂i_c; emitter row: all four, the
+        two ∂/∂v_be, the two ∂/∂v_bc), so that every entry of a transistor is one term.
+    """
+    sum_b = d["b_be"] + d["b_bc"]
+    sum_c = d["c_be"] + d["c_bc"]
+    return np.concatenate([d["b_be"], d["b_bc"], d["c_be"], d["c_bc"], sum_b, sum_c, sum_b + sum_c,
+                           d["b_be"] + d["c_be"], d["b_bc"] + d["c_bc"]])
 
 #: The device parameters the Ebers–Moll equations read.
 _MODEL_PARAMETERS = ("beta", "beta_reverse", "saturation_current", "early_voltage", "emission_coefficient")
@@ -652,34 +750,36 @@ def residuals(layout, params, x) -> Residuals:
     """
     s_count = x.shape[0]
     n_full = layout.size + 1
-    net = np.zeros((s_count, n_full))
-    scale = np.zeros((s_count, n_full))
+    # Samples last, so that each element's term is a contiguous row.
+    xt = np.ascontiguousarray(x.T)
+    net = np.zeros((n_full, s_count))
+    scale = np.zeros((n_full, s_count))
 
     def leave(node, current):
-        # A loop over the circuit's elements (never over samples): each adds one column.
-        net[:, node] += current
-        scale[:, node] += np.abs(current)
+        # A loop over the circuit's elements (never over samples): each adds one row.
+        net[node] += current
+        scale[node] += np.abs(current)
 
     with np.errstate(all="ignore"):
-        r_i = (x[:, layout.r_a] - x[:, layout.r_b]) * params.conductance
+        r_i = (xt[layout.r_a] - xt[layout.r_b]) * params.conductance.T
         for k, (a, b) in enumerate(zip(layout.r_a, layout.r_b)):
-            leave(a, r_i[:, k])
-            leave(b, -r_i[:, k])
+            leave(a, r_i[k])
+            leave(b, -r_i[k])
         for plus, minus, row in zip(layout.vs_plus, layout.vs_minus, layout.vs_row):
-            leave(plus, x[:, row])
-            leave(minus, -x[:, row])
+            leave(plus, xt[row])
+            leave(minus, -xt[row])
         for k, (f, t) in enumerate(zip(layout.cs_from, layout.cs_to)):
             leave(f, params.current[:, k])
             leave(t, -params.current[:, k])
-        i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
-        for j, (b, c, e, sg) in enumerate(zip(layout.q_b, layout.q_c, layout.q_e, layout.sign)):
-            leave(b, sg * i_b[:, j])
-            leave(c, sg * i_c[:, j])
-            leave(e, -sg * (i_b[:, j] + i_c[:, j]))
+        for b, c, e, sg, ib_at, ic_at in zip(layout.q_b, layout.q_c, layout.q_e, layout.sign, layout.q_ib, layout.q_ic):
+            leave(b, sg * xt[ib_at])
+            leave(c, sg * xt[ic_at])
+            leave(e, -sg * (xt[ib_at] + xt[ic_at]))
         nodes = slice(0, layout.n_nodes)
-        kcl_allowed = RESIDUAL_TOLERANCE * scale[:, nodes] + CURRENT_TOLERANCE
-        kcl = np.abs(net[:, nodes])
+        kcl_allowed = (RESIDUAL_TOLERANCE * scale[nodes] + CURRENT_TOLERANCE).T
+        kcl = np.abs(net[nodes]).T
 
+        i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
         s = layout.sign
         v_be = s * (x[:, layout.q_b] - x[:, layout.q_e])
         v_bc = s * (x[:, layout.q_b] - x[:, layout.q_c])
@@ -699,7 +799,8 @@ def residuals(layout, params, x) -> Residuals:
 def _worst(residual, allowed):
     """Per sample: whether every residual is within what is allowed, and the index of the worst."""
     with np.errstate(all="ignore"):
-        excess = np.nan_to_num(residual / allowed, nan=np.inf)
+        excess = residual / allowed
+    excess[np.isnan(excess)] = np.inf
     if excess.shape[1] == 0:
         return np.ones(excess.shape[0], dtype=bool), np.zeros(excess.shape[0], dtype=np.intp)
     return np.all(excess <= 1.0, axis=1), np.argmax(excess, axis=1)

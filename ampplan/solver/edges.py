@@ -40,8 +40,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from .assembly import take_samples
-from .ebers_moll import (_COMPANION, _MODEL_PARAMETERS, CURRENT_TOLERANCE, FIT_RELATIVE, FIT_TOLERANCE,
-                         RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE, NewtonProblem, _limit_junction, conduction_voltage,
+from .ebers_moll import (_MODEL_PARAMETERS, CURRENT_TOLERANCE, FIT_RELATIVE, FIT_TOLERANCE,
+                         RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE, NewtonProblem, _limit_junction, companion_terms,
+                         conduction_voltage,
                          device_currents, residuals)
 from .linear import solve_batch
 
@@ -239,7 +240,7 @@ class EdgeProblem(NewtonProblem):
         elimination (dense LAPACK for the samples whose pivots it does not suit): the plain
         iterate u and the tangent w, each (K', m), and ok (K',)."""
         _, elimination, conductances, currents = self._sparse_plan(right.shape[0])
-        values = conductances.last(np.concatenate([d[name].T for name in _COMPANION]), entries)   # in place
+        values = conductances.last(companion_terms({name: v.T for name, v in d.items()}), entries)   # in place
         rhs = currents.last(np.concatenate([j_b.T, j_c.T]), right)
         unit = np.zeros_like(rhs)
         unit[src_row] = 1.0
