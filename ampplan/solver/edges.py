@@ -40,10 +40,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from .assembly import take_samples
-from .ebers_moll import (_MODEL_PARAMETERS, CURRENT_TOLERANCE, FIT_RELATIVE, FIT_TOLERANCE,
-                         RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE, NewtonProblem, _limit_junction, companion_terms,
-                         conduction_voltage,
-                         device_currents, residuals)
+from .ebers_moll import (_MODEL_PARAMETERS, FIT_RELATIVE, FIT_TOLERANCE, RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE,
+                         NewtonProblem, _limit_junction, companion_terms, conduction_voltage, device_currents,
+                         residuals)
 from .linear import solve_batch
 
 __all__ = ["EdgeProblem", "Edges", "EDGE_ITERATIONS"]
