@@ -227,7 +227,7 @@ def test_every_path_of_the_newton_search_equals_the_bisected_sweep(monkeypatch):
     checked alone against the bisected sweep."""
     from ampplan.analyses import clipping
     from ampplan.solver import edges
-    plan, batch = _wide_spread(400, seed=5)
+    plan, batch = _wide_spread(1500, seed=5)
     seen = {"todo": None, "calls": [], "grid": []}
     newton_edges, solve, searched = clipping.newton_edges, edges.EdgeProblem.solve, clipping._searched
 
