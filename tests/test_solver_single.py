@@ -68,3 +68,52 @@ def test_a_batch_parameter_set_is_not_kept():
     before = len(layout.stamped)
     cd.RegionProblem(layout, params).solve(np.zeros(1, dtype=np.intp), np.ones((1, 3), dtype=np.int8))
     assert len(layout.stamped) == before
+
+
+
+def _fields(op):
+    """Every figure of an OperatingPoint, flattened (str, bool and float; NaN as a word, so equal)."""
+    out = [op.model, op.status, op.method, op.iterations, op.temperature, *op.v.items(), *op.i.items()]
+    for t in op.transistors.values():
+        out += [t.name, t.polarity, t.region, t.ic, t.ib, t.ie, t.vbe, t.vce, t.beta_forced, t.power]
+        for c in t.checks:
+            out += [c.name, c.value, c.limit, c.holds, c.margin]
+    out += op.unknowns.tolist()
+    return [("nan" if isinstance(v, float) and v != v else v) for v in out]
+
+
+def test_the_forward_active_shortcut_equals_the_full_search(monkeypatch):
+    # A single solve whose start holds is reported straight from its first solve, with the checks
+    # in plain floats (solver._single_at_start); the full search (constant_drop.search, then
+    # RegionProblem.checks on arrays) must give the same result bit for bit, and where the start
+    # fails the shortcut must step aside.
+    import ampplan.solver as solver
+    def npn_chain(rc1):
+        c = _chain()
+        c.remove("RC1")
+        c.resistor("RC1", "vcc", "c1", rc1)
+        return c
+
+    def pnp_stage(rc):
+        # A PNP common-emitter stage hanging from the supply (forward-active for the smaller rc).
+        c = ampplan.Circuit()
+        c.voltage_source("VCC", "vcc", "gnd", 12.0)
+        c.resistor("R1", "vcc", "b", 10e3)
+        c.resistor("R2", "b", "gnd", 47e3)
+        c.resistor("RE", "vcc", "e", 1e3)
+        c.resistor("RC", "c", "gnd", rc)
+        c.bjt("Q1", collector="c", base="b", emitter="e", device=ampplan.Transistor(polarity="pnp"))
+        return c
+
+    compared = set()
+    circuits = [npn_chain(r) for r in (4.7e3, 1e3, 40e3, 200e3)] + [pnp_stage(r) for r in (3.3e3, 100e3)]
+    for edge in ("vce-sat", "vcb-zero"):
+        for c in circuits:
+            fast = c.solve(model="constant-drop", active_edge=edge)
+            with monkeypatch.context() as m:
+                m.setattr(solver, "_single_at_start", lambda *args: None)
+                full = c.solve(model="constant-drop", active_edge=edge)
+            assert _fields(fast) == _fields(full), (edge, c)
+            assert len(fast.alternatives) == len(full.alternatives)
+            compared.add(fast.method)
+    assert compared >= {"forward-active start"} and len(compared) > 1, compared

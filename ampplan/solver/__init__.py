@@ -223,6 +223,10 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
     its start. ``warm_start`` is not used: those Ebers–Moll solves start each sample on its own, as a
     single solve does, so every sample equals its single solve."""
     cd.check_size(layout)
+    if single:
+        done = _single_at_start(circuit, layout, params, active_edge)
+        if done is not None:
+            return done
     s_count, n_q = params.size, layout.n_bjt
     blocks = list(cd.blocks(s_count, layout))
     if len(blocks) > 1:
@@ -287,6 +291,32 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
 
 
 _OK = np.array(["ok"])
+_SAMPLE_0 = np.zeros(1, dtype=np.intp)
+_SAMPLE_0.flags.writeable = False
+
+
+def _single_at_start(circuit, layout, params, active_edge):
+    """A single solve whose forward-active start holds (most amplifiers): step 1 of the search
+    (:func:`.constant_drop.search`) with the checks in plain floats, straight into the result.
+
+    None when the start does not hold; the full search then runs and reaches the same answer it
+    always did (it tries the same start first). The result is the one that search gives.
+    """
+    n_q = layout.n_bjt
+    problem = cd.RegionProblem(layout, params, active_edge)
+    start = np.full((1, n_q), cd.ACTIVE, dtype=np.int8)
+    x, ok = problem.solve(_SAMPLE_0, start)
+    if not ok[0]:
+        return None
+    checks = problem.checks_one(0, [cd.ACTIVE] * n_q, x[0].tolist())
+    if not all(h for pair in checks[4] for h in pair):
+        return None
+    method = "forward-active start"
+    alternatives = ()
+    if n_q:
+        alternatives = Alternatives(lambda: _alternatives(circuit, layout, params, problem, start[0], method))
+    return _build_single(circuit, layout, params, x[0], start[0], checks, "ok", "constant-drop", method, 1,
+                         alternatives)
 
 
 def _nearest(candidates, guess):
@@ -447,7 +477,7 @@ def _build_single(circuit, layout, params, x, regions, checks, status, model, me
         blank = [[math.nan, math.nan]] * n_q
         names, values, limits, holds, margins = [["", ""]] * n_q, blank, blank, [[False, False]] * n_q, blank
     else:
-        names, values, limits, margins, holds = (a.tolist() for a in checks)
+        names, values, limits, margins, holds = (a.tolist() if isinstance(a, np.ndarray) else a for a in checks)
     transistors = {}
     for j, (q, sg, ib_at, ic_at, b_at, c_at, e_at) in enumerate(names_of.transistors):
         b_, c_ = xl[ib_at], xl[ic_at]

@@ -434,6 +434,55 @@ class RegionProblem:
         holds = margins >= -tol
         return values, limits, margins, holds
 
+    def checks_one(self, k: int, regions: list, x: list):
+        """:meth:`checks` of one sample in plain floats (a single solve: a few dozen numbers, where
+        numpy's per-call cost would dominate), with the check names; the same arithmetic in the
+        same order, so the same figures bit for bit.
+
+        Parameters
+        ----------
+        k : int
+            Sample index.
+        regions : list of int, length N
+        x : list of float, length size + 1
+            A finite solution (NaN is not handled here: :meth:`checks` is).
+
+        Returns
+        -------
+        names, values, limits, margins, holds : list of N lists of 2
+        """
+        lay = self.layout
+        dev = self.dev
+        n_nodes = lay.n_nodes
+        v_scale = max(1.0, *map(abs, x[:n_nodes])) if n_nodes else 1.0
+        i_scale = max(0.0, *map(abs, x[n_nodes:lay.size])) if lay.size > n_nodes else 0.0
+        tol_v, tol_i = 1e-9 * v_scale, 1e-9 * i_scale + 1e-18
+        vbe_on, vbc_on, edge = self.vbe_on[k].tolist(), self.vbc_on[k].tolist(), self.edge[k].tolist()
+        vce_sat, beta = dev["vce_sat"][k].tolist(), dev["beta"][k].tolist()
+        rows = self.table.rows
+        names, values, limits, margins, holds = [], [], [], [], []
+        for j, (s, (b, c, e, ib, ic)) in enumerate(zip(lay.sign.tolist(), lay.ports.tolist())):
+            # The quantity and limit slots of regions.QUANTITIES and LIMITS, as checks() fills them.
+            v_be = s * (x[b] - x[e])
+            v_bc = s * (x[b] - x[c])
+            quantity = (v_be, v_bc, v_be - v_bc, -v_bc, x[ib], x[ic])
+            bound = (vbe_on[j], vbc_on[j], edge[j], 0.0, beta[j] * x[ib], -vce_sat[j])
+            nm, va, li, ma, ho = [], [], [], [], []
+            for q, lim, above, is_current, npn, pnp in rows[regions[j]]:
+                value, limit = quantity[q], bound[lim]
+                margin = value - limit if above else limit - value
+                nm.append(npn if s > 0 else pnp)
+                va.append(value)
+                li.append(limit)
+                ma.append(margin)
+                ho.append(margin >= -(tol_i if is_current else tol_v))
+            names.append(nm)
+            values.append(va)
+            limits.append(li)
+            margins.append(ma)
+            holds.append(ho)
+        return names, values, limits, margins, holds
+
     def check_names(self, regions):
         """Names of the checks of ``regions`` (K, N), as a str array (K, N, 2)."""
         return self.table.check_names(regions, self.layout.sign)

@@ -137,6 +137,10 @@ class CheckTable:
         self.is_current = np.array([[c.is_current for c in r] for r in by_code])
         self.names = np.array([[[c.npn for c in r] for r in by_code], [[c.pnp for c in r] for r in by_code]],
                               dtype=str)    # [npn, pnp][region][check]
+        #: The same table as plain lists, for one sample in plain floats (a single solve): per region
+        #: code, its two checks as (quantity slot, limit slot, above, is_current, npn name, pnp name).
+        self.rows = tuple(tuple((QUANTITIES.index(c.quantity), LIMITS.index(c.limit), c.above, c.is_current,
+                                 c.npn, c.pnp) for c in r) for r in by_code)
 
     def evaluate(self, quantities: np.ndarray, limits: np.ndarray, regions: np.ndarray):
         """Values, limits and margins of each transistor's two checks.
