@@ -38,8 +38,8 @@ from .results import Clipping, LoadLine, LoadLines, PlanResult, StageResult, Swi
 __all__ = ["analyse_plan", "analyse_compiled", "incremental_system"]
 
 
-def analyse_plan(plan, model: str = "constant-drop", active_edge: str = "vce-sat", batch: dict | None = None
-                 ) -> PlanResult:
+def analyse_plan(plan, model: str = "constant-drop", active_edge: str = "vce-sat", batch: dict | None = None,
+                 dc_load_lines: bool = True) -> PlanResult:
     """Compile, solve once (one batched solve for ``batch``), and analyse a plan.
 
     Parameters
@@ -50,22 +50,26 @@ def analyse_plan(plan, model: str = "constant-drop", active_edge: str = "vce-sat
     batch : dict of str -> array_like of shape (S,), optional
         Plan addresses (``"s1.rc"``, ``"s2.device.beta"``, ``"supply"``, ``"temperature"``) to
         their values per sample; see :meth:`ampplan.plan.CompiledPlan.batch_keys`.
+    dc_load_lines : bool
+        As for :func:`analyse_compiled`.
     """
     compiled = plan.compile()
     circuit_batch, plan_values = compiled.batch_keys(batch) if batch is not None else (None, {})
     op = compiled.circuit.solve(model=model, temperature=compiled.temperature, active_edge=active_edge,
                                 batch=circuit_batch)
-    return analyse_compiled(compiled, op, active_edge, batch=circuit_batch, plan_values=plan_values)
+    return analyse_compiled(compiled, op, active_edge, batch=circuit_batch, plan_values=plan_values,
+                            dc_load_lines=dc_load_lines)
 
 
-def incremental_system(compiled) -> IncrementalSystem:
+def incremental_system(compiled, dc_load_lines: bool = True) -> IncrementalSystem:
     """The incremental solves of a compiled plan: the source drive, then per stage its
-    input-resistance cut, output-resistance cut, AC and DC load-line ports.
+    input-resistance cut, output-resistance cut, AC load-line port and (with ``dc_load_lines``)
+    DC load-line port; :func:`variant_of` numbers them.
 
     They depend on the circuit's topology only, so they are kept (a few at a time) for every
     compiled plan of the same topology: a slider that moves a value re-solves without rebuilding them.
     """
-    cached = compiled.cache.get("incremental")
+    cached = compiled.cache.get(("incremental", dc_load_lines))
     if cached is None:
         owner = compiled.owner
         index = {q.name: j for j, q in enumerate(layout_of(compiled.circuit).bjts)}
@@ -74,8 +78,9 @@ def incremental_system(compiled) -> IncrementalSystem:
             upstream = {name: frozenset({nodes.input}) for name, tag in owner.items() if tag < k}
             downstream = {name: frozenset({nodes.output}) for name, tag in owner.items() if tag > k}
             variants += [Variant(inject=nodes.input, ground=upstream), Variant(inject=nodes.output, ground=downstream),
-                         Variant(capacitors="short", port=index[nodes.transistor]),
-                         Variant(capacitors="open", port=index[nodes.transistor])]
+                         Variant(capacitors="short", port=index[nodes.transistor])]
+            if dc_load_lines:
+                variants.append(Variant(capacitors="open", port=index[nodes.transistor]))
         key = (_topology(compiled.circuit), tuple((v.capacitors, v.excite, v.inject, tuple(sorted(
             (k, tuple(sorted(n))) for k, n in v.ground.items())), v.port) for v in variants))
         cached = _SYSTEMS.get(key)
@@ -84,8 +89,16 @@ def incremental_system(compiled) -> IncrementalSystem:
             _SYSTEMS[key] = cached
             while len(_SYSTEMS) > _SYSTEMS_KEPT:
                 _SYSTEMS.pop(next(iter(_SYSTEMS)))
-        compiled.cache["incremental"] = cached
+        compiled.cache[("incremental", dc_load_lines)] = cached
     return cached
+
+
+def variant_of(k: int, dc_load_lines: bool = True) -> tuple:
+    """Indices into :func:`incremental_system`'s variants for stage ``k`` (0-based): input cut,
+    output cut, AC port and DC port (None without ``dc_load_lines``). The drive is variant 0."""
+    per = 4 if dc_load_lines else 3
+    first = 1 + per * k
+    return first, first + 1, first + 2, (first + 3 if dc_load_lines else None)
 
 
 #: Incremental systems by topology, oldest first; at most _SYSTEMS_KEPT are kept.
@@ -136,7 +149,7 @@ def forward_active_edge(device, model: str, active_edge: str, temperature: float
 
 
 def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | None = None,
-                     plan_values: dict | None = None) -> PlanResult:
+                     plan_values: dict | None = None, dc_load_lines: bool = True) -> PlanResult:
     """Analyses of a compiled plan at its operating point ``op`` (single or batched).
 
     Parameters
@@ -149,6 +162,10 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
         The circuit batch ``op`` was solved with (keys of :meth:`CompiledPlan.batch_keys`).
     plan_values : dict, optional
         Analysis values varied per sample (``"min_headroom"``, ``"resistor_power_rating"``).
+    dc_load_lines : bool
+        Solve the DC load lines' ports. False leaves them out (their slopes NaN): a caller that
+        keeps only result addresses (:func:`ampplan.analyses.whatif.sweeps.solve_table`), none
+        of which reads them, spares 3 of the 13 incremental solves of a 3-stage plan.
 
     Returns
     -------
@@ -178,7 +195,7 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
 
     models = transistor_models(op, params)
     port_beta = np.where(np.isfinite(models.beta_ac) & (models.beta_ac > 0), models.beta_ac, params.device["beta"])
-    system = incremental_system(compiled)
+    system = incremental_system(compiled, dc_load_lines)
     x = system.solve(params.conductance, models, port_beta=port_beta, shared=not single)     # (S, V, size)
     index = system.index
     node = lambda v, name: x[:, v, index[name]] if name in index and index[name] < system.size \
@@ -190,7 +207,7 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
     for k, nodes in enumerate(compiled.stages):
         j = q_at[nodes.transistor]
         s = sign[j]
-        v_in, v_out, v_ac, v_dc = 1 + 4 * k, 2 + 4 * k, 3 + 4 * k, 4 + 4 * k
+        v_in, v_out, v_ac, v_dc = variant_of(k, dc_load_lines)
         fa = active[:, j]
         not_applicable = lambda a: np.where(fa, a, np.nan)  # noqa: E731
         gain = not_applicable(_ratio(node(drive, nodes.output), node(drive, nodes.input)))
@@ -198,7 +215,7 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
         r_out = not_applicable(node(v_out, nodes.output))
         q = circuit.element(nodes.transistor)
         dvce_ac = s * (node(v_ac, q.collector) - node(v_ac, q.emitter))
-        dvce_dc = s * (node(v_dc, q.collector) - node(v_dc, q.emitter))
+        dvce_dc = s * (node(v_dc, q.collector) - node(v_dc, q.emitter)) if v_dc is not None else np.full(s_count, np.nan)
         q_vce, q_ic = s * vce[:, j], ic[:, j]
         edge = edges[:, j]
         # A saturated constant-drop transistor sits exactly on the edge; keep rounding out of the margin

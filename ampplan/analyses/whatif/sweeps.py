@@ -21,6 +21,7 @@ from ...devices import Transistor
 from ...errors import AmpplanError, InvalidValueError, UnknownModelError
 from ...solver import MODELS
 from ..addresses import WORD_RESULTS, check_result_address, read_result, result_addresses
+from ..chain import analyse_plan
 from .tables import Words, equals
 
 __all__ = ["PlanSweep", "sweep", "check_values", "solve_table", "check_model"]
@@ -140,7 +141,8 @@ def solve_table(plan, model: str, values: dict, addresses=None) -> dict:
         ``""`` where no stage clips or a sample failed), plus ``"caution_fired"`` (bool).
     """
     size = len(next(iter(values.values())))
-    result = plan.solve(model=model, batch=values)
+    # Plan.solve(batch=...) without the DC load lines' ports, which no result address reads.
+    result = analyse_plan(plan, model=model, batch=values, dc_load_lines=False)
     addresses = result_addresses(plan.stage_ids) if addresses is None else addresses
     table = {a: _column(read_result(result, a), size, a.rpartition(".")[2] in WORD_RESULTS) for a in addresses}
     table["caution_fired"] = _caution_fired(result, size)

@@ -57,15 +57,24 @@ class TableBuilder:
             array = np.asarray(array)
             if array.dtype.kind in "US":
                 vocabulary = self._vocabulary.setdefault(name, [])
-                for word in np.unique(array).tolist():
-                    if word not in vocabulary:
-                        vocabulary.append(word)
-                if len(vocabulary) > 255:
-                    raise ValueError(f"column {name!r} holds more than 255 distinct words")
-                words, inverse = np.unique(array, return_inverse=True)
-                codes = np.array([vocabulary.index(w) for w in words.tolist()], dtype=np.uint8)[inverse]
                 target = self.columns.setdefault(name, np.zeros(self.size, dtype=np.uint8))
-                target[start:stop] = codes
+                codes = target[start:stop]
+                # The words seen so far by comparison (a handful: regions, stages, statuses), the
+                # rest by sorting; sorting every chunk's strings took longer than solving its
+                # statuses.
+                left = np.ones(len(array), dtype=bool)
+                for code, word in enumerate(vocabulary):
+                    hit = array == word
+                    codes[hit] = code
+                    left &= ~hit
+                if left.any():
+                    words, inverse = np.unique(array[left], return_inverse=True)
+                    for word in words.tolist():
+                        if word not in vocabulary:
+                            vocabulary.append(word)
+                    if len(vocabulary) > 255:
+                        raise ValueError(f"column {name!r} holds more than 255 distinct words")
+                    codes[left] = np.array([vocabulary.index(w) for w in words.tolist()], dtype=np.uint8)[inverse]
             else:
                 target = self.columns.get(name)
                 if target is None:
