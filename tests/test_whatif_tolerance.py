@@ -20,6 +20,7 @@ import concurrent.futures
 import json
 import math
 import multiprocessing
+import os
 
 import numpy as np
 import pytest
@@ -57,6 +58,7 @@ def test_same_seed_same_result_whatever_the_chunking_or_executor():
         runs_.append(plan.tolerance(**options, chunk_size=9, executor=pool))
     with concurrent.futures.ProcessPoolExecutor(2, mp_context=multiprocessing.get_context("spawn")) as pool:
         runs_.append(plan.tolerance(**options, chunk_size=16, executor=pool))
+    runs_.append(plan.tolerance(**options, chunk_size=8, workers=2))     # the run's own worker processes
     for other in runs_:
         assert other.parameters.keys() == base.parameters.keys()
         for address in base.parameters:
@@ -215,6 +217,27 @@ def test_progress_and_interruption():
         plan.tolerance(samples=30, seed=1, chunk_size=10, progress=stop)
     with concurrent.futures.ThreadPoolExecutor(1) as pool, pytest.raises(KeyboardInterrupt):
         plan.tolerance(samples=30, seed=1, chunk_size=10, progress=stop, executor=pool)
+    with pytest.raises(KeyboardInterrupt):
+        plan.tolerance(samples=30, seed=1, chunk_size=10, progress=stop, workers=2)
+
+
+def test_worker_processes_only_for_large_runs_and_where_forking_is_safe():
+    import threading
+    large = runs.PARALLEL_SAMPLES
+    assert runs.worker_count(large - 1, runs.CHUNK) == 1
+    assert runs.worker_count(large, runs.CHUNK, workers=1) == 1
+    assert runs.worker_count(30, 10, workers=8) == 3          # never more than the chunks
+    if "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1:
+        assert runs.worker_count(large, runs.CHUNK) == len(os.sched_getaffinity(0))
+    # Another thread alive (a Jupyter kernel has several): forking could copy a held lock, so no workers.
+    release = threading.Event()
+    other = threading.Thread(target=release.wait)
+    other.start()
+    try:
+        assert runs.worker_count(large, runs.CHUNK) == 1
+    finally:
+        release.set()
+        other.join()
 
 
 @pytest.mark.parametrize("options, error, message", [
@@ -237,6 +260,7 @@ def test_progress_and_interruption():
     ({"seed": 1.5}, InvalidValueError, r"tolerance seed"),
     ({"executor": object()}, InvalidValueError, r"tolerance executor: must be a concurrent.futures.Executor"),
     ({"progress": 3}, InvalidValueError, r"tolerance progress: must be callable"),
+    ({"workers": 0}, InvalidValueError, r"tolerance workers: must be a whole number >= 1, got 0"),
     ({"beta_temperature_coefficient": math.nan}, InvalidValueError, r"tolerance beta_temperature_coefficient"),
     ({"model": "spice"}, UnknownModelError, r"model must be one of"),
 ])

@@ -1,16 +1,21 @@
 """What-if benchmark: a script, not a test (``make bench`` runs it after the plan benchmark).
 
-For the 3-stage demo plan (ampplan/data/demo_plan.json), CPU time (``time.process_time``):
+For the 3-stage demo plan (ampplan/data/demo_plan.json):
 
 (a) a tolerance run (``plan.tolerance``, default spreads, constant-drop) of ``--samples`` samples
     (100,000 by default), beside the same samples through a loop of ``plan.solve()`` extrapolated
-    from ``--loop`` of them (200 by default), after checking that the two agree on those samples;
-    targets (issue 8): under 2 s, at least 1,000× the loop;
+    from ``--loop`` of them (200 by default; CPU time, ``time.process_time``), after checking that
+    the two agree on those samples; targets (issue 8): under 2 s on 2 cores, at least 1,000× the
+    loop. A run that large spreads its chunks over one worker process per core, so it is timed on
+    the wall clock (``time.perf_counter``) and its CPU time, workers included
+    (``os.times``: this process and its reaped children), is printed beside it, with the same run
+    in this process alone (``workers=1``, CPU time) and its ratio;
 (b) the same run with Ebers–Moll; target under 10 s;
 (c) the peak memory (maximum resident set, in a fresh interpreter) of a run of
-    ``--memory-samples`` samples (1,000,000 by default) in chunks; target under 1 GiB. The same
-    interpreter's resident set after a 1,000-sample run is printed beside it, so the growth is
-    visible.
+    ``--memory-samples`` samples (1,000,000 by default) in chunks; target under 1 GiB, for the
+    parent and its largest worker together (an upper bound: their peaks need not coincide). The
+    same interpreter's resident set after a 1,000-sample run is printed beside it, so the growth
+    is visible.
 
 Missing a target is reported, not failed: speed is measured here, never asserted in the tests.
 Timings on a shared machine are noisy. Smaller counts (``--samples 20000``) give a quicker look;
@@ -21,6 +26,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import subprocess
 import sys
 import time
@@ -45,7 +51,8 @@ plan.tolerance(samples=1000, seed=1)
 small = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 result = plan.tolerance(samples=int(sys.argv[2]), seed=1, chunk_size=int(sys.argv[3]))
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
-print(json.dumps({"small": small, "peak": peak, "yield": result.yield_fraction}))
+worker = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024   # the largest reaped worker
+print(json.dumps({"small": small, "peak": peak, "worker": worker, "yield": result.yield_fraction}))
 """
 
 
@@ -53,6 +60,16 @@ def cpu(call):
     start = time.process_time()
     value = call()
     return time.process_time() - start, value
+
+
+def wall_and_cpu(call):
+    """Wall seconds of ``call`` and CPU seconds of this process and of the children it reaped."""
+    def spent():
+        t = os.times()
+        return t.user + t.system + t.children_user + t.children_system
+    start, start_cpu = time.perf_counter(), spent()
+    value = call()
+    return time.perf_counter() - start, spent() - start_cpu, value
 
 
 def loop_baseline(plan, result, count: int):
@@ -85,18 +102,26 @@ def main(argv=None):
     chunk = {} if args.chunk_size is None else {"chunk_size": args.chunk_size}
     scale = FULL / args.samples
     note = "" if args.samples == FULL else f" (x{scale:g}, extrapolated from {args.samples} samples)"
-    print(f"tolerance run of the 3-stage demo, default spreads, CPU seconds:")
+    print("tolerance run of the 3-stage demo, default spreads:")
+    from ampplan.analyses.whatif.runs import worker_count
+    workers = worker_count(args.samples, args.chunk_size or CHUNK)
+    print(f"  ({workers} worker process(es) for {args.samples} samples; load average "
+          f"{', '.join(f'{v:.2f}' for v in os.getloadavg())})")
     for model in args.models:
         plan.tolerance(samples=200, seed=1, model=model)  # warm caches
-        seconds, result = cpu(lambda: plan.tolerance(samples=args.samples, seed=1, model=model, **chunk))
-        full = seconds * scale
+        alone, _ = cpu(lambda: plan.tolerance(samples=args.samples, seed=1, model=model, workers=1, **chunk))
+        seconds, spent, result = wall_and_cpu(lambda: plan.tolerance(samples=args.samples, seed=1, model=model,
+                                                                     **chunk))
+        full, spent_full, alone_full = seconds * scale, spent * scale, alone * scale
         per_sample = loop_baseline(plan, result, min(args.loop, args.samples))
         loop_full = per_sample * FULL
         ratio = loop_full / full
         target = TARGETS[model]
         verdict = "met" if full < target else "MISSED"
-        line = (f"  {model:13s} {FULL} samples: {full:8.2f} s{note}  target < {target:g} s: {verdict};"
-                f"  loop of plan.solve(): {per_sample * 1e3:.1f} ms/sample -> {loop_full:.0f} s, ratio {ratio:.0f}x")
+        line = (f"  {model:13s} {FULL} samples: {full:8.2f} s wall{note} ({spent_full:.2f} s CPU in all its processes; "
+                f"in this process alone: {alone_full:.2f} s CPU)  target < {target:g} s: {verdict};"
+                f"  loop of plan.solve(): {per_sample * 1e3:.1f} ms/sample CPU -> {loop_full:.0f} s, ratio {ratio:.0f}x "
+                f"(CPU to CPU: {loop_full / spent_full:.0f}x in all processes, {loop_full / alone_full:.0f}x alone)")
         if model == "constant-drop":
             line += f"  target >= 1000x: {'met' if ratio >= 1000 else 'MISSED'}"
         print(line + f"  (yield {100 * result.yield_fraction:.2f} %)")
@@ -105,14 +130,15 @@ def main(argv=None):
         done = subprocess.run([sys.executable, "-c", MEMORY_SCRIPT, str(DEMO), str(args.memory_samples),
                                str(chunk_size)], capture_output=True, text=True, check=True)
         report = json.loads(done.stdout.strip().splitlines()[-1])
-        peak, small = report["peak"] / GIB, report["small"] / GIB
+        peak, small = (report["peak"] + report["worker"]) / GIB, report["small"] / GIB
         estimate, how = peak, ""
         if args.memory_samples != MEMORY_SAMPLES:
             # Linear in the samples beyond the small run: an overestimate, as the chunk's share is fixed.
             estimate = small + (peak - small) * (MEMORY_SAMPLES - 1000) / max(args.memory_samples - 1000, 1)
             how = f", extrapolated linearly to 1,000,000 samples: {estimate:.3f} GiB"
         print(f"peak memory of {args.memory_samples} samples in chunks of {chunk_size}: {peak:.3f} GiB "
-              f"(after a 1,000-sample run: {small:.3f} GiB{how})  target < 1 GiB: "
+              f"(this process {report['peak'] / GIB:.3f} GiB + its largest worker {report['worker'] / GIB:.3f} GiB; "
+              f"after a 1,000-sample run: {small:.3f} GiB{how})  target < 1 GiB: "
               f"{'met' if estimate < 1.0 else 'MISSED'}")
 
 

@@ -27,6 +27,13 @@ stay positive).
 **Seeding.** Sample k is drawn from block k // 8192, and block b draws from
 ``SeedSequence(seed).spawn(...)[b]``, independently of every other block. The samples are a
 function of the seed and k alone, never of the chunking or of the executor that runs the chunks.
+
+**Worker processes.** A run of at least :data:`PARALLEL_SAMPLES` samples with no executor given
+spreads its chunks over one worker process per core (forked from this process, so they start at
+once with everything already imported and planned), where the platform can fork and this process
+runs no other thread (a script, the command line; in a Jupyter kernel, which runs several, the
+chunks run here unless an executor is passed). Each chunk's answer is its own, whichever process
+solves it, so the result is the same either way; ``workers=1`` keeps every chunk in this process.
 """
 
 from __future__ import annotations
@@ -34,7 +41,11 @@ from __future__ import annotations
 import concurrent.futures
 import html
 import math
+import multiprocessing
 import numbers
+import os
+import signal
+import threading
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import Literal, get_args
@@ -48,7 +59,8 @@ from .sweeps import PlanSweep, check_model, passed_rule, solve_table
 from .tables import TableBuilder
 
 __all__ = ["Distribution", "DISTRIBUTIONS", "Spread", "ToleranceSpec", "ToleranceResult", "ToleranceSample",
-           "tolerance", "spreads_of", "run_chunks", "values_at", "BLOCK", "PERCENTILES"]
+           "tolerance", "spreads_of", "run_chunks", "values_at", "worker_count", "process_pool", "BLOCK",
+           "PARALLEL_SAMPLES", "PERCENTILES"]
 
 Distribution = Literal["uniform", "normal"]
 DISTRIBUTIONS: tuple[str, ...] = get_args(Distribution)
@@ -62,6 +74,9 @@ BLOCK = 8192
 CHUNK = 8192
 #: Percentiles reported for the margins and the swing.
 PERCENTILES = (1, 5, 50, 95, 99)
+#: A run of at least this many samples, with no executor given, uses worker processes (see the
+#: module docstring); below it, starting them costs more than they save.
+PARALLEL_SAMPLES = 4 * CHUNK
 #: β rises with temperature by this fraction per °C (common practice, from memory, no source).
 BETA_TEMPERATURE_COEFFICIENT = 0.005
 
@@ -256,6 +271,39 @@ def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executo
                 future.cancel()
             raise
     return parameters.table(), table.table(), passed
+
+
+def _ignore_interrupt() -> None:
+    """Worker start-up: Ctrl-C is the parent's to handle (it cancels the run), not each worker's."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def worker_count(samples: int, chunk_size: int, workers=None) -> int:
+    """How many processes run the chunks of a run when no executor is given (1: this one).
+
+    ``workers`` None chooses: one per core available to this process, for runs of at least
+    :data:`PARALLEL_SAMPLES` samples, where the platform can fork and this process runs no other
+    thread (forking a threaded process can leave a lock held in the child); never more than the
+    chunks.
+    """
+    chunks = -(-samples // chunk_size)
+    if workers is None:
+        if (samples < PARALLEL_SAMPLES or threading.active_count() > 1
+                or "fork" not in multiprocessing.get_all_start_methods()):
+            return 1
+        cores = os.sched_getaffinity(0) if hasattr(os, "sched_getaffinity") else range(os.cpu_count() or 1)
+        workers = len(cores)
+    return max(1, min(int(workers), chunks))
+
+
+def process_pool(workers: int) -> concurrent.futures.ProcessPoolExecutor:
+    """``workers`` processes: forked from this one where that is safe (they inherit its imports,
+    layouts and elimination plans), else started afresh (they import ampplan first)."""
+    methods = multiprocessing.get_all_start_methods()
+    method = ("fork" if "fork" in methods and threading.active_count() == 1
+              else "forkserver" if "forkserver" in methods else "spawn")
+    return concurrent.futures.ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context(method),
+                                                  initializer=_ignore_interrupt)
 
 
 @dataclass(frozen=True)
@@ -461,7 +509,8 @@ def _samples(value, name: str) -> int:
 def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5, 2.0), vbe_on=0.01,
               temperature=(0.0, 50.0), distribution: str = "uniform", required_amplitude=None,
               model: str = "constant-drop", executor=None, *, chunk_size: int = CHUNK,
-              beta_temperature_coefficient: float = BETA_TEMPERATURE_COEFFICIENT, progress=None) -> ToleranceResult:
+              beta_temperature_coefficient: float = BETA_TEMPERATURE_COEFFICIENT, progress=None,
+              workers: int | None = None) -> ToleranceResult:
     """Monte Carlo tolerance run of a plan (what is varied and how: see the module docstring).
 
     Parameters
@@ -485,13 +534,18 @@ def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5,
         Volts peak of source EMF that every passing sample must handle unclipped.
     model : {"constant-drop", "ebers-moll"}
     executor : concurrent.futures.Executor, optional
-        Runs the chunks (a process pool, a cluster's executor); None runs them here in order.
+        Runs the chunks (a process pool, a cluster's executor); None lets the run choose
+        (``workers``).
     chunk_size : int
         Samples per batched solve; the peak memory grows with it, not with ``samples``.
     beta_temperature_coefficient : float
         Fractional change of β per °C (see the module docstring).
     progress : callable, optional
         ``progress(done, total)`` after each chunk.
+    workers : int, optional
+        Without an executor: processes to run the chunks in; 1 runs them here in order, None
+        chooses (:func:`worker_count`: one per core for runs of at least
+        :data:`PARALLEL_SAMPLES` samples, where that is safe). The result is the same either way.
 
     Returns
     -------
@@ -516,13 +570,27 @@ def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5,
         raise InvalidValueError(f"tolerance executor: must be a concurrent.futures.Executor, got {executor!r}")
     if progress is not None and not callable(progress):
         raise InvalidValueError(f"tolerance progress: must be callable as progress(done, total), got {progress!r}")
+    if workers is not None:
+        workers = _samples(workers, "workers")
     spreads = spreads_of(plan, model, resistors, beta, vbe_on, temperature, distribution, beta_temperature_coefficient)
     entropy = int(np.random.SeedSequence(seed).entropy)
     spec = ToleranceSpec(spreads=spreads, entropy=entropy, distribution=distribution, model=model,
                          beta_temperature_coefficient=float(beta_temperature_coefficient),
                          required_amplitude=None if required_amplitude is None else float(required_amplitude))
     frozen = plan.copy()
-    parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress)
+    pool = None
+    if executor is None and worker_count(samples, chunk_size, workers) > 1:
+        # Plan the solves here first (a few samples), so that every forked worker inherits them.
+        run_chunk(frozen, spec, 0, 1)
+        pool = executor = process_pool(worker_count(samples, chunk_size, workers))
+    try:
+        parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress)
+    except BaseException:
+        if pool is not None:
+            pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    if pool is not None:
+        pool.shutdown()
     sweep = PlanSweep(values=parameters, model=model, plan=frozen, _table=table)
     return ToleranceResult(parameters=parameters, sweep=sweep, passed=passed, seed=entropy,
                            distribution=distribution, model=model, required_amplitude=spec.required_amplitude,
