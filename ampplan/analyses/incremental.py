@@ -361,7 +361,8 @@ class IncrementalSystem:
         fixed, varying, kind_of = values_plan
         kinds = varying.new_last(columns, fixed)
         rhs = self._rhs_plan.new_last(columns, np.zeros(n_var * n))
-        solution, ok = elimination.solve(kinds, rhs, check_residual=False, take=kind_of)
+        solution, ok = elimination.solve(kinds, rhs, check_residual=False, take=kind_of,
+                                         rhs_rows=self._rhs_plan.targets)
         x = solution.reshape(n_var, n, s_count).transpose(2, 0, 1).copy()
         bad = np.flatnonzero(~ok)
         if bad.size:

@@ -26,6 +26,8 @@ bit.
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 
 from .assembly import Scatter
@@ -40,6 +42,28 @@ RUN_THRESHOLD = 0.01
 #: A sample whose residual max|A·x - b| exceeds this times max|A|·max|x| + max|b| is reported as
 #: singular (the test :func:`ampplan.solver.linear.solve_batch` applies).
 RESIDUAL = 1e-8
+
+#: Working arrays of :meth:`Elimination.solve`, per thread, by shape (a few kept). A batch solves
+#: block after block of the same shape; a fresh array of a few megabytes each time is a fresh
+#: mapping from the system, and touching its pages for the first time cost more than the
+#: elimination's arithmetic.
+_SCRATCH = threading.local()
+_SCRATCH_KEPT = 4
+
+
+def _scratch(name: str, shape: tuple) -> np.ndarray:
+    """A working array of ``shape`` for this thread (contents undefined; reused by the next call)."""
+    kept = getattr(_SCRATCH, "arrays", None)
+    if kept is None:
+        kept = _SCRATCH.arrays = {}
+    key = (name, shape)
+    array = kept.pop(key, None)
+    if array is None:
+        array = np.empty(shape)
+    kept[key] = array             # most recently used last
+    while len(kept) > _SCRATCH_KEPT:
+        kept.pop(next(iter(kept)))
+    return array
 
 
 class Elimination:
@@ -170,16 +194,10 @@ class Elimination:
 
         # Row-oriented substitutions. Forward (L·y = b, unit diagonal): y[p_k] = b[p_k] minus
         # l[p_k, q_m]·y[p_m] over the earlier steps m whose column held an entry in row p_k.
-        level_of_row: dict[int, int] = {}
-        grouped: list[list] = []
-        for p, _, _, _ in steps:
-            deps = lower.get(p, [])
-            level = 1 + max((level_of_row[pm] for _, pm in deps), default=-1)
-            level_of_row[p] = level
-            while len(grouped) <= level:
-                grouped.append([])
-            grouped[level].append((p, deps))
-        self._forward = [self._pack(group) for group in grouped]
+        self._lower = lower
+        self._pivot_rows = [p for p, _, _, _ in steps]
+        self._forward = self._forward_levels(None)
+        self._sparse_forward: dict = {}
         # Backward (U·x = y), last step first: x[q_k] = (y[p_k] - u[p_k, j]·x[j] summed over the
         # columns j of row p_k pivoted later, fill included) / u[p_k, q_k].
         level_of_col: dict[int, int] = {}
@@ -199,6 +217,38 @@ class Elimination:
             pivots = np.array([piv for _, _, piv, _ in group], dtype=np.intp)
             self._backward.append((targets, sources, pivots, passes))
 
+    def _forward_levels(self, nonzero):
+        """The forward substitution's levels; with ``nonzero`` (rows of y that may be non-zero, or
+        None for all), the terms that read a y known to be zero are left out."""
+        level_of_row: dict[int, int] = {}
+        grouped: list[list] = []
+        for p in self._pivot_rows:
+            deps = self._lower.get(p, [])
+            if nonzero is not None:
+                deps = [(c, pm) for c, pm in deps if pm in nonzero]
+            level = 1 + max((level_of_row[pm] for _, pm in deps), default=-1)
+            level_of_row[p] = level
+            while len(grouped) <= level:
+                grouped.append([])
+            grouped[level].append((p, deps))
+        return [self._pack(group) for group in grouped]
+
+    def forward_for(self, rhs_rows):
+        """The forward substitution for right-hand sides that are zero outside ``rhs_rows`` in
+        every sample (kept per set of rows): y[p] is zero, exactly, unless b[p] or a y it reads is
+        not, and a term l·y that reads a zero y changes nothing (l is finite in every sample
+        :meth:`solve` reports as solved: each multiplier is checked), so it is left out. The
+        incremental systems' right-hand sides have one or two entries per variant."""
+        key = np.unique(np.asarray(rhs_rows, dtype=np.intp)).tobytes()
+        levels = self._sparse_forward.get(key)
+        if levels is None:
+            nonzero = set(np.frombuffer(key, dtype=np.intp).tolist())
+            for p in self._pivot_rows:
+                if p not in nonzero and any(pm in nonzero for _, pm in self._lower.get(p, [])):
+                    nonzero.add(p)
+            levels = self._sparse_forward[key] = self._forward_levels(nonzero)
+        return levels
+
     @staticmethod
     def _pack(group):
         """A level of a substitution: its targets, and its terms in passes in which each target
@@ -213,7 +263,7 @@ class Elimination:
         return targets, passes
 
     # -- running ----------------------------------------------------------------------------------
-    def factor(self, values: np.ndarray, take=None) -> np.ndarray:
+    def factor(self, values: np.ndarray, take=None, out=None) -> np.ndarray:
         """LU factors of every sample.
 
         Parameters
@@ -222,6 +272,8 @@ class Elimination:
             The pattern's entries (in the order of ``rows``, ``cols``) for S samples.
         take : ndarray of int, shape (P,), optional
             The entries are ``values[take]`` (entries that share a value given once).
+        out : ndarray, shape (n_slots, S), optional
+            Where to write the factors (a new array by default).
 
         Returns
         -------
@@ -230,7 +282,7 @@ class Elimination:
         """
         s_count = values.shape[1]
         count = self.positions.size
-        a = np.empty((self.n_slots, s_count))
+        a = np.empty((self.n_slots, s_count)) if out is None else out
         if take is None:
             a[:count] = values
         else:
@@ -243,12 +295,13 @@ class Elimination:
                     a[target] -= a[left] * a[right]
         return a
 
-    def substitute(self, factors: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-        """x with A·x = rhs from :meth:`factor`'s factors; rhs and x of shape (n, S)."""
-        y = np.empty(rhs.shape)
+    def substitute(self, factors: np.ndarray, rhs: np.ndarray, forward=None) -> np.ndarray:
+        """x with A·x = rhs from :meth:`factor`'s factors; rhs and x of shape (n, S); ``forward``
+        a forward substitution of :meth:`forward_for` (default: every term)."""
+        y = _scratch("forward", rhs.shape)
         x = np.empty(rhs.shape)
         with np.errstate(all="ignore"):
-            for targets, passes in self._forward:
+            for targets, passes in self._forward if forward is None else forward:
                 y[targets] = rhs[targets]
                 for target, coef, source in passes:
                     y[target] -= factors[coef] * y[source]
@@ -259,8 +312,8 @@ class Elimination:
                 x[targets] /= factors[pivots]
         return x
 
-    def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True, take=None
-              ) -> tuple[np.ndarray, np.ndarray]:
+    def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True, take=None,
+              rhs_rows=None) -> tuple[np.ndarray, np.ndarray]:
         """Solve A·x = rhs for every sample.
 
         Parameters
@@ -272,6 +325,8 @@ class Elimination:
             of small systems; an exactly singular matrix is caught without it).
         take : ndarray of int, shape (P,), optional
             As for :meth:`factor`.
+        rhs_rows : array_like of int, optional
+            The only rows in which ``rhs`` may be non-zero, in every sample (see :meth:`forward_for`).
 
         Returns
         -------
@@ -285,11 +340,11 @@ class Elimination:
         s_count = rhs.shape[1]
         if self.singular:
             return np.full(rhs.shape, np.nan), np.zeros(s_count, dtype=bool)
-        factors = self.factor(values, take)
+        factors = self.factor(values, take, out=_scratch("factors", (self.n_slots, s_count)))
         if take is not None and check_residual:
             values = values[take]
         with np.errstate(all="ignore"):
-            x = self.substitute(factors, rhs)
+            x = self.substitute(factors, rhs, None if rhs_rows is None else self.forward_for(rhs_rows))
             ok = np.all(np.isfinite(x), axis=0)
             if self._multipliers.size:
                 ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
