@@ -29,7 +29,7 @@ from ..devices import scaled_to_temperature, thermal_voltage
 from ..solver.assembly import Scatter, layout_of
 from ..solver.ebers_moll import device_currents
 from ..solver.linear import solve_batch
-from ..solver.sparse import Elimination
+from ..solver.sparse import Elimination, scratch
 
 __all__ = ["Variant", "IncrementalSystem", "TransistorModels", "transistor_models"]
 
@@ -339,7 +339,10 @@ class IncrementalSystem:
         x = np.empty((s_count, n_var, n))
         for at in range(0, s_count, BLOCK):
             part = table[at:at + BLOCK]
-            x[at:at + BLOCK] = self._solve_sparse(part) if shared else self._solve_dense(part)
+            if shared:
+                self._solve_sparse(part, x[at:at + BLOCK])
+            else:
+                x[at:at + BLOCK] = self._solve_dense(part)
         for v, gone in enumerate(self.vanished):
             if gone:
                 x[:, v, gone] = np.nan
@@ -353,21 +356,22 @@ class IncrementalSystem:
         xs, _ = solve_batch(matrix, rhs)
         return xs.reshape(s_count, n_var, n)
 
-    def _solve_sparse(self, table):
-        """Every variant of every sample through the planned sparse elimination (dense where it fails)."""
+    def _solve_sparse(self, table, out):
+        """Every variant of every sample through the planned sparse elimination (dense where it
+        fails), into ``out`` (S, V, size)."""
         elimination, values_plan = self._sparse_plan()
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
         fixed, varying, kind_of = values_plan
         kinds = varying.new_last(columns, fixed)
         rhs = self._rhs_plan.new_last(columns, np.zeros(n_var * n))
+        # The solution is copied into ``out`` at once, so it may live in a working array.
         solution, ok = elimination.solve(kinds, rhs, check_residual=False, take=kind_of,
-                                         rhs_rows=self._rhs_plan.targets)
-        x = solution.reshape(n_var, n, s_count).transpose(2, 0, 1).copy()
+                                         rhs_rows=self._rhs_plan.targets, out=scratch("solution", rhs.shape))
+        out[:] = solution.reshape(n_var, n, s_count).transpose(2, 0, 1)
         bad = np.flatnonzero(~ok)
         if bad.size:
-            x[bad] = self._solve_dense(table[bad])
-        return x
+            out[bad] = self._solve_dense(table[bad])
 
 
 #: Samples per block of :meth:`IncrementalSystem.solve` (bounds the working arrays).

@@ -32,7 +32,7 @@ import numpy as np
 
 from .assembly import Scatter
 
-__all__ = ["Elimination", "THRESHOLD", "RUN_THRESHOLD", "RESIDUAL"]
+__all__ = ["Elimination", "scratch", "THRESHOLD", "RUN_THRESHOLD", "RESIDUAL"]
 
 #: A pivot must be at least this fraction of the largest entry of its column (representative values).
 THRESHOLD = 0.1
@@ -43,16 +43,18 @@ RUN_THRESHOLD = 0.01
 #: singular (the test :func:`ampplan.solver.linear.solve_batch` applies).
 RESIDUAL = 1e-8
 
-#: Working arrays of :meth:`Elimination.solve`, per thread, by shape (a few kept). A batch solves
+#: Working arrays of :meth:`Elimination.solve`, per thread, by name and shape. A batch solves
 #: block after block of the same shape; a fresh array of a few megabytes each time is a fresh
 #: mapping from the system, and touching its pages for the first time cost more than the
-#: elimination's arithmetic.
+#: elimination's arithmetic. At most _SCRATCH_KEPT arrays of at most _SCRATCH_BYTES each are kept.
 _SCRATCH = threading.local()
-_SCRATCH_KEPT = 4
+_SCRATCH_KEPT = 6
+_SCRATCH_BYTES = 8 * 2**20
 
 
-def _scratch(name: str, shape: tuple) -> np.ndarray:
-    """A working array of ``shape`` for this thread (contents undefined; reused by the next call)."""
+def scratch(name: str, shape: tuple) -> np.ndarray:
+    """A working array of ``shape`` for this thread; its contents are undefined, and the next call
+    with the same name and shape (in this thread) returns it again, so use it before that."""
     kept = getattr(_SCRATCH, "arrays", None)
     if kept is None:
         kept = _SCRATCH.arrays = {}
@@ -60,6 +62,8 @@ def _scratch(name: str, shape: tuple) -> np.ndarray:
     array = kept.pop(key, None)
     if array is None:
         array = np.empty(shape)
+        if array.nbytes > _SCRATCH_BYTES:
+            return array
     kept[key] = array             # most recently used last
     while len(kept) > _SCRATCH_KEPT:
         kept.pop(next(iter(kept)))
@@ -295,11 +299,12 @@ class Elimination:
                     a[target] -= a[left] * a[right]
         return a
 
-    def substitute(self, factors: np.ndarray, rhs: np.ndarray, forward=None) -> np.ndarray:
+    def substitute(self, factors: np.ndarray, rhs: np.ndarray, forward=None, out=None) -> np.ndarray:
         """x with A·x = rhs from :meth:`factor`'s factors; rhs and x of shape (n, S); ``forward``
-        a forward substitution of :meth:`forward_for` (default: every term)."""
-        y = _scratch("forward", rhs.shape)
-        x = np.empty(rhs.shape)
+        a forward substitution of :meth:`forward_for` (default: every term); x written into
+        ``out`` when given."""
+        y = scratch("forward", rhs.shape)
+        x = np.empty(rhs.shape) if out is None else out
         with np.errstate(all="ignore"):
             for targets, passes in self._forward if forward is None else forward:
                 y[targets] = rhs[targets]
@@ -313,7 +318,7 @@ class Elimination:
         return x
 
     def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True, take=None,
-              rhs_rows=None) -> tuple[np.ndarray, np.ndarray]:
+              rhs_rows=None, out=None) -> tuple[np.ndarray, np.ndarray]:
         """Solve A·x = rhs for every sample.
 
         Parameters
@@ -327,6 +332,8 @@ class Elimination:
             As for :meth:`factor`.
         rhs_rows : array_like of int, optional
             The only rows in which ``rhs`` may be non-zero, in every sample (see :meth:`forward_for`).
+        out : ndarray, shape (n, S), optional
+            Where to write x (a new array by default).
 
         Returns
         -------
@@ -340,11 +347,11 @@ class Elimination:
         s_count = rhs.shape[1]
         if self.singular:
             return np.full(rhs.shape, np.nan), np.zeros(s_count, dtype=bool)
-        factors = self.factor(values, take, out=_scratch("factors", (self.n_slots, s_count)))
+        factors = self.factor(values, take, out=scratch("factors", (self.n_slots, s_count)))
         if take is not None and check_residual:
             values = values[take]
         with np.errstate(all="ignore"):
-            x = self.substitute(factors, rhs, None if rhs_rows is None else self.forward_for(rhs_rows))
+            x = self.substitute(factors, rhs, None if rhs_rows is None else self.forward_for(rhs_rows), out)
             ok = np.all(np.isfinite(x), axis=0)
             if self._multipliers.size:
                 ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
