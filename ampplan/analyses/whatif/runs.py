@@ -439,6 +439,7 @@ class ToleranceResult:
         ok = self.sweep.ok
         varied = {a: v[ok] for a, v in self.parameters.items() if np.ptp(v) > 0}
         ranks = {a: _centred(stats.rankdata(v)) for a, v in varied.items()}
+        by_subset = {}    # the values' ranks over the samples where a margin is finite, by those samples
         out = {}
         for address in self.margin_addresses:
             margin = np.asarray(self.sweep[address], dtype=float)[ok]
@@ -451,7 +452,10 @@ class ToleranceResult:
                 pairs = [(a, float(np.dot(r, m))) for a, r in ranks.items()]
             else:
                 m = _centred(stats.rankdata(margin[finite]))
-                pairs = [(a, float(np.dot(_centred(stats.rankdata(varied[a][finite])), m))) for a in varied]
+                key = finite.tobytes()
+                if key not in by_subset:
+                    by_subset[key] = {a: _centred(stats.rankdata(v[finite])) for a, v in varied.items()}
+                pairs = [(a, float(np.dot(r, m))) for a, r in by_subset[key].items()]
             pairs = [(a, rho) for a, rho in pairs if math.isfinite(rho)]
             out[address] = tuple(sorted(pairs, key=lambda p: -abs(p[1])))
         return out
