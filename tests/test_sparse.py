@@ -73,32 +73,44 @@ def test_several_right_hand_sides_equal_lapack():
     assert not ok.any() and np.isnan(x).all()
 
 
-@pytest.mark.parametrize("seed", range(4))
-def test_a_sparse_right_hand_side_skips_only_zero_terms(seed):
+@pytest.mark.parametrize("seed", range(6))
+def test_a_sparse_right_hand_side_and_a_few_wanted_unknowns_give_the_same_answers(seed):
     # With the right-hand side zero outside a few rows, the forward substitution leaves out the
-    # terms that read a zero; the answers must be those of the full substitution (equal, bit for
-    # bit up to the sign of a zero) and of LAPACK.
+    # terms that read a zero; with a few unknowns wanted, only what they depend on is computed.
+    # The wanted answers must be those of the full elimination (equal, bit for bit up to the sign
+    # of a zero) and of LAPACK.
     rng = np.random.default_rng(100 + seed)
+    skipped = 0
     for _ in range(20):
         n = int(rng.integers(2, 25))
         rows, cols, rep = _random_system(rng, n, rng.uniform(0.05, 0.4))
         plan = Elimination(n, rows, cols, rep)
         values = rep[:, None] * rng.uniform(0.8, 1.25, (rows.size, 4))
         where = rng.choice(n, size=int(rng.integers(1, 3)), replace=False)
+        wanted = rng.choice(n, size=int(rng.integers(1, n + 1)), replace=False)
         rhs = np.zeros((n, 4))
         rhs[where] = rng.normal(size=(where.size, 4))
         x_full, ok_full = plan.solve(values, rhs)
-        x, ok = plan.solve(values, rhs, rhs_rows=where)
-        assert np.array_equal(ok, ok_full) and ok.all()
-        np.testing.assert_array_equal(x, x_full)
-        skipped = sum(t.size for _, p in plan._forward for t, _, _ in p) - sum(
-            t.size for _, p in plan.forward_for(where) for t, _, _ in p)
-        assert skipped >= 0
+        x_rows, ok_rows = plan.solve(values, rhs, rhs_rows=where)
+        x, ok = plan.solve(values, rhs, check_residual=False, rhs_rows=where, wanted=wanted)
+        assert ok_full.all() and ok_rows.all() and ok.all()
+        np.testing.assert_array_equal(x_rows, x_full)
+        np.testing.assert_array_equal(x[wanted], x_full[wanted])
+        schedule = plan.schedule_for(where, wanted)
+        skipped += sum(t.size for _, p in plan._forward for t, _, _ in p) - sum(
+            t.size for _, p in schedule.forward for t, _, _ in p)
         for s in range(4):
             a = _dense(n, rows, cols, values[:, s])
             expected = np.linalg.solve(a, rhs[:, s])
             bound = 1e-13 * np.linalg.cond(a) * np.max(np.abs(expected)) + 1e-300
-            assert np.max(np.abs(x[:, s] - expected)) <= bound
+            assert np.max(np.abs(x[wanted, s] - expected[wanted])) <= bound
+    assert skipped > 0
+
+
+def test_wanted_unknowns_need_no_residual_test():
+    rows, cols, rep = _random_system(np.random.default_rng(5), 6, 0.3)
+    with pytest.raises(ValueError, match="residual test needs every unknown"):
+        Elimination(6, rows, cols, rep).solve(rep[:, None], np.ones((6, 1)), wanted=[0])
 
 
 def test_block_diagonal_equals_each_block_alone():

@@ -196,7 +196,9 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
     models = transistor_models(op, params)
     port_beta = np.where(np.isfinite(models.beta_ac) & (models.beta_ac > 0), models.beta_ac, params.device["beta"])
     system = incremental_system(compiled, dc_load_lines)
-    x = system.solve(params.conductance, models, port_beta=port_beta, shared=not single)     # (S, V, size)
+    # (S, V, size); a batch computes only the entries read below (the others NaN).
+    x = system.solve(params.conductance, models, port_beta=port_beta, shared=not single,
+                     wanted=None if single else _read_unknowns(compiled, system, dc_load_lines))
     index = system.index
     node = lambda v, name: x[:, v, index[name]] if name in index and index[name] < system.size \
         else np.zeros(s_count)  # noqa: E731  (ground)
@@ -270,6 +272,33 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
                               supply_power, plan_resistor_power, dev, edges)
     return _batch_result(compiled, op, stage_figures, clip, estimate, chain_gain, supply_current, supply_power,
                          plan_resistor_power, status, dev, edges, params, headroom_asked, rating, supply_v)
+
+
+def _read_unknowns(compiled, system, dc_load_lines: bool) -> list:
+    """The (variant, unknown) pairs of the incremental solves that :func:`analyse_compiled` and
+    :func:`~.clipping.clipping_batch` read: from the drive, the chain's and every stage's input and
+    output and every transistor's I_B and V_CE (for the clipping); per stage, its input node
+    (input cut), its output node (output cut), its transistor's V_CE and its output (AC port) and
+    its V_CE (DC port)."""
+    index, size = system.index, system.size
+    bjts = system.layout.bjts
+    out = []
+
+    def add(variant, nodes):
+        out.extend((variant, index[name]) for name in nodes if name in index and index[name] < size)
+
+    add(0, [compiled.load_node] + [s.input for s in compiled.stages] + [s.output for s in compiled.stages]
+        + [q.collector for q in bjts] + [q.emitter for q in bjts])
+    out.extend((0, int(k)) for k in system.q_ib)
+    for k, nodes in enumerate(compiled.stages):
+        v_in, v_out, v_ac, v_dc = variant_of(k, dc_load_lines)
+        q = compiled.circuit.element(nodes.transistor)
+        add(v_in, [nodes.input])
+        add(v_out, [nodes.output])
+        add(v_ac, [q.collector, q.emitter, nodes.output])
+        if v_dc is not None:
+            add(v_dc, [q.collector, q.emitter])
+    return out
 
 
 def _resistor_index(layout) -> dict:

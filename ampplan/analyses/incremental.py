@@ -305,7 +305,8 @@ class IncrementalSystem:
         table[:, 1 + self.n_r:] = per.reshape(s_count, -1)
         return table
 
-    def solve(self, conductance, models: TransistorModels, port_beta=None, shared: bool = True) -> np.ndarray:
+    def solve(self, conductance, models: TransistorModels, port_beta=None, shared: bool = True,
+              wanted=None) -> np.ndarray:
         """Solve every variant for every sample.
 
         A batch (``shared=True``) solves all variants of all samples as one block-diagonal sparse
@@ -326,6 +327,11 @@ class IncrementalSystem:
             β giving I_B = 1/β of a port excitation (default ``models.beta_ac``).
         shared : bool
             Solve the batch through the planned sparse elimination (True) or every matrix densely.
+        wanted : sequence of (int, int), optional
+            With ``shared``: the only (variant, unknown) pairs the caller reads. The planned
+            elimination then computes only what they depend on (the same operations, so the same
+            figures: :meth:`ampplan.solver.sparse.Elimination.schedule_for`), and the other
+            entries are NaN. A sample solved densely has every entry.
 
         Returns
         -------
@@ -336,11 +342,14 @@ class IncrementalSystem:
             models = TransistorModels(models.g, models.held, port_beta)
         table = self._values(conductance, models, self.layout.sign)
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
-        x = np.empty((s_count, n_var, n))
+        flat = None
+        if shared and wanted is not None:
+            flat = np.unique(np.array([v * n + k for v, k in wanted], dtype=np.intp))
+        x = np.empty((s_count, n_var, n)) if flat is None else np.full((s_count, n_var, n), np.nan)
         for at in range(0, s_count, BLOCK):
             part = table[at:at + BLOCK]
             if shared:
-                self._solve_sparse(part, x[at:at + BLOCK])
+                self._solve_sparse(part, x[at:at + BLOCK], flat)
             else:
                 x[at:at + BLOCK] = self._solve_dense(part)
         for v, gone in enumerate(self.vanished):
@@ -356,9 +365,10 @@ class IncrementalSystem:
         xs, _ = solve_batch(matrix, rhs)
         return xs.reshape(s_count, n_var, n)
 
-    def _solve_sparse(self, table, out):
+    def _solve_sparse(self, table, out, wanted=None):
         """Every variant of every sample through the planned sparse elimination (dense where it
-        fails), into ``out`` (S, V, size)."""
+        fails), into ``out`` (S, V, size); only the flat entries ``wanted`` (variant·size +
+        unknown) when given (``out`` is left as it is elsewhere)."""
         elimination, values_plan = self._sparse_plan()
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
@@ -367,8 +377,12 @@ class IncrementalSystem:
         rhs = self._rhs_plan.new_last(columns, np.zeros(n_var * n))
         # The solution is copied into ``out`` at once, so it may live in a working array.
         solution, ok = elimination.solve(kinds, rhs, check_residual=False, take=kind_of,
-                                         rhs_rows=self._rhs_plan.targets, out=scratch("solution", rhs.shape))
-        out[:] = solution.reshape(n_var, n, s_count).transpose(2, 0, 1)
+                                         rhs_rows=self._rhs_plan.targets, wanted=wanted,
+                                         out=scratch("solution", rhs.shape))
+        if wanted is None:
+            out[:] = solution.reshape(n_var, n, s_count).transpose(2, 0, 1)
+        else:
+            out.reshape(s_count, n_var * n)[:, wanted] = solution[wanted].T
         bad = np.flatnonzero(~ok)
         if bad.size:
             out[bad] = self._solve_dense(table[bad])

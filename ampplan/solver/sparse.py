@@ -27,12 +27,13 @@ bit.
 from __future__ import annotations
 
 import threading
+from typing import NamedTuple
 
 import numpy as np
 
 from .assembly import Scatter
 
-__all__ = ["Elimination", "scratch", "THRESHOLD", "RUN_THRESHOLD", "RESIDUAL"]
+__all__ = ["Elimination", "Schedule", "scratch", "THRESHOLD", "RUN_THRESHOLD", "RESIDUAL"]
 
 #: A pivot must be at least this fraction of the largest entry of its column (representative values).
 THRESHOLD = 0.1
@@ -68,6 +69,31 @@ def scratch(name: str, shape: tuple) -> np.ndarray:
     while len(kept) > _SCRATCH_KEPT:
         kept.pop(next(iter(kept)))
     return array
+
+
+class Schedule(NamedTuple):
+    """The steps of an :class:`Elimination` restricted by :meth:`Elimination.schedule_for`.
+
+    Attributes
+    ----------
+    entries, fill : ndarray of int or None
+        Entry slots to load and fill-in slots to zero (None: all).
+    factor_levels : list
+        The factorisation's levels, as :attr:`Elimination._factor_levels`.
+    multipliers : ndarray of int
+        The L slots computed (checked against 1/:data:`RUN_THRESHOLD`).
+    forward, backward : list
+        The substitutions' levels.
+    computed : ndarray of int or None
+        The unknowns computed (None: all).
+    """
+    entries: np.ndarray | None
+    fill: np.ndarray | None
+    factor_levels: list
+    multipliers: np.ndarray
+    forward: list
+    backward: list
+    computed: np.ndarray | None
 
 
 class Elimination:
@@ -201,32 +227,44 @@ class Elimination:
         self._lower = lower
         self._pivot_rows = [p for p, _, _, _ in steps]
         self._forward = self._forward_levels(None)
-        self._sparse_forward: dict = {}
         # Backward (U·x = y), last step first: x[q_k] = (y[p_k] - u[p_k, j]·x[j] summed over the
         # columns j of row p_k pivoted later, fill included) / u[p_k, q_k].
+        self._upper = [(q, p, int(at(p, q)), list(zip(at(p, right).tolist(), right.tolist())) if right.size else [])
+                       for p, q, _, right in reversed(steps)]
+        self._backward = self._backward_levels(None)
+        self._schedules: dict = {}
+
+    def _backward_levels(self, needed):
+        """The backward substitution's levels; with ``needed`` (unknowns, or None for all), only
+        those unknowns are computed (each needs the later ones its row reads: the caller's set is
+        closed under that)."""
         level_of_col: dict[int, int] = {}
-        grouped = []
-        for p, q, _, right in reversed(steps):
-            cols = right.tolist()
-            deps = list(zip(at(p, right).tolist(), cols)) if cols else []
-            level = 1 + max((level_of_col[j] for j in cols), default=-1)
+        grouped: list[list] = []
+        for q, p, piv, deps in self._upper:
+            if needed is not None and q not in needed:
+                continue
+            level = 1 + max((level_of_col[j] for _, j in deps), default=-1)
             level_of_col[q] = level
             while len(grouped) <= level:
                 grouped.append([])
-            grouped[level].append((q, p, int(at(p, q)), deps))
-        self._backward = []
+            grouped[level].append((q, p, piv, deps))
+        out = []
         for group in grouped:
             targets, passes = self._pack([(q, deps) for q, _, _, deps in group])
             sources = np.array([p for _, p, _, _ in group], dtype=np.intp)
             pivots = np.array([piv for _, _, piv, _ in group], dtype=np.intp)
-            self._backward.append((targets, sources, pivots, passes))
+            out.append((targets, sources, pivots, passes))
+        return out
 
-    def _forward_levels(self, nonzero):
+    def _forward_levels(self, nonzero, rows=None):
         """The forward substitution's levels; with ``nonzero`` (rows of y that may be non-zero, or
-        None for all), the terms that read a y known to be zero are left out."""
+        None for all), the terms that read a y known to be zero are left out; with ``rows``, only
+        those rows of y are computed (closed under what they read)."""
         level_of_row: dict[int, int] = {}
         grouped: list[list] = []
         for p in self._pivot_rows:
+            if rows is not None and p not in rows:
+                continue
             deps = self._lower.get(p, [])
             if nonzero is not None:
                 deps = [(c, pm) for c, pm in deps if pm in nonzero]
@@ -237,21 +275,83 @@ class Elimination:
             grouped[level].append((p, deps))
         return [self._pack(group) for group in grouped]
 
-    def forward_for(self, rhs_rows):
-        """The forward substitution for right-hand sides that are zero outside ``rhs_rows`` in
-        every sample (kept per set of rows): y[p] is zero, exactly, unless b[p] or a y it reads is
-        not, and a term l·y that reads a zero y changes nothing (l is finite in every sample
-        :meth:`solve` reports as solved: each multiplier is checked), so it is left out. The
-        incremental systems' right-hand sides have one or two entries per variant."""
-        key = np.unique(np.asarray(rhs_rows, dtype=np.intp)).tobytes()
-        levels = self._sparse_forward.get(key)
-        if levels is None:
-            nonzero = set(np.frombuffer(key, dtype=np.intp).tolist())
+    def schedule_for(self, rhs_rows=None, wanted=None) -> "Schedule":
+        """The elimination restricted to what a caller needs (kept per request).
+
+        Parameters
+        ----------
+        rhs_rows : array_like of int, optional
+            The only rows in which the right-hand side may be non-zero, in every sample. y[p] is
+            then zero, exactly, unless b[p] or a y it reads is not, and a term l·y that reads a
+            zero y changes nothing (l is finite in every sample :meth:`solve` reports as solved:
+            each multiplier it uses is checked), so it is left out.
+        wanted : array_like of int, optional
+            The only unknowns the caller reads. Only they, the unknowns their rows read in the
+            backward substitution, the y those read, and the factor entries all of these need
+            (traced back through every update that writes them) are computed; the rest of x is
+            left undefined.
+
+        The entries a wanted unknown depends on go through the same operations in the same order
+        as in the full elimination, so they come out the same, bit for bit (up to the sign of a
+        zero). The incremental systems' right-hand sides have one or two entries per variant and
+        their callers read a few unknowns of each.
+        """
+        rows_key = None if rhs_rows is None else np.unique(np.asarray(rhs_rows, dtype=np.intp))
+        wanted_key = None if wanted is None else np.unique(np.asarray(wanted, dtype=np.intp))
+        key = (None if rows_key is None else rows_key.tobytes(), None if wanted_key is None else wanted_key.tobytes())
+        schedule = self._schedules.get(key)
+        if schedule is not None:
+            return schedule
+        nonzero = None
+        if rows_key is not None:
+            nonzero = set(rows_key.tolist())
             for p in self._pivot_rows:
                 if p not in nonzero and any(pm in nonzero for _, pm in self._lower.get(p, [])):
                     nonzero.add(p)
-            levels = self._sparse_forward[key] = self._forward_levels(nonzero)
-        return levels
+        if wanted_key is None:
+            schedule = Schedule(None, None, self._factor_levels, self._multipliers, self._forward_levels(nonzero),
+                                self._backward, None)
+        else:
+            # Unknowns: the wanted ones and every later one their rows read.
+            row_of = {q: deps for q, _, _, deps in self._upper}
+            needed = set(wanted_key.tolist())
+            stack = list(needed)
+            while stack:
+                for _, j in row_of.get(stack.pop(), []):
+                    if j not in needed:
+                        needed.add(j)
+                        stack.append(j)
+            upper = [(q, p, piv, deps) for q, p, piv, deps in self._upper if q in needed]
+            # Rows of y those read, and the y rows those read (zero ones left out).
+            rows = {p for _, p, _, _ in upper}
+            stack = list(rows)
+            while stack:
+                for _, pm in self._lower.get(stack.pop(), []):
+                    if pm not in rows and (nonzero is None or pm in nonzero):
+                        rows.add(pm)
+                        stack.append(pm)
+            # Factor slots read by both substitutions, then every update that writes a needed
+            # slot, last level first (a level's steps are independent; its divisions precede its
+            # updates, which read the divided column).
+            slots = {piv for _, _, piv, _ in upper} | {c for _, _, _, deps in upper for c, _ in deps}
+            slots |= {c for p in rows for c, pm in self._lower.get(p, []) if nonzero is None or pm in nonzero}
+            kept_levels = []
+            for col, piv, target, left, right in reversed(self._factor_levels):
+                used = np.array([t in slots for t in target.tolist()], dtype=bool)
+                slots.update(left[used].tolist())
+                slots.update(right[used].tolist())
+                divided = np.array([c in slots for c in col.tolist()], dtype=bool)
+                slots.update(piv[divided].tolist())
+                kept_levels.append((col[divided], piv[divided], target[used], left[used], right[used]))
+            kept_levels = [level for level in reversed(kept_levels) if level[0].size or level[2].size]
+            slots_array = np.array(sorted(slots), dtype=np.intp)
+            count = self.positions.size
+            multipliers = np.concatenate([level[0] for level in kept_levels]) if kept_levels else np.zeros(0, np.intp)
+            schedule = Schedule(slots_array[slots_array < count], slots_array[slots_array >= count], kept_levels,
+                                multipliers.astype(np.intp), self._forward_levels(nonzero, rows),
+                                self._backward_levels(needed), np.array(sorted(needed), dtype=np.intp))
+        self._schedules[key] = schedule
+        return schedule
 
     @staticmethod
     def _pack(group):
@@ -267,7 +367,7 @@ class Elimination:
         return targets, passes
 
     # -- running ----------------------------------------------------------------------------------
-    def factor(self, values: np.ndarray, take=None, out=None) -> np.ndarray:
+    def factor(self, values: np.ndarray, take=None, out=None, schedule: "Schedule | None" = None) -> np.ndarray:
         """LU factors of every sample.
 
         Parameters
@@ -278,6 +378,8 @@ class Elimination:
             The entries are ``values[take]`` (entries that share a value given once).
         out : ndarray, shape (n_slots, S), optional
             Where to write the factors (a new array by default).
+        schedule : Schedule, optional
+            Of :meth:`schedule_for`: only the slots it needs are computed (the rest undefined).
 
         Returns
         -------
@@ -287,30 +389,38 @@ class Elimination:
         s_count = values.shape[1]
         count = self.positions.size
         a = np.empty((self.n_slots, s_count)) if out is None else out
-        if take is None:
-            a[:count] = values
+        if schedule is None or schedule.entries is None:
+            if take is None:
+                a[:count] = values
+            else:
+                np.take(values, take, axis=0, out=a[:count])
+            a[count:] = 0.0
         else:
-            np.take(values, take, axis=0, out=a[:count])
-        a[count:] = 0.0
+            a[schedule.entries] = values[schedule.entries if take is None else take[schedule.entries]]
+            a[schedule.fill] = 0.0
+        levels = self._factor_levels if schedule is None else schedule.factor_levels
         with np.errstate(all="ignore"):
-            for col, piv, target, left, right in self._factor_levels:
+            for col, piv, target, left, right in levels:
                 a[col] /= a[piv]
                 if target.size:
                     a[target] -= a[left] * a[right]
         return a
 
-    def substitute(self, factors: np.ndarray, rhs: np.ndarray, forward=None, out=None) -> np.ndarray:
-        """x with A·x = rhs from :meth:`factor`'s factors; rhs and x of shape (n, S); ``forward``
-        a forward substitution of :meth:`forward_for` (default: every term); x written into
-        ``out`` when given."""
+    def substitute(self, factors: np.ndarray, rhs: np.ndarray, schedule: "Schedule | None" = None,
+                   out=None) -> np.ndarray:
+        """x with A·x = rhs from :meth:`factor`'s factors; rhs and x of shape (n, S); only the
+        unknowns of a ``schedule`` of :meth:`schedule_for` when given; x written into ``out``
+        when given."""
         y = scratch("forward", rhs.shape)
         x = np.empty(rhs.shape) if out is None else out
+        forward = self._forward if schedule is None else schedule.forward
+        backward = self._backward if schedule is None else schedule.backward
         with np.errstate(all="ignore"):
-            for targets, passes in self._forward if forward is None else forward:
+            for targets, passes in forward:
                 y[targets] = rhs[targets]
                 for target, coef, source in passes:
                     y[target] -= factors[coef] * y[source]
-            for targets, sources, pivots, passes in self._backward:
+            for targets, sources, pivots, passes in backward:
                 x[targets] = y[sources]
                 for target, coef, source in passes:
                     x[target] -= factors[coef] * x[source]
@@ -318,7 +428,7 @@ class Elimination:
         return x
 
     def solve(self, values: np.ndarray, rhs: np.ndarray, check_residual: bool = True, take=None,
-              rhs_rows=None, out=None) -> tuple[np.ndarray, np.ndarray]:
+              rhs_rows=None, wanted=None, out=None) -> tuple[np.ndarray, np.ndarray]:
         """Solve A·x = rhs for every sample.
 
         Parameters
@@ -330,8 +440,10 @@ class Elimination:
             of small systems; an exactly singular matrix is caught without it).
         take : ndarray of int, shape (P,), optional
             As for :meth:`factor`.
-        rhs_rows : array_like of int, optional
-            The only rows in which ``rhs`` may be non-zero, in every sample (see :meth:`forward_for`).
+        rhs_rows, wanted : array_like of int, optional
+            The only rows in which ``rhs`` may be non-zero, in every sample, and the only unknowns
+            the caller reads (see :meth:`schedule_for`); with ``wanted``, the other rows of x are
+            undefined and the residual test is not available.
         out : ndarray, shape (n, S), optional
             Where to write x (a new array by default).
 
@@ -347,14 +459,19 @@ class Elimination:
         s_count = rhs.shape[1]
         if self.singular:
             return np.full(rhs.shape, np.nan), np.zeros(s_count, dtype=bool)
-        factors = self.factor(values, take, out=scratch("factors", (self.n_slots, s_count)))
+        schedule = None if rhs_rows is None and wanted is None else self.schedule_for(rhs_rows, wanted)
+        if schedule is not None and schedule.computed is not None and check_residual:
+            raise ValueError("the residual test needs every unknown: give wanted=None")
+        factors = self.factor(values, take, out=scratch("factors", (self.n_slots, s_count)), schedule=schedule)
         if take is not None and check_residual:
             values = values[take]
+        multipliers = self._multipliers if schedule is None else schedule.multipliers
         with np.errstate(all="ignore"):
-            x = self.substitute(factors, rhs, None if rhs_rows is None else self.forward_for(rhs_rows), out)
-            ok = np.all(np.isfinite(x), axis=0)
-            if self._multipliers.size:
-                ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+            x = self.substitute(factors, rhs, schedule, out)
+            computed = x if schedule is None or schedule.computed is None else x[schedule.computed]
+            ok = np.all(np.isfinite(computed), axis=0)
+            if multipliers.size:
+                ok &= np.all(np.abs(factors[multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
         if check_residual:
             with np.errstate(all="ignore"):
                 # The residual test of linear.solve_batch, so that both call the same samples singular.
