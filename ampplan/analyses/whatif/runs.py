@@ -261,7 +261,7 @@ def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executo
         futures = {executor.submit(run_chunk, plan, spec, start, stop): (start, stop) for start, stop in bounds}
         try:
             for future in concurrent.futures.as_completed(futures):
-                start, stop = futures[future]
+                start, stop = futures.pop(future)    # dropped once kept: a run holds one copy of its results
                 keep(start, future.result())
                 done += stop - start
                 if progress is not None:
