@@ -275,21 +275,17 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
 
 
 def _read_unknowns(compiled, system, dc_load_lines: bool) -> list:
-    """The (variant, unknown) pairs of the incremental solves that :func:`analyse_compiled` and
-    :func:`~.clipping.clipping_batch` read: from the drive, the chain's and every stage's input and
-    output and every transistor's I_B and V_CE (for the clipping); per stage, its input node
-    (input cut), its output node (output cut), its transistor's V_CE and its output (AC port) and
-    its V_CE (DC port)."""
+    """The (variant, unknown) pairs of the incremental solves that :func:`analyse_compiled` reads:
+    all of the drive (the gains read a few nodes of it, and the clipping of either model reads
+    what it needs of every transistor); per stage, its input node (input cut), its output node
+    (output cut), its transistor's collector and emitter and its output (AC port) and its
+    collector and emitter (DC port)."""
     index, size = system.index, system.size
-    bjts = system.layout.bjts
-    out = []
+    out = [(0, k) for k in range(size)]
 
     def add(variant, nodes):
         out.extend((variant, index[name]) for name in nodes if name in index and index[name] < size)
 
-    add(0, [compiled.load_node] + [s.input for s in compiled.stages] + [s.output for s in compiled.stages]
-        + [q.collector for q in bjts] + [q.emitter for q in bjts])
-    out.extend((0, int(k)) for k in system.q_ib)
     for k, nodes in enumerate(compiled.stages):
         v_in, v_out, v_ac, v_dc = variant_of(k, dc_load_lines)
         q = compiled.circuit.element(nodes.transistor)
