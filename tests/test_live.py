@@ -172,7 +172,7 @@ def test_refuses_what_is_not_a_plan_or_a_model():
     plan = ampplan.Plan()
     plan.add(ampplan.CommonEmitter(rb1=82e3, rb2=15e3, rc=3.9e3, re=1e3))
     with pytest.raises(errors.UnknownModelError, match="model"):
-        ObservablePlan(plan, model="spice")
+        ObservablePlan(plan, model="lookup-table")
     with pytest.raises(errors.UnknownModelError, match="observe kind"):
         ObservablePlan(plan).observe(print, kind="everything")
 

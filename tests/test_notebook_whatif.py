@@ -277,7 +277,7 @@ def test_tolerance_view_interrupted_keeps_the_previous_run(live, monkeypatch):
 
 
 @pytest.mark.parametrize("kwargs, culprit", [({"samples": 0}, "samples"), ({"resistors": 2.0}, "resistors"),
-                                             ({"beta": (2.0, 1.0)}, "beta"), ({"model": "spice"}, "model"),
+                                             ({"beta": (2.0, 1.0)}, "beta"), ({"model": "lookup-table"}, "model"),
                                              ({"distribution": "flat"}, "distribution")])
 def test_tolerance_view_bad_input_names_the_culprit(live, kwargs, culprit):
     with pytest.raises(Exception, match=culprit) as caught:

@@ -140,7 +140,7 @@ def test_target_out_of_reach_is_reported():
     ("s1.rc", ("s1.vce", 5.0), {"bounds": (-1.0, 1e3)}, InvalidValueError, r"design bounds for s1.rc: .*-1"),
     ("s1.rc", ("s1.vce", 5.0), {"bounds": 3}, InvalidValueError, r"design bounds: give \(low, high\)"),
     ("s1.rc", ("s1.vce", 5.0), {"series": "E7"}, UnknownModelError, r"unknown E-series 'E7'"),
-    ("s1.rc", ("s1.vce", 5.0), {"model": "spice"}, UnknownModelError, r"model must be one of"),
+    ("s1.rc", ("s1.vce", 5.0), {"model": "lookup-table"}, UnknownModelError, r"model must be one of"),
     ("s1.coupling", ("s1.vce", 5.0), {}, InvalidValueError, r"design s1.coupling: holds a word"),
     ("s2.rb1", ("s1.vce", 5.0), {}, InvalidValueError, r"design s2.rb1: is not fitted"),
 ])

@@ -135,8 +135,8 @@ def test_zero_source_resistance_is_a_topology_change():
 
 def test_bad_model_and_bad_reads():
     plan = demo_plan()
-    with pytest.raises(UnknownModelError, match=r"model must be one of constant-drop, ebers-moll, got 'spice'"):
-        plan.sweep({"s1.rc": [1e3]}, model="spice")
+    with pytest.raises(UnknownModelError, match=r"model must be one of constant-drop, ebers-moll, got 'lookup-table'"):
+        plan.sweep({"s1.rc": [1e3]}, model="lookup-table")
     sweep = plan.sweep({"s1.rc": [1e3, 2e3]})
     with pytest.raises(UnknownNameError, match=r"'s1.vc'.*did you mean 'vce'"):
         sweep["s1.vc"]

@@ -262,7 +262,7 @@ def test_worker_processes_only_for_large_runs_and_where_forking_is_safe():
     ({"progress": 3}, InvalidValueError, r"tolerance progress: must be callable"),
     ({"workers": 0}, InvalidValueError, r"tolerance workers: must be a whole number >= 1, got 0"),
     ({"beta_temperature_coefficient": math.nan}, InvalidValueError, r"tolerance beta_temperature_coefficient"),
-    ({"model": "spice"}, UnknownModelError, r"model must be one of"),
+    ({"model": "lookup-table"}, UnknownModelError, r"model must be one of"),
 ])
 def test_bad_tolerance_options_are_named(options, error, message):
     with pytest.raises(error, match=message):

@@ -90,9 +90,27 @@ def wait_source(page, name: str, timeout: float = 60_000) -> None:
     page.wait_for_function(f"() => ({JS_SOURCE_DATA})({json.dumps(name)}) !== null", timeout=timeout)
 
 
-def save(page) -> None:
-    page.evaluate("window.jupyterapp.commands.execute('docmanager:save')")
-    page.wait_for_function("() => !window.jupyterapp.shell.currentWidget.context.model.dirty")
+JS_CLEAN = "() => !window.jupyterapp.shell.currentWidget.context.model.dirty"
+
+
+def save(page, timeout: float = 120_000) -> None:
+    """Save the open notebook and wait until it is clean.
+
+    A static record refreshed late (the views rewrite theirs a second after the last change, later
+    on a loaded machine) makes the notebook dirty again after a save, so the save is repeated until
+    one leaves it clean.
+    """
+    from playwright.sync_api import TimeoutError as PlaywrightTimeout
+
+    deadline = time.monotonic() + timeout / 1000
+    while True:
+        page.evaluate("window.jupyterapp.commands.execute('docmanager:save')")
+        try:
+            page.wait_for_function(JS_CLEAN, timeout=20_000, polling=200)
+            return
+        except PlaywrightTimeout:
+            if time.monotonic() > deadline:
+                raise
 
 
 JS_KERNEL_IDLE = """() => {

@@ -180,6 +180,7 @@ def test_notebook_live_in_jupyterlab(lab, browser, request, which):
             assert error_outputs(page) == []
 
         # The saved notebook (executed in JupyterLab, widget state included) stays small.
+        lab_page.wait_kernel_idle(page, quiet_s=1.5)   # the last static records rewritten first
         lab_page.save(page)
         size = (lab.root_dir / NOTEBOOK_NAME).stat().st_size
         assert size < MAX_RECORD_BYTES, f"saved notebook is {size} bytes"
