@@ -127,9 +127,13 @@ def device_currents(v_be, v_bc, dev, v_t):
     return i_b, i_c, d
 
 
-def _limit_junction(v_new, v_old, nvt, v_crit):
-    """Limit a junction-voltage step where the exponential is steep (logarithmic step)."""
-    steep = (v_new > v_crit) & (np.abs(v_new - v_old) > 2.0 * nvt)
+def _limit_junction(v_new, v_old, nvt, v_crit, two_nvt=None):
+    """Limit a junction-voltage step where the exponential is steep (logarithmic step).
+
+    Returns ``v_new`` itself when no step is limited. ``two_nvt`` is 2·``nvt``, when the caller
+    keeps it.
+    """
+    steep = (v_new > v_crit) & (np.abs(v_new - v_old) > (2.0 * nvt if two_nvt is None else two_nvt))
     if not steep.any():
         return v_new
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -138,6 +142,90 @@ def _limit_junction(v_new, v_old, nvt, v_crit):
         from_off = nvt * np.log(np.where(v_new > 0, v_new / nvt, 1.0))
     limited = np.where(v_old > 0, from_on, from_off)
     return np.where(steep, limited, v_new)
+
+
+def _device_rows(vj, k):
+    """:func:`device_currents` for the sparse Newton path: samples last, both junctions in one array.
+
+    The same arithmetic as :func:`device_currents`, operation for operation (so the same values
+    to the last bit), in about half as many numpy passes: the exponentials of both junctions are
+    one call, and the constants that depend on the sample alone come precomputed.
+
+    Parameters
+    ----------
+    vj : ndarray, shape (2N, S)
+        v_be of every transistor, then v_bc, volts (NPN frame).
+    k : dict of str -> ndarray
+        ``"nvt"`` (2N, S): n·V_T per junction; ``"ib_fr"`` (2N, S): I_S/β_F, then I_S/β_R;
+        ``"is_pm"`` (2N, S): I_S, then -I_S; ``"i_s"`` and ``"inv_va"`` (N, S): I_S and 1/V_A.
+
+    Returns
+    -------
+    ndarray, shape (11N, S)
+        Rows of N: i_b, i_c (amperes), ∂i_b/∂v_be, ∂i_b/∂v_bc, ∂i_c/∂v_be, ∂i_c/∂v_bc (siemens),
+        then five blocks left for the caller (the sums of :func:`companion_terms`).
+    """
+    n = vj.shape[0] // 2
+    out = np.empty((11 * n, vj.shape[1]))
+    nvt = k["nvt"]
+    arg = vj / nvt
+    if arg.size == 0 or arg.max() <= EXP_LIMIT:
+        # exp() needs no linear continuation: _exp would return this value twice (times 1.0).
+        e = np.exp(arg)
+        de = e / nvt
+    else:
+        e, de = _exp(arg)
+        de /= nvt
+    e_be, e_bc = e[:n], e[n:]
+    q = 1.0 - vj[n:] * k["inv_va"]
+    ise = k["i_s"] * (e_be - e_bc)
+    i_b, i_c, b_bc, c_bc = out[:n], out[n:2 * n], out[3 * n:4 * n], out[5 * n:6 * n]
+    np.multiply(ise, q, out=i_c)                              # i_t
+    leak = k["ib_fr"] * (e - 1.0)                             # (I_S/β_F)(e_be - 1), (I_S/β_R)(e_bc - 1)
+    i_c -= leak[n:]
+    np.add(leak[:n], leak[n:], out=i_b)
+    np.multiply(k["ib_fr"], de, out=out[2 * n:4 * n])         # ∂i_b/∂v_be, ∂i_b/∂v_bc
+    c = out[4 * n:6 * n]
+    np.multiply(k["is_pm"], de, out=c)                        # I_S·e'_be, -I_S·e'_bc
+    c.reshape(2, n, -1)[...] *= q                             # ∂i_t/∂v_be; the first term of ∂i_t/∂v_bc
+    c_bc -= ise * k["inv_va"]
+    c_bc -= b_bc
+    return out
+
+
+def _onto_plan(scatter, offset=0):
+    """:func:`_onto`'s form of a :class:`~ampplan.solver.assembly.Scatter`: its passes, each split
+    by weight into terms added, terms subtracted and (rare) others, sources shifted by ``offset``,
+    and the positions its first pass leaves alone. A weight of ±1 adds or subtracts the value
+    itself: the same sum as multiplying by the weight, without a broadcast product (slow where
+    the samples are the contiguous axis)."""
+    passes = []
+    for position, source, weight in scatter.passes:
+        groups = []
+        for chosen, how in ((weight == 1.0, np.add), (weight == -1.0, np.subtract)):
+            if chosen.any():
+                groups.append((position[chosen], source[chosen] + offset, how, None))
+        other = (weight != 1.0) & (weight != -1.0)
+        if other.any():
+            groups.append((position[other], source[other] + offset, np.add, weight[other][:, None]))
+        passes.append(groups)
+    first = np.concatenate([g[0] for g in passes[0]]) if passes else np.zeros(0, dtype=np.intp)
+    return passes, first
+
+
+def _onto(plan, values, base):
+    """``base`` (P, S) plus the terms of a scatter (:func:`_onto_plan`) read from ``values``, as a
+    new array: the sums of ``Scatter.last(values, base.copy())``, value for value, without the
+    copy (the first pass writes its positions outright)."""
+    passes, first = plan
+    out = np.empty(base.shape)
+    rest = np.setdiff1d(np.arange(base.shape[0]), first, assume_unique=True) if first.size else slice(None)
+    out[rest] = base[rest]
+    for k, groups in enumerate(passes):
+        for position, source, how, weight in groups:
+            term = values[source] if weight is None else values[source] * weight
+            out[position] = how(base[position] if k == 0 else out[position], term)
+    return out
 
 
 class NewtonProblem:
@@ -272,7 +360,16 @@ class NewtonProblem:
         last ((unknowns, S'), (N, S')): the elimination reads and writes that layout, so nothing is
         transposed per iteration, and every row operation runs over contiguous samples. The
         arithmetic is that of :meth:`newton`'s dense path, value for value; the working arrays
-        hold the still-active samples only, written back when that set shrinks."""
+        hold the still-active samples only, written back when that set shrinks.
+
+        Fewer numpy passes per iteration than the dense path (each pass over a few thousand
+        samples costs about as much in call overhead as in arithmetic): the two junctions of every
+        transistor are one array of 2N rows (v_be, then v_bc), limited and exponentiated in one
+        go (:func:`_device_rows`); the per-sample constants of the equations (I_S/β_F, 1/V_A ...)
+        are formed once per call, not per iteration; each iteration writes the new iterate into
+        the working array in place, and the junction voltages and device currents it evaluates
+        there are the next iteration's (the iterate they came from is the one it starts at).
+        """
         lay = self.layout
         every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
         pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
@@ -287,18 +384,33 @@ class NewtonProblem:
             b, r = lay.assemble(sub, source_scale=scale, ladder_conductance=ladder_conductance, reduced=True)
             return b[:, :nu, :nu], r[:, :nu]
 
-        n_q, size = lay.n_bjt, lay.size + 1
+        n_q = lay.n_bjt
         abs_tol = self.abs_tol[:nu, None]
-        sign = lay.sign[:, None]
-        q_b, q_c, q_e = lay.q_b, lay.q_c, lay.q_e
+        # Both junctions of every transistor as one array of 2N rows: v_be = s·(V_B - V_E), then
+        # v_bc = s·(V_B - V_C). A sign of +1 multiplies exactly, so an all-NPN circuit skips it.
+        take_b, take_o = np.concatenate([lay.q_b, lay.q_b]), np.concatenate([lay.q_e, lay.q_c])
+        sign2 = None if np.all(lay.sign == 1.0) else np.concatenate([lay.sign, lay.sign])[:, None]
+
+        def junctions(xs):
+            v = xs[take_b] - xs[take_o]
+            return v if sign2 is None else np.multiply(v, sign2, out=v)
+
+        q_ibc = np.concatenate([lay.q_ib, lay.q_ic])    # rows of I_B, then I_C, in the unknowns
         x_all = np.ascontiguousarray(x.T)                   # (size + 1, S'), every sample
-        vbe_all, vbc_all = (np.ascontiguousarray(v.T) for v in v_old)
+        vj_all = np.concatenate([v_old[0].T, v_old[1].T])   # (2N, S'): junction voltages last used
+        dev = {k: pick(self.dev[k]).T for k in _MODEL_PARAMETERS}
+        nvt = pick(self.nvt).T
+        i_s = dev["saturation_current"]
         # Every per-sample array of the active samples as rows of one array, so that dropping the
         # samples that are done is one gather: the iterate, the junction voltages last used, the
-        # linear part (entries, right-hand side), the device parameters, V_T, n·V_T, V_crit.
-        parts = [("x", x_all), ("vbe", vbe_all), ("vbc", vbc_all), ("entries", entries), ("right", right)]
-        parts += [(k, pick(self.dev[k]).T) for k in _MODEL_PARAMETERS]
-        parts += [("v_t", pick(self.v_t).T), ("nvt", pick(self.nvt).T), ("v_crit", pick(self.v_crit).T)]
+        # linear part (entries, right-hand side), and the constants of the device equations of
+        # device_currents, each formed as it forms them: n·V_T, 2·n·V_T and V_crit per junction,
+        # I_S/β_F and I_S/β_R (one per junction), I_S and -I_S (one per junction), I_S, 1/V_A.
+        parts = [("x", x_all), ("vj", vj_all), ("entries", entries), ("right", right),
+                 ("nvt", np.concatenate([nvt, nvt])), ("two_nvt", np.concatenate([2.0 * nvt, 2.0 * nvt])),
+                 ("v_crit", np.concatenate([pick(self.v_crit).T] * 2)),
+                 ("ib_fr", np.concatenate([i_s / dev["beta"], i_s / dev["beta_reverse"]])),
+                 ("is_pm", np.concatenate([i_s, -i_s])), ("i_s", i_s), ("inv_va", 1.0 / dev["early_voltage"])]
         at, spans = 0, {}
         for name, a in parts:
             spans[name] = slice(at, at + a.shape[0])
@@ -308,76 +420,92 @@ class NewtonProblem:
             state[spans[name]] = a
 
         def views(state):
-            return ({name: state[span] for name, span in spans.items()},
-                    {k: state[spans[k]] for k in _MODEL_PARAMETERS})
+            return {name: state[span] for name, span in spans.items()}
 
-        w, d_act = views(state)
+        w = views(state)
+        # The companion conductances and their sums (companion_terms) sit in rows 2N onwards of
+        # _device_rows' array: the plan's scatter reads them there.
+        g_passes, j_passes = _onto_plan(conductances, offset=2 * n_q), _onto_plan(currents)
         converged = np.zeros(len(rows), dtype=bool)
         iterations = np.zeros(len(rows), dtype=int)
         active = np.arange(len(rows))
         dense_act = dense
-        ahead = None     # device currents at the latest iterate (rows i_b, i_c, then the four conductances)
+        ahead = None     # _device_rows at the latest iterate, and its junction voltages
         for _ in range(max_iterations):
             if active.size == 0:
                 break
             xa = w["x"]
-            vbe_raw, vbc_raw = sign * (xa[q_b] - xa[q_e]), sign * (xa[q_b] - xa[q_c])
-            vbe = _limit_junction(vbe_raw, w["vbe"], w["nvt"], w["v_crit"])
-            vbc = _limit_junction(vbc_raw, w["vbc"], w["nvt"], w["v_crit"])
-            was_limited = np.any((vbe != vbe_raw) | (vbc != vbc_raw), axis=0)
-            if ahead is not None and not was_limited.any():
-                # Evaluated at exactly these voltages last time round.
-                i_b, i_c = ahead[:n_q], ahead[n_q:2 * n_q]
-                d = {k: ahead[(2 + q) * n_q:(3 + q) * n_q] for q, k in enumerate(_COMPANION)}
+            if ahead is None:
+                vj_raw, ev = junctions(xa), None
             else:
-                i_b, i_c, d = device_currents(vbe, vbc, d_act, w["v_t"])
-            # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional to v.
-            j_b = i_b - d["b_be"] * vbe - d["b_bc"] * vbc
-            j_c = i_c - d["c_be"] * vbe - d["c_bc"] * vbc
-            values = conductances.last(companion_terms(d), w["entries"].copy())
-            rhs = currents.last(np.concatenate([j_b, j_c]), w["right"].copy())
+                vj_raw, ev = ahead
+            vj = _limit_junction(vj_raw, w["vj"], w["nvt"], w["v_crit"], w["two_nvt"])
+            was_limited = None
+            if vj is not vj_raw:
+                was_limited = np.any(vj != vj_raw, axis=0)
+                if not was_limited.any():
+                    was_limited = None
+            if ev is None or was_limited is not None:
+                ev = _device_rows(vj, w)
+            s_act = active.size
+            g = ev[2 * n_q:6 * n_q]
+            # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional
+            # to v; (2, N, S') = j_b, then j_c.
+            prod = g.reshape(2, 2 * n_q, s_act) * vj
+            j = ev[:2 * n_q].reshape(2, n_q, s_act) - prod[:, :n_q]
+            j -= prod[:, n_q:]
+            # The sums companion_terms adds after the four conductances.
+            g4 = g.reshape(2, 2, n_q, s_act)
+            np.add(g4[:, 0], g4[:, 1], out=ev[6 * n_q:8 * n_q].reshape(2, n_q, s_act))
+            np.add(ev[6 * n_q:7 * n_q], ev[7 * n_q:8 * n_q], out=ev[8 * n_q:9 * n_q])
+            np.add(g[:2 * n_q], g[2 * n_q:], out=ev[9 * n_q:])
+            values = _onto(g_passes, ev, w["entries"])
+            rhs = _onto(j_passes, j.reshape(2 * n_q, s_act), w["right"])
             u, ok = elimination.solve(values, rhs, check_residual=False)
             bad = np.flatnonzero(~ok)
             if bad.size:
                 matrix, b = dense_act(bad)
                 matrix, b = matrix.copy(), b.copy()
-                self._stamp_companion(matrix, b, {k: v[:, bad].T for k, v in d.items()}, j_b[:, bad].T,
-                                      j_c[:, bad].T)
+                d = {k: g[q * n_q:(q + 1) * n_q, bad].T for q, k in enumerate(_COMPANION)}
+                self._stamp_companion(matrix, b, d, j[0][:, bad].T, j[1][:, bad].T)
                 solved, ok[bad] = solve_batch(matrix, b, check_residual=False)
                 u[:, bad] = solved.T
-            step = np.abs(u - xa[:nu])
-            small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:nu])) + abs_tol, axis=0)
+                bad = bad[~ok[bad]]
+            xn = xa[:nu]
+            step = np.abs(u - xn)
+            small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xn)) + abs_tol, axis=0)
             iterations[active] += 1
-            # I_B and I_C from the companion model at the new voltages.
-            new = xa.copy()
-            new[:nu] = u
-            vbe_new, vbc_new = sign * (new[q_b] - new[q_e]), sign * (new[q_b] - new[q_c])
-            lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
-            lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
-            new[lay.q_ib], new[lay.q_ic] = lin_b, lin_c
+            kept = xa[:, bad] if bad.size else None      # a failed step leaves its sample as it was
+            # The new iterate in place; I_B and I_C from the companion model at its voltages.
+            xn[...] = u
+            vj_new = junctions(xa)
+            prod = g.reshape(2, 2 * n_q, s_act) * vj_new
+            lin = j + prod[:, :n_q]
+            lin += prod[:, n_q:]
+            lin = lin.reshape(2 * n_q, s_act)
+            xa[q_ibc] = lin
             # Converged as in newton(): a negligible step, or device currents that already match.
-            ahead = np.empty((6 * n_q, active.size))
-            true_b, true_c = ahead[:n_q], ahead[n_q:2 * n_q]
-            true_b[:], true_c[:], d_new = device_currents(vbe_new, vbc_new, d_act, w["v_t"])
-            for q, k in enumerate(_COMPANION):
-                ahead[(2 + q) * n_q:(3 + q) * n_q] = d_new[k]
-            fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
-                          & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE),
-                          axis=0)
-            done = ok & ((small & ~was_limited) | fits)
-            xa[:] = new if ok.all() else np.where(ok, new, xa)
-            w["vbe"][:], w["vbc"][:] = vbe, vbc
+            ev_new = _device_rows(vj_new, w)
+            fits = np.all(np.abs(ev_new[:2 * n_q] - lin) <= FIT_RELATIVE * np.abs(lin) + FIT_TOLERANCE, axis=0)
+            done = (small | fits) if was_limited is None else ((small & ~was_limited) | fits)
+            if kept is not None:
+                done &= ok
+                xa[:, bad] = kept
+            w["vj"][...] = vj
             converged[active[done]] = True
             # A singular or non-finite iterate ends that sample's attempt; a fallback takes over.
             still = ~done & ok
-            if not np.all(still):
-                x_all[:, active], vbe_all[:, active], vbc_all[:, active] = w["x"], w["vbe"], w["vbc"]
+            if still.all():
+                ahead = (vj_new, ev_new)
+            else:
+                x_all[:, active], vj_all[:, active] = w["x"], w["vj"]
                 active = active[still]
-                state, ahead = state[:, still], ahead[:, still]
-                w, d_act = views(state)
+                state = state[:, still]
+                w = views(state)
+                ahead = (vj_new[:, still], ev_new[:, still])
                 dense_act = (lambda local, chosen=active: dense(chosen[local]))
-        x_all[:, active], vbe_all[:, active], vbc_all[:, active] = w["x"], w["vbe"], w["vbc"]
-        return np.ascontiguousarray(x_all.T), (vbe_all.T, vbc_all.T), converged, iterations
+        x_all[:, active], vj_all[:, active] = w["x"], w["vj"]
+        return np.ascontiguousarray(x_all.T), (vj_all[:n_q].T, vj_all[n_q:].T), converged, iterations
 
     def _sparse_plan(self, m):
         """The sparse elimination of the reduced Newton system (m unknowns), planned once per
@@ -681,21 +809,27 @@ def classify(layout, params, x, checks: bool = True):
     dev = params.at_temperature
     on = conduction_voltage(dev, thermal_voltage(params.temperature[:, None]))
     s = layout.sign
-    v_be = s * (x[:, layout.q_b] - x[:, layout.q_e])
-    v_bc = s * (x[:, layout.q_b] - x[:, layout.q_c])
+    x_b = x[:, layout.q_b]
+    v_be, v_bc = x_b - x[:, layout.q_e], x_b - x[:, layout.q_c]
+    if not np.all(s == 1.0):     # (a sign of +1 multiplies exactly)
+        v_be *= s
+        v_bc *= s
     v_ce = v_be - v_bc
     sat = dev["vce_sat"]
-    conducting = (v_be >= on) | (v_bc >= on)
-    regions = np.where(~conducting, rg.CUTOFF, np.where(v_ce >= sat, rg.ACTIVE,
-                                                        np.where(v_ce <= -sat, rg.REVERSE, rg.SATURATION)))
+    regions = np.where(v_ce >= sat, _CODE[rg.ACTIVE], np.where(v_ce <= -sat, _CODE[rg.REVERSE], _CODE[rg.SATURATION]))
+    regions[~((v_be >= on) | (v_bc >= on))] = rg.CUTOFF     # neither junction conducts
     if not checks:
         return regions, None
-    i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
-    quantities = np.stack([v_be, v_bc, v_ce, -v_bc, i_b, i_c], axis=-1)
-    limits = np.stack([on, on, sat, np.zeros_like(on), dev["beta"] * i_b, -sat], axis=-1)
+    # The quantity and limit slots of regions.QUANTITIES and LIMITS that the Ebers–Moll table reads.
+    quantities = (v_be, v_bc, v_ce, None, None, None)
+    limits = (on, on, sat, None, None, -sat)
     table = rg.table("ebers-moll")
-    values, bounds, margins = table.evaluate(quantities, limits, regions)
+    values, bounds, margins = table.choose(quantities, limits, regions)
     return regions, (table.check_names(regions, s), values, bounds, margins)
+
+
+#: Region codes as one-byte scalars (np.where keeps their type).
+_CODE = {code: np.int8(code) for code in (rg.CUTOFF, rg.ACTIVE, rg.SATURATION, rg.REVERSE)}
 
 
 @dataclass(frozen=True)

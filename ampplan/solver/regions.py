@@ -135,6 +135,7 @@ class CheckTable:
         self.limit = np.array([[LIMITS.index(c.limit) for c in r] for r in by_code], dtype=np.intp)
         self.above = np.array([[c.above for c in r] for r in by_code])
         self.is_current = np.array([[c.is_current for c in r] for r in by_code])
+        self._margin_sign = np.where(self.above, 1.0, -1.0)
         self.names = np.array([[[c.npn for c in r] for r in by_code], [[c.pnp for c in r] for r in by_code]],
                               dtype=str)    # [npn, pnp][region][check]
         #: The same table as plain lists, for one sample in plain floats (a single solve): per region
@@ -163,6 +164,38 @@ class CheckTable:
         values = quantities[at_k, at_n, self.quantity[reg]]
         bounds = limits[at_k, at_n, self.limit[reg]]
         margins = np.where(self.above[reg], values - bounds, bounds - values)
+        return values, bounds, margins
+
+    def choose(self, quantities, limits, regions: np.ndarray):
+        """:meth:`evaluate` with the slots given one array each, the same values to the last bit.
+
+        Each check picks its slot by region with one ``numpy.choose`` (one copy where every
+        sample and transistor is in the same region), instead of stacking every slot into one
+        array and gathering from it; a slot that no check of this table reads may be None.
+
+        Parameters
+        ----------
+        quantities : sequence of ndarray (K, N) or None, in the order of :data:`QUANTITIES`
+        limits : sequence of ndarray (K, N) or None, in the order of :data:`LIMITS`
+        regions : ndarray of int, shape (K, N)
+
+        Returns
+        -------
+        values, limits, margins : ndarray, shape (K, N, 2)
+        """
+        shape = regions.shape + (2,)
+        values, bounds = np.empty(shape), np.empty(shape)
+        first = regions.flat[0] if regions.size else 0
+        uniform = regions.size == 0 or bool(np.all(regions == first))
+        for c in range(2):
+            for out, table, slots in ((values, self.quantity, quantities), (bounds, self.limit, limits)):
+                if uniform:
+                    out[..., c] = slots[table[first, c]]
+                else:
+                    np.choose(regions, [slots[k] for k in table[:, c]], out=out[..., c])
+        # b - v is exactly -(v - b): a margin is the difference times ±1.
+        margins = values - bounds
+        margins *= self._margin_sign[first] if uniform else self._margin_sign[regions]
         return values, bounds, margins
 
     def check_names(self, regions: np.ndarray, sign: np.ndarray) -> np.ndarray:
