@@ -193,12 +193,12 @@ def _device_rows(vj, k):
     return out
 
 
-def _onto_plan(scatter, offset=0):
-    """:func:`_onto`'s form of a :class:`~ampplan.solver.assembly.Scatter`: its passes, each split
-    by weight into terms added, terms subtracted and (rare) others, sources shifted by ``offset``,
-    and the positions its first pass leaves alone. A weight of ±1 adds or subtracts the value
-    itself: the same sum as multiplying by the weight, without a broadcast product (slow where
-    the samples are the contiguous axis)."""
+def _onto_plan(scatter, rows, offset=0):
+    """:func:`_onto`'s form of a :class:`~ampplan.solver.assembly.Scatter` into ``rows`` rows:
+    its passes, each split by weight into terms added, terms subtracted and (rare) others,
+    sources shifted by ``offset``, and the rows its first pass leaves alone. A weight of ±1 adds
+    or subtracts the value itself: the same sum as multiplying by the weight, without a
+    broadcast product (slow where the samples are the contiguous axis)."""
     passes = []
     for position, source, weight in scatter.passes:
         groups = []
@@ -210,22 +210,41 @@ def _onto_plan(scatter, offset=0):
             groups.append((position[other], source[other] + offset, np.add, weight[other][:, None]))
         passes.append(groups)
     first = np.concatenate([g[0] for g in passes[0]]) if passes else np.zeros(0, dtype=np.intp)
-    return passes, first
+    return passes, np.setdiff1d(np.arange(rows), first)
 
 
 def _onto(plan, values, base):
     """``base`` (P, S) plus the terms of a scatter (:func:`_onto_plan`) read from ``values``, as a
     new array: the sums of ``Scatter.last(values, base.copy())``, value for value, without the
     copy (the first pass writes its positions outright)."""
-    passes, first = plan
+    passes, rest = plan
     out = np.empty(base.shape)
-    rest = np.setdiff1d(np.arange(base.shape[0]), first, assume_unique=True) if first.size else slice(None)
     out[rest] = base[rest]
     for k, groups in enumerate(passes):
         for position, source, how, weight in groups:
             term = values[source] if weight is None else values[source] * weight
             out[position] = how(base[position] if k == 0 else out[position], term)
     return out
+
+
+def _sorted_onto(plan):
+    """A :func:`_onto` plan whose first pass is one block of adds and one of subtractions, for a
+    base kept with its rows in the order ``order`` (those blocks, then the rest): the first pass
+    then reads and writes row ranges instead of gathered rows. Returns (order, the plan of the
+    other passes in the sorted rows, the first pass's sources added and subtracted), or None where
+    a weight is not ±1."""
+    passes, rest = plan
+    if not passes:
+        return None
+    groups = {how: (position, source) for position, source, how, weight in passes[0] if weight is None}
+    if len(groups) != len(passes[0]) or any(w is not None for g in passes[1:] for *_, w in g):
+        return None
+    empty = (np.zeros(0, dtype=np.intp),) * 2
+    (add_at, add_from), (sub_at, sub_from) = groups.get(np.add, empty), groups.get(np.subtract, empty)
+    order = np.concatenate([add_at, sub_at, rest])
+    where = np.argsort(order)
+    later = [[(where[p], src, how, None) for p, src, how, _ in g] for g in passes[1:]]
+    return order, where, later, add_from, sub_from
 
 
 class NewtonProblem:
@@ -395,6 +414,10 @@ class NewtonProblem:
             v = xs[take_b] - xs[take_o]
             return v if sign2 is None else np.multiply(v, sign2, out=v)
 
+        g_passes, j_passes = _onto_plan(conductances, positions.size, offset=2 * n_q), _onto_plan(currents, nu)
+        sorted_g = _sorted_onto(g_passes)
+        if sorted_g is not None:
+            entries = entries[sorted_g[0]]
         q_ibc = np.concatenate([lay.q_ib, lay.q_ic])    # rows of I_B, then I_C, in the unknowns
         x_all = np.ascontiguousarray(x.T)                   # (size + 1, S'), every sample
         vj_all = np.concatenate([v_old[0].T, v_old[1].T])   # (2N, S'): junction voltages last used
@@ -425,7 +448,6 @@ class NewtonProblem:
         w = views(state)
         # The companion conductances and their sums (companion_terms) sit in rows 2N onwards of
         # _device_rows' array: the plan's scatter reads them there.
-        g_passes, j_passes = _onto_plan(conductances, offset=2 * n_q), _onto_plan(currents)
         converged = np.zeros(len(rows), dtype=bool)
         iterations = np.zeros(len(rows), dtype=int)
         active = np.arange(len(rows))
@@ -459,9 +481,24 @@ class NewtonProblem:
             np.add(g4[:, 0], g4[:, 1], out=ev[6 * n_q:8 * n_q].reshape(2, n_q, s_act))
             np.add(ev[6 * n_q:7 * n_q], ev[7 * n_q:8 * n_q], out=ev[8 * n_q:9 * n_q])
             np.add(g[:2 * n_q], g[2 * n_q:], out=ev[9 * n_q:])
-            values = _onto(g_passes, ev, w["entries"])
             rhs = _onto(j_passes, j.reshape(2 * n_q, s_act), w["right"])
-            u, ok = elimination.solve(values, rhs, check_residual=False)
+            if sorted_g is None:
+                values = _onto(g_passes, ev, w["entries"])
+                u, ok = elimination.solve(values, rhs, check_residual=False)
+            else:
+                # The linear part is kept in sorted_g's row order: its first pass is two row
+                # ranges; the elimination reads the rows back in its own order (take=).
+                _, where, later, add_from, sub_from = sorted_g
+                base = w["entries"]
+                values = np.empty(base.shape)
+                n_add, n_sub = add_from.size, sub_from.size
+                np.add(base[:n_add], ev[add_from], out=values[:n_add])
+                np.subtract(base[n_add:n_add + n_sub], ev[sub_from], out=values[n_add:n_add + n_sub])
+                values[n_add + n_sub:] = base[n_add + n_sub:]
+                for groups in later:
+                    for position, source, how, _ in groups:
+                        values[position] = how(values[position], ev[source])
+                u, ok = elimination.solve(values, rhs, check_residual=False, take=where)
             bad = np.flatnonzero(~ok)
             if bad.size:
                 matrix, b = dense_act(bad)
