@@ -156,8 +156,8 @@ def _device_rows(vj, k):
     vj : ndarray, shape (2N, S)
         v_be of every transistor, then v_bc, volts (NPN frame).
     k : dict of str -> ndarray
-        ``"nvt"`` (2N, S): n·V_T per junction; ``"ib_fr"`` (2N, S): I_S/β_F, then I_S/β_R;
-        ``"is_pm"`` (2N, S): I_S, then -I_S; ``"i_s"`` and ``"inv_va"`` (N, S): I_S and 1/V_A.
+        ``"ib_fr"`` (2N, S): I_S/β_F, then I_S/β_R; ``"nvt"``, ``"i_s"`` and ``"inv_va"`` (N, S):
+        n·V_T, I_S and 1/V_A.
 
     Returns
     -------
@@ -165,10 +165,10 @@ def _device_rows(vj, k):
         Rows of N: i_b, i_c (amperes), ∂i_b/∂v_be, ∂i_b/∂v_bc, ∂i_c/∂v_be, ∂i_c/∂v_bc (siemens),
         then five blocks left for the caller (the sums of :func:`companion_terms`).
     """
-    n = vj.shape[0] // 2
-    out = np.empty((11 * n, vj.shape[1]))
+    n, s_count = vj.shape[0] // 2, vj.shape[1]
+    out = np.empty((11 * n, s_count))
     nvt = k["nvt"]
-    arg = vj / nvt
+    arg = vj.reshape(2, n, s_count) / nvt           # both junctions over one n·V_T
     if arg.size == 0 or arg.max() <= EXP_LIMIT:
         # exp() needs no linear continuation: _exp would return this value twice (times 1.0).
         e = np.exp(arg)
@@ -176,6 +176,7 @@ def _device_rows(vj, k):
     else:
         e, de = _exp(arg)
         de /= nvt
+    e, de = e.reshape(2 * n, s_count), de.reshape(2 * n, s_count)
     e_be, e_bc = e[:n], e[n:]
     q = 1.0 - vj[n:] * k["inv_va"]
     ise = k["i_s"] * (e_be - e_bc)
@@ -185,9 +186,10 @@ def _device_rows(vj, k):
     i_c -= leak[n:]
     np.add(leak[:n], leak[n:], out=i_b)
     np.multiply(k["ib_fr"], de, out=out[2 * n:4 * n])         # ∂i_b/∂v_be, ∂i_b/∂v_bc
-    c = out[4 * n:6 * n]
-    np.multiply(k["is_pm"], de, out=c)                        # I_S·e'_be, -I_S·e'_bc
-    c.reshape(2, n, -1)[...] *= q                             # ∂i_t/∂v_be; the first term of ∂i_t/∂v_bc
+    c = out[4 * n:6 * n].reshape(2, n, s_count)
+    np.multiply(k["i_s"], de.reshape(2, n, s_count), out=c)  # I_S·e'_be, I_S·e'_bc
+    c *= q                                                    # ∂i_t/∂v_be; minus the first term of ∂i_t/∂v_bc
+    np.negative(c_bc, out=c_bc)                               # (-I_S·e'_bc)·q is exactly -(I_S·e'_bc·q)
     c_bc -= ise * k["inv_va"]
     c_bc -= b_bc
     return out
@@ -414,6 +416,8 @@ class NewtonProblem:
             v = xs[take_b] - xs[take_o]
             return v if sign2 is None else np.multiply(v, sign2, out=v)
 
+        # The companion conductances and their sums (companion_terms) sit in rows 2N onwards of
+        # _device_rows' array: the plan's scatter reads them there.
         g_passes, j_passes = _onto_plan(conductances, positions.size, offset=2 * n_q), _onto_plan(currents, nu)
         sorted_g = _sorted_onto(g_passes)
         if sorted_g is not None:
@@ -430,10 +434,9 @@ class NewtonProblem:
         # device_currents, each formed as it forms them: n·V_T, 2·n·V_T and V_crit per junction,
         # I_S/β_F and I_S/β_R (one per junction), I_S and -I_S (one per junction), I_S, 1/V_A.
         parts = [("x", x_all), ("vj", vj_all), ("entries", entries), ("right", right),
-                 ("nvt", np.concatenate([nvt, nvt])), ("two_nvt", np.concatenate([2.0 * nvt, 2.0 * nvt])),
-                 ("v_crit", np.concatenate([pick(self.v_crit).T] * 2)),
+                 ("nvt", nvt), ("two_nvt", 2.0 * nvt), ("v_crit", pick(self.v_crit).T),
                  ("ib_fr", np.concatenate([i_s / dev["beta"], i_s / dev["beta_reverse"]])),
-                 ("is_pm", np.concatenate([i_s, -i_s])), ("i_s", i_s), ("inv_va", 1.0 / dev["early_voltage"])]
+                 ("i_s", i_s), ("inv_va", 1.0 / dev["early_voltage"])]
         at, spans = 0, {}
         for name, a in parts:
             spans[name] = slice(at, at + a.shape[0])
@@ -446,8 +449,6 @@ class NewtonProblem:
             return {name: state[span] for name, span in spans.items()}
 
         w = views(state)
-        # The companion conductances and their sums (companion_terms) sit in rows 2N onwards of
-        # _device_rows' array: the plan's scatter reads them there.
         converged = np.zeros(len(rows), dtype=bool)
         iterations = np.zeros(len(rows), dtype=int)
         active = np.arange(len(rows))
@@ -461,7 +462,10 @@ class NewtonProblem:
                 vj_raw, ev = junctions(xa), None
             else:
                 vj_raw, ev = ahead
-            vj = _limit_junction(vj_raw, w["vj"], w["nvt"], w["v_crit"], w["two_nvt"])
+            s_act = active.size
+            pair = vj_raw.reshape(2, n_q, s_act)       # both junctions over one n·V_T and V_crit
+            limited = _limit_junction(pair, w["vj"].reshape(2, n_q, s_act), w["nvt"], w["v_crit"], w["two_nvt"])
+            vj = vj_raw if limited is pair else limited.reshape(2 * n_q, s_act)
             was_limited = None
             if vj is not vj_raw:
                 was_limited = np.any(vj != vj_raw, axis=0)
@@ -469,7 +473,6 @@ class NewtonProblem:
                     was_limited = None
             if ev is None or was_limited is not None:
                 ev = _device_rows(vj, w)
-            s_act = active.size
             g = ev[2 * n_q:6 * n_q]
             # Companion model: i = j + g_be·v_be + g_bc·v_bc, j being the part not proportional
             # to v; (2, N, S') = j_b, then j_c.
@@ -536,10 +539,13 @@ class NewtonProblem:
                 ahead = (vj_new, ev_new)
             else:
                 x_all[:, active], vj_all[:, active] = w["x"], w["vj"]
-                active = active[still]
-                state = state[:, still]
+                keep = np.flatnonzero(still)
+                active = active[keep]
+                state = state.take(keep, axis=1)
                 w = views(state)
-                ahead = (vj_new[:, still], ev_new[:, still])
+                ev_next = np.empty((11 * n_q, keep.size))
+                np.take(ev_new[:6 * n_q], keep, axis=1, out=ev_next[:6 * n_q])   # the rest is rewritten
+                ahead = (vj_new.take(keep, axis=1), ev_next)
                 dense_act = (lambda local, chosen=active: dense(chosen[local]))
         x_all[:, active], vj_all[:, active] = w["x"], w["vj"]
         return np.ascontiguousarray(x_all.T), (vj_all[:n_q].T, vj_all[n_q:].T), converged, iterations
