@@ -150,14 +150,15 @@ def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
     x, converged, iterations, method, rejected = em.solve_newton(layout, params, _newton_start(layout, params, not single),
                                                                  warm_start=warm_start, sparse=not single)
     if single and not converged[0]:
-        raise ConvergenceError(_em_failure_message(layout, params, method[0], rejected, int(iterations[0])),
+        raise ConvergenceError(_em_failure_message(layout, params, em.METHODS[method[0]], rejected,
+                                                   int(iterations[0])),
                                iterations=int(iterations[0]),
                                last_iterate=dict(zip(layout.nodes, rejected[0, :layout.n_nodes].tolist())))
     regions, checks = em.classify(layout, params, x)
     status = np.where(converged, "ok", "no-convergence")
     names, values, limits, margins = checks
     holds = np.ones(values.shape, dtype=bool)
-    methods = sorted(set(method[converged].tolist())) or ["newton"]
+    methods = sorted(em.METHODS[k] for k in np.flatnonzero(np.bincount(method[converged], minlength=1))) or ["newton"]
     return _build(circuit, layout, params, x, regions, (names, values, limits, margins, holds), status,
                   "ebers-moll", " + ".join(methods), int(iterations.max(initial=0)), single)
 

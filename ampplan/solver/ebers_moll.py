@@ -700,11 +700,12 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
         Unknowns (NaN rows where every attempt failed); last column is ground.
     converged : ndarray of bool, shape (S,)
     iterations : ndarray of int, shape (S,)
-    method : ndarray of str, shape (S,)
-        ``"newton"``, ``"conductance ladder"`` or ``"source stepping"``; ``"overdriven"`` for a
-        sample whose only answer holds a junction beyond EXP_LIMIT·n·V_T, and ``"residual too
-        large"`` for one whose answer misses Kirchhoff's law or the device equations by more than
-        :data:`RESIDUAL_TOLERANCE` (neither converged).
+    method : ndarray of int8, shape (S,)
+        Codes into :data:`METHODS`: ``"newton"``, ``"conductance ladder"`` or ``"source
+        stepping"``; ``"overdriven"`` for a sample whose only answer holds a junction beyond
+        EXP_LIMIT·n·V_T, and ``"residual too large"`` for one whose answer misses Kirchhoff's law
+        or the device equations by more than :data:`RESIDUAL_TOLERANCE` (neither converged);
+        ``""`` where every attempt failed.
     rejected : ndarray, shape (S, size + 1)
         The answer an ``"overdriven"`` or ``"residual too large"`` sample was refused for (NaN
         elsewhere), for the message that explains it.
@@ -725,7 +726,7 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
     x = np.full((s_count, size), np.nan)
     converged = np.zeros(s_count, dtype=bool)
     iterations = np.zeros(s_count, dtype=int)
-    method = np.full(s_count, "", dtype=object)
+    method = np.zeros(s_count, dtype=np.int8)     # codes into METHODS: words for 10,000 samples cost
 
     def attempt(rows, start, v_start, label, **options):
         """Run Newton on ``rows``; record the ones that converge; return those that did not."""
@@ -733,7 +734,7 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
         iterations[rows] += its
         x[rows[ok]] = xs[ok]
         converged[rows[ok]] = True
-        method[rows[ok]] = label
+        method[rows[ok]] = METHODS.index(label)
         return rows[~ok]
 
     left = np.arange(s_count)
@@ -781,7 +782,7 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
             alive[idx[~ok]] = False
         x[left[alive]] = xl[alive]
         converged[left[alive]] = True
-        method[left[alive]] = label
+        method[left[alive]] = METHODS.index(label)
         left = left[~alive]
     # An answer on the straight continuation of exp() is no operating point: only ideal sources
     # can hold a junction that far forward. Those samples fail with their own label.
@@ -791,17 +792,21 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
         limit = EXP_LIMIT * problem.nvt[done]
         over = np.any((vbe > limit) | (vbc > limit), axis=1)
         converged[done[over]] = False
-        method[done[over]] = "overdriven"
+        method[done[over]] = METHODS.index("overdriven")
     # Every answer is checked against its own equations before it counts.
     done = np.flatnonzero(converged)
     if done.size:
         every = done.size == s_count
         missed = ~residuals(layout, params if every else take_samples(params, done), x if every else x[done]).ok
         converged[done[missed]] = False
-        method[done[missed]] = "residual too large"
+        method[done[missed]] = METHODS.index("residual too large")
     rejected = np.where(converged[:, None], np.nan, x)
     x[~converged] = np.nan
-    return x, converged, iterations, method.astype(str), rejected
+    return x, converged, iterations, method, rejected
+
+
+#: How :func:`solve_newton` reached (or failed to reach) each answer, by code.
+METHODS = ("", "newton", "conductance ladder", "source stepping", "overdriven", "residual too large")
 
 
 def conduction_voltage(dev, v_t):
@@ -931,53 +936,71 @@ def residuals(layout, params, x) -> Residuals:
     xt = np.ascontiguousarray(x.T)
     net = np.zeros((n_full, s_count))
     scale = np.zeros((n_full, s_count))
+    ground = layout.size     # ground's row is not checked: its terms are skipped
 
-    def leave(node, current):
-        # A loop over the circuit's elements (never over samples): each adds one row.
-        net[node] += current
-        scale[node] += np.abs(current)
+    def leave(node, current, size, sign=1.0):
+        # A loop over the circuit's elements (never over samples): each adds one row. Adding
+        # -current is subtracting current, exactly.
+        if node != ground:
+            if sign > 0:
+                net[node] += current
+            else:
+                net[node] -= current
+            scale[node] += size
 
     with np.errstate(all="ignore"):
         r_i = (xt[layout.r_a] - xt[layout.r_b]) * params.conductance.T
+        r_size = np.abs(r_i)
         for k, (a, b) in enumerate(zip(layout.r_a, layout.r_b)):
-            leave(a, r_i[k])
-            leave(b, -r_i[k])
+            leave(a, r_i[k], r_size[k])
+            leave(b, r_i[k], r_size[k], -1.0)
         for plus, minus, row in zip(layout.vs_plus, layout.vs_minus, layout.vs_row):
-            leave(plus, xt[row])
-            leave(minus, -xt[row])
+            size = np.abs(xt[row])
+            leave(plus, xt[row], size)
+            leave(minus, xt[row], size, -1.0)
         for k, (f, t) in enumerate(zip(layout.cs_from, layout.cs_to)):
-            leave(f, params.current[:, k])
-            leave(t, -params.current[:, k])
+            size = np.abs(params.current[:, k])
+            leave(f, params.current[:, k], size)
+            leave(t, params.current[:, k], size, -1.0)
         for b, c, e, sg, ib_at, ic_at in zip(layout.q_b, layout.q_c, layout.q_e, layout.sign, layout.q_ib, layout.q_ic):
-            leave(b, sg * xt[ib_at])
-            leave(c, sg * xt[ic_at])
-            leave(e, -sg * (xt[ib_at] + xt[ic_at]))
+            # s·I_B at the base, s·I_C at the collector, -s·(I_B + I_C) at the emitter (s = ±1).
+            leave(b, xt[ib_at], np.abs(xt[ib_at]), sg)
+            leave(c, xt[ic_at], np.abs(xt[ic_at]), sg)
+            i_e = xt[ib_at] + xt[ic_at]
+            leave(e, i_e, np.abs(i_e), -sg)
         nodes = slice(0, layout.n_nodes)
-        kcl_allowed = (RESIDUAL_TOLERANCE * scale[nodes] + CURRENT_TOLERANCE).T
-        kcl = np.abs(net[nodes]).T
+        kcl_allowed = RESIDUAL_TOLERANCE * scale[nodes] + CURRENT_TOLERANCE
+        kcl = np.abs(net[nodes])
 
-        i_b, i_c = x[:, layout.q_ib], x[:, layout.q_ic]
-        s = layout.sign
-        v_be = s * (x[:, layout.q_b] - x[:, layout.q_e])
-        v_bc = s * (x[:, layout.q_b] - x[:, layout.q_c])
-        true_b, true_c, _ = device_currents(v_be, v_bc, params.at_temperature,
-                                            thermal_voltage(params.temperature[:, None]))
+        # The device equations, samples last (the arithmetic of device_currents, to the bit).
+        n_q = layout.n_bjt
+        i_b, i_c = xt[layout.q_ib], xt[layout.q_ic]
+        v_j = xt[np.concatenate([layout.q_b, layout.q_b])] - xt[np.concatenate([layout.q_e, layout.q_c])]
+        v_j *= np.concatenate([layout.sign, layout.sign])[:, None]
+        dev = params.at_temperature
+        i_s = dev["saturation_current"].T
+        constants = {"nvt": (dev["emission_coefficient"] * thermal_voltage(params.temperature[:, None])).T,
+                     "ib_fr": np.concatenate([i_s / dev["beta"].T, i_s / dev["beta_reverse"].T]),
+                     "i_s": i_s, "inv_va": 1.0 / dev["early_voltage"].T}
+        device = _device_rows(v_j, constants)
+        true_b, true_c = device[:n_q], device[n_q:2 * n_q]
         miss = np.maximum(np.abs(true_b - i_b), np.abs(true_c - i_c))
         dev_allowed = RESIDUAL_TOLERANCE * np.maximum(np.maximum(np.abs(true_b), np.abs(true_c)),
                                                       np.maximum(np.abs(i_b), np.abs(i_c))) + CURRENT_TOLERANCE
     kcl_ok, kcl_at = _worst(kcl, kcl_allowed)
     dev_ok, dev_at = _worst(miss, dev_allowed)
-    rows = np.arange(s_count)
-    pad = lambda a: np.concatenate([a, np.zeros((s_count, 1))], axis=1)  # noqa: E731  (N may be 0)
-    return Residuals(kcl_ok & dev_ok, pad(kcl)[rows, kcl_at], kcl_at, pad(kcl_allowed)[rows, kcl_at],
-                     pad(miss)[rows, dev_at], dev_at, pad(dev_allowed)[rows, dev_at])
+    samples = np.arange(s_count)
+    at = lambda a, k: a[k, samples] if a.shape[0] else np.zeros(s_count)  # noqa: E731  (N may be 0)
+    return Residuals(kcl_ok & dev_ok, at(kcl, kcl_at), kcl_at, at(kcl_allowed, kcl_at),
+                     at(miss, dev_at), dev_at, at(dev_allowed, dev_at))
 
 
 def _worst(residual, allowed):
-    """Per sample: whether every residual is within what is allowed, and the index of the worst."""
+    """Per sample: whether every residual is within what is allowed, and the index of the worst
+    (arrays samples last, (K, S))."""
     with np.errstate(all="ignore"):
         excess = residual / allowed
     excess[np.isnan(excess)] = np.inf
-    if excess.shape[1] == 0:
-        return np.ones(excess.shape[0], dtype=bool), np.zeros(excess.shape[0], dtype=np.intp)
-    return np.all(excess <= 1.0, axis=1), np.argmax(excess, axis=1)
+    if excess.shape[0] == 0:
+        return np.ones(excess.shape[1], dtype=bool), np.zeros(excess.shape[1], dtype=np.intp)
+    return np.all(excess <= 1.0, axis=0), np.argmax(excess, axis=0)
