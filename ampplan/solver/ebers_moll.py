@@ -392,9 +392,12 @@ class NewtonProblem:
         there are the next iteration's (the iterate they came from is the one it starts at).
         """
         lay = self.layout
-        every = rows.size == self.params.size and np.array_equal(rows, np.arange(rows.size))
-        pick = (lambda a: a) if every else (lambda a: a[rows])  # noqa: E731  (no copies for a full set)
-        params = take_samples(self.params, rows, device=False) if not every else self.params
+        # A run of consecutive samples (a block of the warm-started attempt) is read through a
+        # slice: views, no copies.
+        run = rows.size > 0 and rows[-1] - rows[0] == rows.size - 1 and bool(np.all(np.diff(rows) == 1))
+        chosen = slice(int(rows[0]), int(rows[-1]) + 1) if run else rows
+        pick = (lambda a: a[chosen])  # noqa: E731
+        params = take_samples(self.params, chosen, device=False)
         nu = lay.n_nodes + lay.n_vs
         positions, elimination, conductances, currents = self._sparse_plan(nu)
         entries, right = lay.entries(params, positions, reduced=True, source_scale=scale,
