@@ -401,30 +401,32 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
     x[failed] = np.nan
     n = layout.size
     x[:, n] = 0.0
-    # Every quantity is computed for all elements at once, shape (S, count), then split by column.
-    node_v = x[:, :layout.n_nodes]
-    r_i = (x[:, layout.r_a] - x[:, layout.r_b]) * params.conductance
-    vs_i = -x[:, layout.vs_row]
-    ib, ic = x[:, layout.q_ib], x[:, layout.q_ic]
-    vbe = x[:, layout.q_b] - x[:, layout.q_e]
-    vce = x[:, layout.q_c] - x[:, layout.q_e]
+    # Every quantity is computed for all elements at once, samples last (count, S), so that each
+    # element's array is one contiguous row.
+    xt = np.ascontiguousarray(x.T)
+    node_v = xt[:layout.n_nodes]
+    r_i = (xt[layout.r_a] - xt[layout.r_b]) * params.conductance.T
+    vs_i = -xt[layout.vs_row]
+    ib, ic = xt[layout.q_ib], xt[layout.q_ic]
+    vbe = xt[layout.q_b] - xt[layout.q_e]
+    vce = xt[layout.q_c] - xt[layout.q_e]
     with np.errstate(divide="ignore", invalid="ignore"):
         forced = np.where(ib != 0, ic / np.where(ib != 0, ib, 1.0), np.nan)
-    power = layout.sign * (vce * ic + vbe * ib)
+    power = layout.sign[:, None] * (vce * ic + vbe * ib)
     names, values, limits, margins, holds = checks
     if np.any(failed):
         names = np.where(failed[:, None, None], "", names)
         values, limits, margins = (np.where(failed[:, None, None], np.nan, a) for a in (values, limits, margins))
         holds = holds & ~failed[:, None, None]
-    region = np.array(REGIONS + (UNSOLVED,))[np.where(failed[:, None], len(REGIONS), np.clip(regions, 0, 3))]
+    codes = np.where(failed[:, None], len(REGIONS), np.clip(regions, 0, 3))
     cols = lambda a: list(np.moveaxis(a, 1, 0))  # noqa: E731  (S, N, ...) -> N of (S, ...)
     v = {"gnd": np.zeros(x.shape[0])}
-    v.update(zip(layout.nodes, cols(node_v)))
-    currents = dict(zip((r.name for r in layout.resistors), cols(r_i)))
-    currents.update(zip((src.name for src in layout.voltage_sources), cols(vs_i)))
+    v.update(zip(layout.nodes, node_v))
+    currents = dict(zip((r.name for r in layout.resistors), r_i))
+    currents.update(zip((src.name for src in layout.voltage_sources), vs_i))
     currents.update(zip((src.name for src in layout.current_sources), cols(params.current)))
-    per_q = zip(layout.bjts, cols(region), cols(ic), cols(ib), cols(ib + ic), cols(vbe), cols(vce), cols(forced),
-                cols(power), cols(names), cols(values), cols(limits), cols(holds), cols(margins))
+    per_q = zip(layout.bjts, [_words(_REGION_WORDS, codes[:, j]) for j in range(layout.n_bjt)], ic, ib, ib + ic, vbe, vce, forced,
+                power, cols(names), cols(values), cols(limits), cols(holds), cols(margins))
     transistors = {}
     for q, reg, c_, b_, e_, be_, ce_, f_, p_, nm, va, li, ho, ma in per_q:
         chk = tuple(Check(nm[:, c], va[:, c], li[:, c], ho[:, c], ma[:, c]) for c in range(2))
@@ -435,6 +437,18 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
         model=model, v=v, i=currents, transistors=transistors, status=status.astype(str),
         temperature=params.temperature, method=method, iterations=int(iterations), batch_size=params.size,
         circuit=circuit, unknowns=x[:, :n])
+
+
+#: Region words by code, "unsolved" last.
+_REGION_WORDS = np.array(REGIONS + (UNSOLVED,))
+
+
+def _words(table, codes):
+    """``table[codes]``; where every code is the same, one read-only view of that one word (a
+    batch of 100,000 would otherwise write 100,000 words per transistor)."""
+    if codes.size and np.all(codes == codes.flat[0]):
+        return np.broadcast_to(table[codes.flat[0]], codes.shape)
+    return table[codes]
 
 
 class _Names:
