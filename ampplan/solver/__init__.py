@@ -147,14 +147,14 @@ def _newton_start(layout, params, sparse=False):
 
 
 def _solve_ebers_moll(circuit, layout, params, single, warm_start=True):
-    x, converged, iterations, method, rejected = em.solve_newton(layout, params, _newton_start(layout, params, not single),
-                                                                 warm_start=warm_start, sparse=not single)
+    x, converged, iterations, method, rejected, regions = em.solve_newton(
+        layout, params, _newton_start(layout, params, not single), warm_start=warm_start, sparse=not single)
     if single and not converged[0]:
         raise ConvergenceError(_em_failure_message(layout, params, em.METHODS[method[0]], rejected,
                                                    int(iterations[0])),
                                iterations=int(iterations[0]),
                                last_iterate=dict(zip(layout.nodes, rejected[0, :layout.n_nodes].tolist())))
-    regions, checks = em.classify(layout, params, x)
+    regions, checks = em.classify(layout, params, x, regions=regions)
     status = np.where(converged, "ok", "no-convergence")
     names, values, limits, margins = checks
     holds = np.ones(values.shape, dtype=bool)
@@ -212,8 +212,10 @@ def _em_failure_message(layout, params, method, rejected, iterations):
 def _em_guess(layout, params, rows, warm_start=True):
     """Region guess from the Ebers–Moll solution (all forward-active where it fails)."""
     sub = take_samples(params, rows)
-    x, converged, iterations, _, _ = em.solve_newton(layout, sub, _newton_start(layout, sub), warm_start=warm_start)
-    regions, _ = em.classify(layout, sub, x, checks=False)
+    x, converged, iterations, _, _, regions = em.solve_newton(layout, sub, _newton_start(layout, sub),
+                                                              warm_start=warm_start)
+    if regions is None:
+        regions, _ = em.classify(layout, sub, x, checks=False)
     regions[~converged] = cd.ACTIVE
     return regions.astype(np.int8), int(iterations.max(initial=0))
 

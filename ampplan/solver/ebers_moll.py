@@ -712,6 +712,9 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
     rejected : ndarray, shape (S, size + 1)
         The answer an ``"overdriven"`` or ``"residual too large"`` sample was refused for (NaN
         elsewhere), for the message that explains it.
+    regions : ndarray of int8, shape (S, N), or None
+        The regions :func:`classify` gives ``x``, where the warm start classified them (so that
+        the caller does not classify twice); None otherwise.
     """
     problem = NewtonProblem(layout, params, sparse)
     s_count = params.size
@@ -741,6 +744,7 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
         return rows[~ok]
 
     left = np.arange(s_count)
+    regions = None
     if warm_start and s_count > 1:
         first = left[:1]
         if attempt(first, *own_start(first), "newton").size == 0:
@@ -758,11 +762,13 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
             # solved neighbour's, the sample is solved from its own start as well, and that answer
             # (the one a single solve gives) is kept when it converges.
             regions, _ = classify(layout, params, x, checks=False)
+            classified = converged.copy()       # rows whose regions hold for their answer
             moved = np.flatnonzero(converged & np.any(regions != regions[first], axis=1))
             if moved.size:
                 xs, _, ok, its = problem.newton(moved, *own_start(moved))
                 iterations[moved] += its
                 x[moved[ok]] = xs[ok]
+                classified[moved[ok]] = False
     left = left[~converged[left]]
     if left.size:
         # Blocks of BLOCK samples, as above: working arrays that stay in cache.
@@ -805,7 +811,14 @@ def solve_newton(layout, params, start=None, warm_start: bool = True, sparse: bo
         method[done[missed]] = METHODS.index("residual too large")
     rejected = np.where(converged[:, None], np.nan, x)
     x[~converged] = np.nan
-    return x, converged, iterations, method, rejected
+    # The regions of every answer, when the warm start classified them (those are kept; a sample
+    # with no answer is what classify makes of NaN, cutoff).
+    if regions is not None:
+        stale = np.flatnonzero(converged & ~classified)
+        if stale.size:
+            regions[stale] = classify(layout, take_samples(params, stale), x[stale], checks=False)[0]
+        regions[~converged] = rg.CUTOFF
+    return x, converged, iterations, method, rejected, regions
 
 
 #: How :func:`solve_newton` reached (or failed to reach) each answer, by code.
@@ -833,7 +846,7 @@ def conduction_voltage(dev, v_t):
     return dev["emission_coefficient"] * v_t * np.log1p(rg.CONDUCTION_CURRENT / dev["saturation_current"])
 
 
-def classify(layout, params, x, checks: bool = True):
+def classify(layout, params, x, checks: bool = True, regions=None):
     """Regions of an Ebers–Moll solution, with the checks that decided them.
 
     The rule (:mod:`.regions`, NPN frame): a junction conducts when its voltage is at least
@@ -850,6 +863,8 @@ def classify(layout, params, x, checks: bool = True):
         Unknowns.
     checks : bool
         Also return the checks (False: the regions alone, None for the checks).
+    regions : ndarray of int, shape (S, N), optional
+        The regions of ``x`` already classified (by this function): only the checks are made.
 
     Returns
     -------
@@ -867,8 +882,10 @@ def classify(layout, params, x, checks: bool = True):
         v_bc *= s
     v_ce = v_be - v_bc
     sat = dev["vce_sat"]
-    regions = np.where(v_ce >= sat, _CODE[rg.ACTIVE], np.where(v_ce <= -sat, _CODE[rg.REVERSE], _CODE[rg.SATURATION]))
-    regions[~((v_be >= on) | (v_bc >= on))] = rg.CUTOFF     # neither junction conducts
+    if regions is None:
+        regions = np.where(v_ce >= sat, _CODE[rg.ACTIVE],
+                           np.where(v_ce <= -sat, _CODE[rg.REVERSE], _CODE[rg.SATURATION]))
+        regions[~((v_be >= on) | (v_bc >= on))] = rg.CUTOFF     # neither junction conducts
     if not checks:
         return regions, None
     # The quantity and limit slots of regions.QUANTITIES and LIMITS that the Ebers–Moll table reads.
