@@ -92,7 +92,25 @@ def _out_of_bounds(values: np.ndarray, minimum, maximum, minimum_inclusive, may_
     return not_finite, outside
 
 
+def _all_good(values: np.ndarray, minimum, maximum, minimum_inclusive, may_be_infinite) -> bool:
+    """Whether no value is bad in the sense of :func:`_out_of_bounds`, in two comparisons: NaN
+    fails both, and where infinity is not allowed the bounds are brought within the finite
+    numbers, so that an infinity fails one of them."""
+    if not may_be_infinite:
+        minimum = max(minimum, -_LARGEST) if minimum_inclusive else minimum
+        maximum = min(maximum, _LARGEST)
+    good = values >= minimum if minimum_inclusive else values > minimum
+    good &= values <= maximum
+    return bool(good.all())
+
+
+_LARGEST = float(np.finfo(float).max)
+
+
 def _raise_first_bad(values: np.ndarray, where: str, bounds: dict, samples: bool) -> None:
+    if values.size > 1 and _all_good(values, bounds["minimum"], bounds["maximum"], bounds["minimum_inclusive"],
+                                     bounds["may_be_infinite"]):
+        return
     not_finite, outside = _out_of_bounds(values, bounds["minimum"], bounds["maximum"],
                                          bounds["minimum_inclusive"], bounds["may_be_infinite"])
     bad = not_finite | outside
