@@ -38,7 +38,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 from ..devices import thermal_voltage
 from . import regions as rg
@@ -950,6 +950,17 @@ def residuals(layout, params, x) -> Residuals:
     -------
     Residuals
     """
+    if x.shape[0] > BLOCK:
+        # Blocks of BLOCK samples (views of the parameters): the same arithmetic, on working
+        # arrays that stay in cache.
+        parts = [_residuals(layout, take_samples(params, slice(at, at + BLOCK)), x[at:at + BLOCK])
+                 for at in range(0, x.shape[0], BLOCK)]
+        return Residuals(*(np.concatenate([getattr(p, f.name) for p in parts]) for f in fields(Residuals)))
+    return _residuals(layout, params, x)
+
+
+def _residuals(layout, params, x) -> Residuals:
+    """:func:`residuals` of one block of samples."""
     s_count = x.shape[0]
     n_full = layout.size + 1
     # Samples last, so that each element's term is a contiguous row.
