@@ -99,7 +99,8 @@ class Check:
     ----------
     name : str, or ndarray of str (S,) in a batch
         The condition, e.g. ``"V_CE >= V_CE(sat)"`` (``"V_EC >= V_EC(sat)"`` for a PNP). In a batch
-        it may differ between samples (their regions differ); ``""`` for a failed sample.
+        it may differ between samples (their regions differ); ``""`` for a failed sample. A name
+        every sample shares is a read-only broadcast view of one word.
     value : float, or ndarray (S,) in a batch
         The quantity tested, volts or amperes.
     limit : float, or ndarray (S,) in a batch
@@ -151,7 +152,8 @@ class TransistorResult:
     ----------
     name, polarity : str
     region : str, or ndarray of str (S,) in a batch
-        One of :data:`REGIONS`; ``"unsolved"`` for a failed batch sample.
+        One of :data:`REGIONS`; ``"unsolved"`` for a failed batch sample. A region every sample
+        shares is a read-only broadcast view of one word.
     ic, ib, ie : float, or ndarray (S,) in a batch
         Collector, base and emitter current, amperes; ``ie == ic + ib``.
     vbe, vce : float, or ndarray (S,) in a batch
