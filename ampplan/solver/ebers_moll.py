@@ -424,7 +424,7 @@ class NewtonProblem:
         g_passes, j_passes = _onto_plan(conductances, positions.size, offset=2 * n_q), _onto_plan(currents, nu)
         sorted_g = _sorted_onto(g_passes)
         if sorted_g is not None:
-            entries = entries[sorted_g[0]]
+            entries = entries[sorted_g[0]]      # kept in the order of the first pass's adds
         q_ibc = np.concatenate([lay.q_ib, lay.q_ic])    # rows of I_B, then I_C, in the unknowns
         x_all = np.ascontiguousarray(x.T)                   # (size + 1, S'), every sample
         vj_all = np.concatenate([v_old[0].T, v_old[1].T])   # (2N, S'): junction voltages last used
@@ -434,8 +434,8 @@ class NewtonProblem:
         # Every per-sample array of the active samples as rows of one array, so that dropping the
         # samples that are done is one gather: the iterate, the junction voltages last used, the
         # linear part (entries, right-hand side), and the constants of the device equations of
-        # device_currents, each formed as it forms them: n·V_T, 2·n·V_T and V_crit per junction,
-        # I_S/β_F and I_S/β_R (one per junction), I_S and -I_S (one per junction), I_S, 1/V_A.
+        # device_currents, each formed as it forms them: n·V_T, 2·n·V_T and V_crit (both
+        # junctions of a transistor share them), I_S/β_F and I_S/β_R, I_S, 1/V_A.
         parts = [("x", x_all), ("vj", vj_all), ("entries", entries), ("right", right),
                  ("nvt", nvt), ("two_nvt", 2.0 * nvt), ("v_crit", pick(self.v_crit).T),
                  ("ib_fr", np.concatenate([i_s / dev["beta"], i_s / dev["beta_reverse"]])),
