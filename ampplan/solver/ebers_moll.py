@@ -276,6 +276,22 @@ class NewtonProblem:
         s = lay.sign
         return s * (x[:, lay.q_b] - x[:, lay.q_e]), s * (x[:, lay.q_b] - x[:, lay.q_c])
 
+    def _companion_currents(self, new, j_b, j_c, d, dev, v_t):
+        """Write the companion model's I_B and I_C at ``new``'s junction voltages into ``new`` (dense
+        rows, samples first) and compare them with the device's own currents there.
+
+        Returns (fits: bool per sample, the device's I_B, I_C and derivatives at those voltages).
+        """
+        lay = self.layout
+        vbe_new, vbc_new = self.junctions(new)
+        lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
+        lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
+        new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
+        true_b, true_c, d_true = device_currents(vbe_new, vbc_new, dev, v_t)
+        fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
+                      & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE), axis=1)
+        return fits, true_b, true_c, d_true
+
     def newton(self, rows, x, v_old, ladder_conductance=0.0, scale=1.0, max_iterations=MAX_ITERATIONS):
         """Newton iterations on the samples ``rows`` (index array), from iterate ``x``.
 
@@ -349,20 +365,12 @@ class NewtonProblem:
             small = np.all(step <= RELATIVE_TOLERANCE * np.maximum(np.abs(u), np.abs(xa[:, :nu])) + abs_tol,
                            axis=1)
             iterations[active] += 1
-            # I_B and I_C from the companion model at the new voltages.
             new = xa.copy()
             new[:, :nu] = u
-            vbe_new, vbc_new = self.junctions(new)
-            lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
-            lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
-            new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
             # Converged when the step is negligible, or when the device's own currents at the new
             # voltages already match the linearised ones (which Kirchhoff's law holds exactly):
             # the second test spares the confirming iteration.
-            true_b, true_c, d_new = device_currents(vbe_new, vbc_new, d_act, vt_act)
-            fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
-                          & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE),
-                          axis=1)
+            fits, true_b, true_c, d_new = self._companion_currents(new, j_b, j_c, d, d_act, vt_act)
             done = ok & ((small & ~was_limited) | fits)
             x[active] = np.where(ok[:, None], new, xa)
             vbe_old[active], vbc_old[active] = vbe, vbc

@@ -40,9 +40,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .assembly import take_samples
-from .ebers_moll import (_MODEL_PARAMETERS, FIT_RELATIVE, FIT_TOLERANCE, RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE,
-                         NewtonProblem, _limit_junction, companion_terms, conduction_voltage, device_currents,
-                         residuals)
+from .ebers_moll import (_MODEL_PARAMETERS, RELATIVE_TOLERANCE, VOLTAGE_TOLERANCE, NewtonProblem, _limit_junction,
+                         companion_terms, conduction_voltage, device_currents, residuals)
 from .linear import solve_batch
 
 __all__ = ["EdgeProblem", "Edges", "EDGE_ITERATIONS"]
@@ -207,13 +206,7 @@ class EdgeProblem(NewtonProblem):
                          & (np.abs(d_new - d_old) <= RELATIVE_TOLERANCE * np.maximum(np.abs(d_new), np.abs(d_old))
                             + VOLTAGE_TOLERANCE))
                 iterations[active] += 1
-                vbe_new, vbc_new = self.junctions(new)
-                lin_b = j_b + d["b_be"] * vbe_new + d["b_bc"] * vbc_new
-                lin_c = j_c + d["c_be"] * vbe_new + d["c_bc"] * vbc_new
-                new[:, lay.q_ib], new[:, lay.q_ic] = lin_b, lin_c
-                true_b, true_c, _ = device_currents(vbe_new, vbc_new, d_act, vt_a)
-                fits = np.all((np.abs(true_b - lin_b) <= FIT_RELATIVE * np.abs(lin_b) + FIT_TOLERANCE)
-                              & (np.abs(true_c - lin_c) <= FIT_RELATIVE * np.abs(lin_c) + FIT_TOLERANCE), axis=1)
+                fits = self._companion_currents(new, j_b, j_c, d, d_act, vt_a)[0]
             done = ok & ((small & ~was_limited) | fits)
             x[active[ok]] = new[ok]
             delta[active[ok]] = d_new[ok]
