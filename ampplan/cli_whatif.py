@@ -126,10 +126,14 @@ def _sweep_values(plan, varies, grid: bool) -> dict:
         if not sep or not address or not text.strip():
             raise _BadInput(f"--vary {item!r}: expected ADDRESS=LO..HI[:N][log], e.g. s1.rc=1k..10k:20log")
         try:
+            plan.get(address)       # an unknown address, with the plan's did-you-mean
+        except AmpplanError as exc:
+            raise _BadInput(f"--vary {item}: {exc}") from None
+        try:
             check_address(plan, address, "--vary")   # the API's words for what a batch cannot vary
             unit = plan.unit(address)
         except AmpplanError as exc:
-            raise _BadInput(f"{exc}" if str(exc).startswith("--vary") else f"--vary {item}: {exc}") from None
+            raise _BadInput(str(exc)) from None
         lo, hi, n, log = parse_range(text, unit, f"--vary {address}")
         n = DEFAULT_POINTS if n is None else n
         values[address] = np.geomspace(lo, hi, n) if log else np.linspace(lo, hi, n)
@@ -248,9 +252,8 @@ def _tolerance(args, out, err) -> int:
         return status
     lines = [f"ampplan tolerance: {label} ({result.model} model, {result.samples} samples, {result.distribution}, "
              f"seed {result.seed})", "varied"]
-    units = {address: entry.unit for address, entry in plan.compile().addresses.items()}
-    lines += [f"  {s.address}: {format_quantity(s.low, units.get(s.address, ''))} … "
-              f"{format_quantity(s.high, units.get(s.address, ''))}" for s in result.spreads] or ["  nothing"]
+    lines += [f"  {s.address}: {format_quantity(s.low, plan.unit(s.address))} … "
+              f"{format_quantity(s.high, plan.unit(s.address))}" for s in result.spreads] or ["  nothing"]
     handles = (f" and handle {format_quantity(result.required_amplitude, 'V')}" if result.required_amplitude
                else "")
     lines += ["", f"yield {100 * result.yield_fraction:.2f} % ({int(result.passed.sum())} of {result.samples} pass "

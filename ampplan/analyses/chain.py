@@ -217,7 +217,8 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
         r_out = not_applicable(node(v_out, nodes.output))
         q = circuit.element(nodes.transistor)
         dvce_ac = s * (node(v_ac, q.collector) - node(v_ac, q.emitter))
-        dvce_dc = s * (node(v_dc, q.collector) - node(v_dc, q.emitter)) if v_dc is not None else np.full(s_count, np.nan)
+        dvce_dc = (s * (node(v_dc, q.collector) - node(v_dc, q.emitter)) if v_dc is not None
+                   else np.full(s_count, np.nan))
         q_vce, q_ic = s * vce[:, j], ic[:, j]
         edge = edges[:, j]
         # A saturated constant-drop transistor sits exactly on the edge; keep rounding out of the margin

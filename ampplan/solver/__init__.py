@@ -427,7 +427,8 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
     currents = dict(zip((r.name for r in layout.resistors), r_i))
     currents.update(zip((src.name for src in layout.voltage_sources), vs_i))
     currents.update(zip((src.name for src in layout.current_sources), cols(params.current)))
-    per_q = zip(layout.bjts, [_words(_REGION_WORDS, codes[:, j]) for j in range(layout.n_bjt)], ic, ib, ib + ic, vbe, vce, forced,
+    region = [_words(_REGION_WORDS, codes[:, j]) for j in range(layout.n_bjt)]
+    per_q = zip(layout.bjts, region, ic, ib, ib + ic, vbe, vce, forced,
                 power, cols(names), cols(values), cols(limits), cols(holds), cols(margins))
     transistors = {}
     for q, reg, c_, b_, e_, be_, ce_, f_, p_, nm, va, li, ho, ma in per_q:

@@ -111,6 +111,9 @@ class Layout:
         self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
         #: Per transistor, the unknowns its device rows touch: V_B, V_C, V_E, I_B, I_C (N, 5).
         self.ports = np.stack([self.q_b, self.q_c, self.q_e, self.q_ib, self.q_ic], axis=1)
+        #: The same with each transistor's sign, as plain lists (sign, [b, c, e, ib, ic]), for the
+        #: plain-float checks of single solves.
+        self.port_lists = list(zip(self.sign.tolist(), self.ports.tolist()))
         self.structure = self._structure()
         self._pattern_cache: dict = {}
         self._parameter_cache: dict = {}

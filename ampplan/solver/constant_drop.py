@@ -461,11 +461,8 @@ class RegionProblem:
         vbe_on, vbc_on, edge = self.vbe_on[k].tolist(), self.vbc_on[k].tolist(), self.edge[k].tolist()
         vce_sat, beta = dev["vce_sat"][k].tolist(), dev["beta"][k].tolist()
         rows = self.table.rows
-        ports = getattr(lay, "_port_lists", None)
-        if ports is None:
-            ports = lay._port_lists = list(zip(lay.sign.tolist(), lay.ports.tolist()))
         names, values, limits, margins, holds = [], [], [], [], []
-        for j, (s, (b, c, e, ib, ic)) in enumerate(ports):
+        for j, (s, (b, c, e, ib, ic)) in enumerate(lay.port_lists):
             # The quantity and limit slots of regions.QUANTITIES and LIMITS, as checks() fills them.
             v_be = s * (x[b] - x[e])
             v_bc = s * (x[b] - x[c])

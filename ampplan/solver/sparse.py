@@ -466,12 +466,9 @@ class Elimination:
         if take is not None and check_residual:
             values = values[take]
         multipliers = self._multipliers if schedule is None else schedule.multipliers
-        with np.errstate(all="ignore"):
-            x = self.substitute(factors, rhs, schedule, out)
-            computed = x if schedule is None or schedule.computed is None else x[schedule.computed]
-            ok = np.all(np.isfinite(computed), axis=0)
-            if multipliers.size:
-                ok &= np.all(np.abs(factors[multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+        x = self.substitute(factors, rhs, schedule, out)
+        computed = x if schedule is None or schedule.computed is None else x[schedule.computed]
+        ok = self._usable(factors, multipliers, (computed,))
         if check_residual:
             with np.errstate(all="ignore"):
                 # The residual test of linear.solve_batch, so that both call the same samples singular.
@@ -483,6 +480,17 @@ class Elimination:
                 ok &= residual <= RESIDUAL * scale + 1e-300
         x[:, ~ok] = np.nan
         return x, ok
+
+    @staticmethod
+    def _usable(factors: np.ndarray, multipliers: np.ndarray, xs) -> np.ndarray:
+        """Bool (S,): every x of ``xs`` finite and every multiplier used within 1/RUN_THRESHOLD."""
+        with np.errstate(all="ignore"):
+            ok = np.ones(factors.shape[1], dtype=bool)
+            for x in xs:
+                ok &= np.all(np.isfinite(x), axis=0)
+            if multipliers.size:
+                ok &= np.all(np.abs(factors[multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+        return ok
 
     def solve_several(self, values: np.ndarray, rhs: tuple) -> tuple[tuple, np.ndarray]:
         """Solve A·x = b for several right-hand sides b of every sample, factorising once.
@@ -503,12 +511,7 @@ class Elimination:
             return tuple(np.full(b.shape, np.nan) for b in rhs), np.zeros(s_count, dtype=bool)
         factors = self.factor(values)
         xs = tuple(self.substitute(factors, b) for b in rhs)
-        with np.errstate(all="ignore"):
-            ok = np.ones(s_count, dtype=bool)
-            for x in xs:
-                ok &= np.all(np.isfinite(x), axis=0)
-            if self._multipliers.size:
-                ok &= np.all(np.abs(factors[self._multipliers]) <= 1.0 / RUN_THRESHOLD, axis=0)
+        ok = self._usable(factors, self._multipliers, xs)
         for x in xs:
             x[:, ~ok] = np.nan
         return xs, ok

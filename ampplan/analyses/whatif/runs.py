@@ -583,10 +583,11 @@ def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5,
                          required_amplitude=None if required_amplitude is None else float(required_amplitude))
     frozen = plan.copy()
     pool = None
-    if executor is None and worker_count(samples, chunk_size, workers) > 1:
+    processes = 1 if executor is not None else worker_count(samples, chunk_size, workers)
+    if processes > 1:
         # Plan the solves here first (a few samples), so that every forked worker inherits them.
         run_chunk(frozen, spec, 0, 1)
-        pool = executor = process_pool(worker_count(samples, chunk_size, workers))
+        pool = executor = process_pool(processes)
     try:
         parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress)
     except BaseException:
