@@ -143,3 +143,27 @@ def test_bad_model_and_bad_reads():
     for bad in (2, -3, 1.0, True):
         with pytest.raises(InvalidValueError, match=r"PlanSweep: sample index must be an integer from 0 to 1"):
             sweep.sample(bad)
+
+
+def test_sweep_longer_than_one_solver_block_equals_single_solves():
+    # 5,000 samples is more than the constant-drop solver takes in one block for the demo's circuit
+    # (a block is sized to memory), and s1.rb2 from 1 Ω to 1 GΩ drives s1 and s2 through cutoff and
+    # saturation, so some samples need the region search's enumeration step. Source: the definition
+    # in issue 8 (every sample equals its single solve), a sample of them solved one by one.
+    plan = demo_plan()
+    values = {"s1.rb2": np.geomspace(1.0, 1e9, 5000)}
+    sweep = plan.sweep(values)
+    assert sweep.ok.all()
+    regions = sweep["s1.region"]
+    changes = np.flatnonzero(regions[1:] != regions[:-1])
+    picked = np.unique(np.concatenate([np.arange(0, 5000, 499), changes, changes + 1, [4999]]))
+    subset = {"s1.rb2": values["s1.rb2"][picked]}
+    table, _, _ = single_solves(plan, subset, "constant-drop", result_addresses(plan.stage_ids))
+    for address, expected in table.items():
+        column = sweep[address][picked]
+        if address.endswith(("region", "limiting_stage", "status")):
+            assert column.tolist() == ["" if v is None else str(v) for v in expected], address
+        else:
+            np.testing.assert_allclose(column, np.array(expected, dtype=float), rtol=1e-9, atol=1e-15,
+                                       equal_nan=True, err_msg=address)
+    assert {"cutoff", "saturation", "forward-active"} <= set(regions)

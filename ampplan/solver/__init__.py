@@ -268,8 +268,8 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
         if len(stale):
             result.x[stale], result.ok[stale] = problem.solve(stale, result.regions[stale])
             iterations += stale.size
-            for whole, part in zip(result.checks, problem.checks(stale, result.regions[stale], result.x[stale])):
-                whole[stale] = part
+            for kept, fresh in zip(result.checks, problem.checks(stale, result.regions[stale], result.x[stale])):
+                kept[stale] = fresh
         part = (result.x, result.regions, result.found & result.ok, *result.checks)
         if len(blocks) > 1:
             for array, values in zip(whole, part):
