@@ -311,3 +311,65 @@ def test_corner_subset_finds_the_monotonic_worst_case():
 def test_bad_corner_options(options, message):
     with pytest.raises(InvalidValueError, match=message):
         fixed_bias_plan().corners(**options)
+
+
+# -- extremes of the spreads -----------------------------------------------------------------------
+
+def test_a_margin_constant_but_for_rounding_has_no_drivers():
+    # With R_B2 = 1 Ω, s1's base sits at 12 V·1/(100 k + 1) ≈ 0.12 mV, far below V_BE(on): s1 is cut
+    # off, so s2 (PNP, its base pulled to the supply through s1's R_C) and s3 (its base pulled to
+    # ground through s2's R_C) are cut off too. By hand (cutoff: no current, Sedra & Smith, the BJT
+    # chapter, from memory) s1's V_CE is the supply, 12 V, and its saturation margin 12 − 0.2 V in
+    # every sample, whatever the resistors: a rank correlation of its rounding noise is no driver.
+    plan = demo_plan()
+    plan.set("s1.rb2", 1.0)
+    result = plan.tolerance(samples=100, seed=4, **{**ONLY, "resistors": 0.05})
+    margin = result.sweep["s1.saturation_margin"]
+    assert set(result.sweep["s1.region"]) == set(result.sweep["s2.region"]) == {"cutoff"}
+    np.testing.assert_allclose(margin, 12.0 - 0.2, rtol=1e-12)
+    assert result.sensitivity["s1.saturation_margin"] == ()
+    assert result.sensitivity["s2.saturation_margin"] == ()
+    assert "s1.saturation_margin driven by" not in repr(result)
+
+
+def test_a_run_where_no_sample_solves():
+    # The collector current source asks 5 mA of a transistor whose β·I_B is at most
+    # 225 · (10 − 0.69) V / 0.95 MΩ ≈ 2.2 mA (β 100 · 2 · (1 + 0.005·25) at 50 °C, R_B − 5 %): no
+    # operating point in any sample (I_C cannot exceed β·I_B; Sedra & Smith, from memory).
+    from test_whatif_sweep import forced_collector_plan
+    plan = forced_collector_plan()
+    plan.set("s1.IX", 5e-3)
+    result = plan.tolerance(samples=20, seed=1)
+    assert not result.sweep.ok.any() and result.yield_fraction == 0.0
+    assert all(pairs == () for pairs in result.sensitivity.values())
+    assert all(math.isnan(v) for p in result.percentiles.values() for v in p.values())
+    assert [w.limiting for w in result.worst(3)] == ["status"] * 3
+    json.dumps(result.to_dict(samples=True), allow_nan=False)
+
+
+@pytest.mark.parametrize("options, message", [
+    # A normal draw is clipped at ±6σ = ±2 half-ranges: 47.5 ± 2·102.5 °C leaves the models' range.
+    ({"temperature": (-55.0, 150.0), "distribution": "normal"},
+     r"tolerance temperature: a normal draw reaches -157.5 … 252.5 °C .*-55 °C and <= 150 °C"),
+    # The β temperature factor 1 + 0.02·(T − 25) is negative below −25 °C, which a normal draw over
+    # 0 … 50 °C reaches (25 ± 50 °C).
+    ({"temperature": (0.0, 50.0), "distribution": "normal", "beta_temperature_coefficient": 0.02},
+     r"tolerance temperature -25 °C: the β temperature factor"),
+    # V_BE(on) 0.7 V ± 0.35 V · 2 (normal) goes below 0.
+    ({"vbe_on": 0.35, "distribution": "normal"}, r"tolerance vbe_on: s1.device.vbe_on reaches 0 V .*must be > 0"),
+])
+def test_spreads_that_leave_the_valid_range_are_refused_before_solving(options, message):
+    with pytest.raises(InvalidValueError, match=message):
+        fixed_bias_plan().tolerance(samples=5, **{**ONLY, **options})
+
+
+def test_a_spread_past_a_declared_bound_is_refused_for_runs_and_corners():
+    plan = fixed_bias_plan()
+    plan.set("s1.device.vbe_on", 0.3)
+    with pytest.raises(InvalidValueError, match=r"tolerance vbe_on: s1.device.vbe_on reaches -100 mV"):
+        plan.tolerance(samples=5, **{**ONLY, "vbe_on": 0.4})
+    with pytest.raises(InvalidValueError, match=r"tolerance vbe_on: s1.device.vbe_on reaches -100 mV"):
+        plan.corners(**{**ONLY, "vbe_on": 0.4})
+    plan.set("s1.rb1", 1e12)  # the largest resistance a plan takes (1 TΩ)
+    with pytest.raises(InvalidValueError, match=r"tolerance resistors: s1.rb1 reaches 1.05 TΩ"):
+        plan.tolerance(samples=5, **{**ONLY, "resistors": 0.05})

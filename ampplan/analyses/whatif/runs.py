@@ -22,7 +22,10 @@ as they are):
 
 x is uniform on [−1, 1] (``distribution="uniform"``) or z/3 with z standard normal
 (``"normal"``: the tolerance is 3σ; z is clipped at ±6, one draw in 500 million, so resistances
-stay positive).
+stay positive). A normal draw thus reaches two tolerances either side of the nominal value; every
+value a draw can reach (the ends of each range, twice as far for ``"normal"``) is checked against
+the plan's own bounds before anything is solved, so a run never fails half-way on a value the
+plan refuses.
 
 **Seeding.** Sample k is drawn from block k // 8192, and block b draws from
 ``SeedSequence(seed).spawn(...)[b]``, independently of every other block. The samples are a
@@ -54,8 +57,9 @@ import numpy as np
 from scipy import stats
 
 from ...devices import REFERENCE_TEMPERATURE, thermal_voltage
-from ...errors import InvalidValueError, UnknownModelError
-from .sweeps import PlanSweep, check_model, passed_rule, solve_table
+from ...errors import AmpplanError, InvalidValueError, UnknownModelError
+from ...units import format_quantity
+from .sweeps import RESOLUTION, PlanSweep, check_model, passed_rule, solve_table
 from .tables import TableBuilder
 
 __all__ = ["Distribution", "DISTRIBUTIONS", "Spread", "ToleranceSpec", "ToleranceResult", "ToleranceSample",
@@ -79,6 +83,10 @@ PERCENTILES = (1, 5, 50, 95, 99)
 PARALLEL_SAMPLES = 4 * CHUNK
 #: β rises with temperature by this fraction per °C (common practice, from memory, no source).
 BETA_TEMPERATURE_COEFFICIENT = 0.005
+#: A normal draw z is clipped at ±this many σ (x = z/3 reaches ±2 tolerances).
+NORMAL_CLIP = 6.0
+#: The largest |x| a draw reaches, per distribution.
+REACH = {"uniform": 1.0, "normal": NORMAL_CLIP / 3.0}
 
 
 @dataclass(frozen=True)
@@ -156,37 +164,61 @@ def spreads_of(plan, model: str, resistors=0.05, beta=(0.5, 2.0), vbe_on=0.01, t
             or not math.isfinite(beta_temperature_coefficient)):
         raise InvalidValueError(f"tolerance beta_temperature_coefficient: must be a finite number per °C, got "
                                 f"{beta_temperature_coefficient!r}")
+    reach = REACH[distribution]
+    normal = " (a normal draw, clipped at ±6σ, reaches twice the tolerance)" if distribution == "normal" else ""
     if temperatures is not None:
-        for end in temperatures:
+        lo, hi = temperatures
+        centre, half = (lo + hi) / 2, (hi - lo) / 2
+        ends = temperatures if distribution == "uniform" else (centre - reach * half, centre + reach * half)
+        for end in ends:
             if 1.0 + beta_temperature_coefficient * (end - REFERENCE_TEMPERATURE) <= 0:
                 raise InvalidValueError(f"tolerance temperature {end:g} °C: the β temperature factor "
-                                        f"1 + {beta_temperature_coefficient:g}·(T − 25) is not positive there")
+                                        f"1 + {beta_temperature_coefficient:g}·(T − 25) is not positive there"
+                                        + (f"; a normal draw over {lo:g} … {hi:g} °C reaches {ends[0]:g} … "
+                                           f"{ends[1]:g} °C (±6σ)" if distribution == "normal" else ""))
             trial = plan.copy()
             try:
                 trial.set("temperature", end)
             except InvalidValueError as exc:
-                raise InvalidValueError(f"tolerance temperature: {exc}") from None
-    spreads = []
+                reached = (f"a normal draw reaches {ends[0]:g} … {ends[1]:g} °C (the range is ±3σ, draws are "
+                           "clipped at ±6σ): " if distribution == "normal" else "")
+                raise InvalidValueError(f"tolerance temperature: {reached}{exc}") from None
+    spreads = []     # (option, Spread): the option names the culprit when a reached value is refused
     for sid in plan.stage_ids:
         stage = plan.stage(sid)
         if t > 0:
             for name, value in stage.parameters().items():
                 address = f"{sid}.{name}"
                 if value is not None and plan.unit(address) == "Ω":
-                    spreads.append(Spread(address, "relative", float(value), 0.0, t))
+                    spreads.append(("resistors", Spread(address, "relative", float(value), 0.0, t)))
         if beta_range is not None and beta_range != (1.0, 1.0):
             lo, hi = math.log(beta_range[0]), math.log(beta_range[1])
-            spreads.append(Spread(f"{sid}.device.beta", "log", float(stage.device.beta), (lo + hi) / 2, (hi - lo) / 2))
+            spreads.append(("beta", Spread(f"{sid}.device.beta", "log", float(stage.device.beta), (lo + hi) / 2,
+                                           (hi - lo) / 2)))
         elif temperatures is not None and beta_temperature_coefficient != 0:
-            spreads.append(Spread(f"{sid}.device.beta", "log", float(stage.device.beta), 0.0, 0.0))
+            spreads.append(("beta", Spread(f"{sid}.device.beta", "log", float(stage.device.beta), 0.0, 0.0)))
         if dv > 0:
             if model == "ebers-moll":
                 n = stage.device.emission_coefficient
-                spreads.append(Spread(f"{sid}.device.saturation_current", "log",
-                                      float(stage.device.saturation_current), 0.0,
-                                      dv / (n * thermal_voltage(REFERENCE_TEMPERATURE))))
+                spreads.append(("vbe_on", Spread(f"{sid}.device.saturation_current", "log",
+                                                 float(stage.device.saturation_current), 0.0,
+                                                 dv / (n * thermal_voltage(REFERENCE_TEMPERATURE)))))
             else:
-                spreads.append(Spread(f"{sid}.device.vbe_on", "absolute", float(stage.device.vbe_on), 0.0, dv))
+                spreads.append(("vbe_on", Spread(f"{sid}.device.vbe_on", "absolute", float(stage.device.vbe_on),
+                                                 0.0, dv)))
+    # Every value a draw can reach must be one the plan takes (β's temperature factor is checked
+    # above, and the temperature itself).
+    trial = plan.copy()
+    for option, spread in spreads:
+        for x in (-reach, reach):
+            value = float(spread.apply(np.array(x)))
+            try:
+                trial.set(spread.address, value)
+            except AmpplanError as exc:
+                raise InvalidValueError(f"tolerance {option}: {spread.address} reaches "
+                                        f"{format_quantity(value, plan.unit(spread.address))}{normal}: {exc}") from None
+        trial.set(spread.address, spread.nominal)
+    spreads = [spread for _, spread in spreads]
     if temperatures is not None:
         lo, hi = temperatures
         spreads.append(Spread("temperature", "absolute", 0.0, (lo + hi) / 2, (hi - lo) / 2))
@@ -202,7 +234,7 @@ def draw(spec: ToleranceSpec, start: int, stop: int) -> dict:
     for child in children:
         rng = np.random.default_rng(child)
         if spec.distribution == "normal":
-            blocks.append(np.clip(rng.standard_normal((BLOCK, p)), -6.0, 6.0) / 3.0)
+            blocks.append(np.clip(rng.standard_normal((BLOCK, p)), -NORMAL_CLIP, NORMAL_CLIP) / 3.0)
         else:
             blocks.append(rng.random((BLOCK, p)) * 2.0 - 1.0)
     return values_at(spec, np.concatenate(blocks)[start - first * BLOCK: stop - first * BLOCK])
@@ -434,17 +466,22 @@ class ToleranceResult:
 
         Spearman's rank correlation of each varied value with each margin, over the samples that
         solved: the Pearson correlation of their ranks (``scipy.stats.rankdata``, ties averaged).
-        A value or margin that does not vary is left out.
+        A value that does not vary is left out, and so is a margin that does not vary beyond the
+        model's resolution (:data:`.sweeps.RESOLUTION` of its largest magnitude): the ranks of
+        rounding noise would be a correlation with nothing.
         """
         ok = self.sweep.ok
-        varied = {a: v[ok] for a, v in self.parameters.items() if np.ptp(v) > 0}
+        if ok.sum() < 3:
+            return {address: () for address in self.margin_addresses}
+        varied = {a: v[ok] for a, v in self.parameters.items() if np.ptp(v[ok]) > 0}
         ranks = {a: _centred(stats.rankdata(v)) for a, v in varied.items()}
         by_subset = {}    # the values' ranks over the samples where a margin is finite, by those samples
         out = {}
         for address in self.margin_addresses:
             margin = np.asarray(self.sweep[address], dtype=float)[ok]
             finite = np.isfinite(margin)
-            if finite.sum() < 3 or np.ptp(margin[finite]) == 0:
+            if (finite.sum() < 3
+                    or np.ptp(margin[finite]) <= RESOLUTION[self.model] * np.max(np.abs(margin[finite]))):
                 out[address] = ()
                 continue
             if finite.all():
