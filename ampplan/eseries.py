@@ -42,6 +42,10 @@ _E192 = (
     681, 690, 698, 706, 715, 723, 732, 741, 750, 759, 768, 777, 787, 796, 806, 816, 825, 835, 845, 856,
     866, 876, 887, 898, 909, 920, 931, 942, 953, 965, 976, 988)
 
+#: Values the look-ups take: a float holds a decade and both its neighbours (IEEE 754 doubles are
+#: normal from 2.2e-308 to 1.8e308) only well inside that range; any real part sits far inside it.
+VALUE_RANGE = (1e-300, 1e300)
+
 #: Integer mantissas and the power of ten that makes them 1 ≤ m < 10, per series.
 _TABLES: dict[str, tuple[tuple[int, ...], int]] = {
     "E6": (_E24[::4], 1), "E12": (_E24[::2], 1), "E24": (_E24, 1),
@@ -88,6 +92,9 @@ def _value(value, what: str = "value") -> float:
     number = float(value)
     if not (math.isfinite(number) and number > 0):
         raise InvalidValueError(f"E-series {what} must be a positive, finite number, got {value!r}")
+    if not VALUE_RANGE[0] <= number <= VALUE_RANGE[1]:
+        raise InvalidValueError(f"E-series {what} must be from {VALUE_RANGE[0]:g} to {VALUE_RANGE[1]:g}, got "
+                                f"{value!r}")
     return number
 
 

@@ -132,3 +132,22 @@ def test_bad_range_is_refused():
         eseries.series_values("E6", 10.0, 1.0)
     with pytest.raises(InvalidValueError, match="E-series upper bound must be a positive"):
         eseries.series_values("E6", 1.0, -1.0)
+
+
+@pytest.mark.parametrize("bad", [5e-324, 1e-310, 1.7976931348623157e308, 1e307])
+def test_values_beyond_the_float_decades_are_refused(bad):
+    # IEC 60063 values exist in every decade, but a float holds a decade and its neighbours only
+    # between about 1e-307 and 1e307 (IEEE 754 double: normal numbers from 2.2e-308 to 1.8e308):
+    # 5e-324 is not "the E24 value 5e-324", and near 1.8e308 the next decade overflows.
+    with pytest.raises(InvalidValueError, match=r"E-series value must be .*1e-300 .*1e\+300, got"):
+        eseries.nearest(bad, "E24")
+    with pytest.raises(InvalidValueError, match=r"E-series value must be .*1e-300 .*1e\+300"):
+        eseries.neighbours(bad, "E192")
+    with pytest.raises(InvalidValueError, match=r"E-series (lower|upper) bound must be"):
+        eseries.series_values("E6", bad, bad)
+
+
+def test_the_ends_of_the_float_decades():
+    # 1.0·10^-300 and 1.0·10^300 are E6 values (IEC 60063: the 1.0 mantissa in every decade).
+    assert eseries.neighbours(1e-300, "E6") == (1e-300, 1e-300)
+    assert eseries.nearest(9.9e299, "E6") == 1e300 and eseries.nearest(1.1e-300, "E6") == 1e-300
