@@ -156,3 +156,19 @@ def test_negative_values_need_bounds_and_have_no_series():
         plan.design("negative_supply", ("s1.vce", 6.0))
     with pytest.raises(InvalidValueError, match=r"the exact value .* is not positive, so it has no E24 neighbour"):
         plan.design("negative_supply", ("s1.vce", 7.0), bounds=(-6.0, -0.5), series="E24")
+
+
+@pytest.mark.parametrize("side", ["low", "high"])
+def test_a_target_reached_exactly_at_a_bound(side):
+    # R_C = (V_CC − 5 V)/I_C puts V_CE at 5 V (fixed bias by hand, Sedra & Smith, the BJT chapter,
+    # from memory). With that value as one end of the bounds, the end itself is the answer, whatever
+    # the last bit of rounding on the residual there.
+    plan = fixed_bias_plan(rb=2.2e6)
+    rc = (VCC - 5.0) / (BETA * (VCC - VBE) / 2.2e6)
+    bounds = (rc, 1e5) if side == "low" else (1e3, rc)
+    result = plan.design("s1.rc", ("s1.vce", 5.0), bounds=bounds)
+    assert result.roots == (result.exact,)
+    assert result.exact == pytest.approx(rc, rel=1e-12)
+    assert result.achieved == pytest.approx(5.0, rel=1e-9)
+    narrow = plan.design("s1.rc", ("s1.vce", 5.0), bounds=(rc, rc * (1 + 1e-7)))
+    assert narrow.roots == (narrow.exact,) and narrow.exact == pytest.approx(rc, rel=1e-12)

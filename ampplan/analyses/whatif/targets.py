@@ -8,7 +8,9 @@ outside forward-active both swings are zero, which is a difference of zero but n
 Method: one batched solve over a grid of the bounds (logarithmic when they span a factor of four
 or more, else linear) brackets every sign change of ``result − target``; each bracket is then
 refined by :func:`scipy.optimize.brentq`, each evaluation one sample of the batched solver. A sign
-change across a jump (a change of region, a failed sample) is no root and is left out. With an
+change across a jump (a change of region, a failed sample) is no root and is left out. An end of
+the bounds whose residual is zero to the model's resolution (:data:`.sweeps.RESOLUTION`) is a
+root, unless one was found between it and the next grid point. With an
 E-series, both standard neighbours of the exact value are re-solved and the one that lands closer
 to the target is kept. The plan passed in is never changed.
 """
@@ -26,7 +28,7 @@ from scipy import optimize
 from ... import eseries
 from ...errors import AmpplanError, InvalidValueError, TargetNotReachedError
 from ..addresses import WORD_RESULTS, check_result_address
-from .sweeps import check_address, check_model, solve_table
+from .sweeps import RESOLUTION, check_address, check_model, solve_table
 
 __all__ = ["DesignResult", "design", "SYMMETRIC_SWING"]
 
@@ -242,13 +244,14 @@ def design(plan, address: str, target, series=None, bounds=None, model: str = "c
         t = solve_table(frozen, model, {address: np.array([x])}, addresses=columns)
         return float(residual(t)[0])
 
-    roots = []
+    roots, bracketed = [], set()    # bracketed: the grid intervals a root was found in
     for k in range(POINTS - 1):
         a, b, fa, fb = grid[k], grid[k + 1], f[k], f[k + 1]
         if not (finite[k] and finite[k + 1]):
             continue
         if fa == 0:
             roots.append(float(a))
+            bracketed.add(k)
             continue
         if fa * fb < 0:
             ga, gb = g(a), g(b)
@@ -257,7 +260,13 @@ def design(plan, address: str, target, series=None, bounds=None, model: str = "c
             root = optimize.brentq(g, a, b, xtol=1e-15 * max(abs(a), abs(b)), rtol=4 * np.finfo(float).eps)
             if abs(g(root)) <= tolerance:  # else a jump across a change of region, not a root
                 roots.append(float(root))
-    if finite[-1] and f[-1] == 0:
+                bracketed.add(k)
+    # An end of the bounds that reaches the target to the model's resolution, with rounding on the
+    # wrong side of zero (no sign change to bracket), is a root too.
+    at_bound = RESOLUTION[model] * max(abs(value), scale, 1e-300)
+    if finite[0] and f[0] != 0 and abs(f[0]) <= at_bound and 0 not in bracketed:
+        roots.append(float(grid[0]))
+    if finite[-1] and (f[-1] == 0 or (abs(f[-1]) <= at_bound and POINTS - 2 not in bracketed)):
         roots.append(float(grid[-1]))
     if not roots:
         span = (f"{label} − target spans {np.min(f[finite]):.4g} … {np.max(f[finite]):.4g}" if finite.any()
