@@ -251,7 +251,8 @@ class CompiledPlan:
         Returns
         -------
         circuit_batch : dict of str -> ndarray
-            Batch keys of :func:`ampplan.solver.solve`.
+            Batch keys of :func:`ampplan.solver.solve`. When only analysis values vary, it holds
+            the plan's temperature once per sample, so the solve still gives S samples.
         plan_values : dict of str -> ndarray
             ``"min_headroom"`` / ``"resistor_power_rating"`` when varied.
 
@@ -283,6 +284,11 @@ class CompiledPlan:
         empty = [k for k, n in sizes.items() if n == 0]
         if empty:
             raise InvalidValueError(f"batch arrays are empty: {', '.join(empty)}")
+        if sizes and not any(np.ndim(v) for v in circuit_batch.values()):
+            # Only values the analyses read vary: the circuit is the same in every sample, but the
+            # solve must still give one sample per value, so it gets its one temperature S times.
+            size = next(iter(sizes.values()))
+            circuit_batch["temperature"] = np.full(size, float(circuit_batch.get("temperature", self.temperature)))
         return circuit_batch, plan_values
 
     def _not_batchable(self, address):

@@ -167,3 +167,20 @@ def test_sweep_longer_than_one_solver_block_equals_single_solves():
             np.testing.assert_allclose(column, np.array(expected, dtype=float), rtol=1e-9, atol=1e-15,
                                        equal_nan=True, err_msg=address)
     assert {"cutoff", "saturation", "forward-active"} <= set(regions)
+
+
+@pytest.mark.parametrize("address, values", [("min_headroom", [0.5, 3.0, 3.5, 6.0]),
+                                             ("resistor_power_rating", [1e-3, 0.01, 0.25])])
+def test_sweep_of_a_value_only_the_analyses_read_equals_single_solves(address, values):
+    # min_headroom and resistor_power_rating change no element of the circuit, only which cautions
+    # fire; the sweep still has one sample per value. Source: issue 8's definition, each sample
+    # solved on its own with plan.solve(), and the check rule of ampplan check.
+    plan = demo_plan()
+    batch = {address: np.array(values)}
+    sweep = plan.sweep(batch)
+    assert len(sweep) == len(values)
+    table, cautions, results = single_solves(plan, batch, "constant-drop", result_addresses(plan.stage_ids))
+    assert_matches(sweep, table, rtol=1e-9, atol=1e-15)
+    assert sweep.caution_fired.tolist() == [bool(c) for c in cautions]
+    assert sweep.passed().tolist() == [check_rule(r) for r in results]
+    assert len(set(sweep.passed().tolist())) == 2  # the value decides the verdict along the sweep
