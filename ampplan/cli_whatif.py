@@ -56,6 +56,9 @@ _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+?)(?::(?P<n>[^:]+?))?(?P<log>log)
 def parse_range(text: str, unit: str = "", what: str = "range") -> tuple:
     """``"1k..10k:20log"`` -> (1000.0, 10000.0, 20, True); N and ``log`` are optional (N None)."""
     match = _RANGE.match(text.strip())
+    if "..." in text:
+        # "1k...10k" would read as 1k .. .10k (100 Ω): refused rather than guessed.
+        raise _BadInput(f"{what} {text!r}: write LO..HI with two dots, e.g. 1k..10k")
     if not match:
         raise _BadInput(f"{what} {text!r}: expected LO..HI[:N][log], e.g. 1k..10k:20log")
     try:
@@ -134,8 +137,12 @@ def _sweep_values(plan, varies, grid: bool) -> dict:
             unit = plan.unit(address)
         except AmpplanError as exc:
             raise _BadInput(str(exc)) from None
+        if address in values:
+            raise _BadInput(f"--vary {address}: given twice; give each address one range")
         lo, hi, n, log = parse_range(text, unit, f"--vary {address}")
         n = DEFAULT_POINTS if n is None else n
+        if n > MAX_SWEEP_SAMPLES:    # before an array of that size is made
+            raise _BadInput(f"--vary {address}: {n} points, more than {MAX_SWEEP_SAMPLES} samples")
         values[address] = np.geomspace(lo, hi, n) if log else np.linspace(lo, hi, n)
     if not values:
         raise _BadInput("give at least one --vary ADDRESS=LO..HI[:N][log]")

@@ -66,6 +66,12 @@ def test_sweep_json_and_csv_agree_with_the_api(capsys):
     (["--vary", "s1.rc"], r"--vary 's1.rc': expected ADDRESS=LO..HI"),
     (["--vary", "s1.rc=1k..10k", "--show", "s1.vc"], r"--show s1.vc: .*did you mean 'vce'"),
     ([], r"give at least one --vary"),
+    # Three dots would read as 1 kΩ .. .10 kΩ (100 Ω): ambiguous, refused.
+    (["--vary", "s1.rc=1k...10k"], r"--vary s1.rc '1k...10k': .*two dots"),
+    (["--vary", "s1.rc=1k..10k:3", "--vary", "s1.rc=2k..3k:3"], r"--vary s1.rc: given twice"),
+    # Refused before any array of that size is made.
+    (["--vary", "s1.rc=1k..10k:99999999999999999999999"], r"--vary s1.rc: .*more than 10000000 samples"),
+    (["--vary", "s1.rc=1k..10k:20000000"], r"--vary s1.rc: .*more than 10000000 samples"),
 ])
 def test_sweep_bad_input_exits_2(capsys, argv, message):
     import re
