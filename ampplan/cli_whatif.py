@@ -209,14 +209,17 @@ def _sweep(args, out, err) -> int:
 # tolerance
 # ------------------------------------------------------------------------------------------------
 
-def _fraction(text, what):
+def _fraction(text, what, unit=""):
+    """A tolerance: a fraction (5% or 0.05), or with ``unit`` a quantity in it (10m, 10mV)."""
     if text is None or text.strip().lower() in ("none", "0", "0%"):
         return None
     t = text.strip()
     try:
+        if unit:
+            return parse_quantity(t, unit)
         return parse_quantity(t[:-1]) / 100.0 if t.endswith("%") else parse_quantity(t)
     except AmpplanError as exc:
-        raise _BadInput(f"{what} {text!r}: {exc} (write 5% or 0.05)") from None
+        raise _BadInput(f"{what} {text!r}: {exc}" + ("" if unit else " (write 5% or 0.05)")) from None
 
 
 def _pair(text, what, unit=""):
@@ -232,7 +235,7 @@ def _tolerance(args, out, err) -> int:
     try:
         plan, label = _prepare(args)
         options = dict(samples=args.samples, seed=args.seed, resistors=_fraction(args.resistors, "--resistors"),
-                       beta=_pair(args.beta, "--beta"), vbe_on=_fraction(args.vbe_on, "--vbe-on"),
+                       beta=_pair(args.beta, "--beta"), vbe_on=_fraction(args.vbe_on, "--vbe-on", "V"),
                        temperature=_pair(args.temperature, "--temperature", "°C"), distribution=args.distribution,
                        model=args.model)
         if args.required_amplitude is not None:

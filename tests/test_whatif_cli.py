@@ -203,3 +203,12 @@ def test_design_unwritable_output_exits_2(capsys, tmp_path):
     status, out, err = run(capsys, "design", "--demo", "s1.rc", "--target", "s1.vce=5", "-o",
                            str(tmp_path / "missing" / "x.json"))
     assert status == 2 and "-o" in err
+
+
+def test_vbe_on_spread_takes_its_unit(capsys):
+    # Engineering notation "optionally with their unit" (issue 8): 20mV is 0.02 V, as --set reads it.
+    status, out, err = run(capsys, "tolerance", "--demo", "--samples", "5", "--seed", "1", "--vbe-on", "20mV")
+    assert status == 0 and err == ""
+    assert "  s1.device.vbe_on: 680 mV … 720 mV" in out
+    status, out, err = run(capsys, "tolerance", "--demo", "--samples", "5", "--vbe-on", "20mA")
+    assert status == 2 and "--vbe-on '20mA'" in err and "Traceback" not in err
