@@ -294,7 +294,12 @@ def _target(plan, address: str, text: str):
     text = text.strip()
     if text.endswith("symmetric_swing"):
         head = text[:-len("symmetric_swing")].rstrip(".")
-        return f"{head or address.partition('.')[0]}.symmetric_swing"
+        if not head:
+            head, dot, _ = address.partition(".")
+            if not dot or head not in plan.stage_ids:
+                raise _BadInput(f"--target {text}: {address} is no stage's value, so name the stage, e.g. "
+                                f"{(plan.stage_ids or ('s1',))[0]}.symmetric_swing")
+        return f"{head}.symmetric_swing"
     result, sep, value = text.partition("=")
     if not sep or not result.strip() or not value.strip():
         raise _BadInput(f"--target {text!r}: expected RESULT=VALUE (s1.vce=5) or symmetric_swing")

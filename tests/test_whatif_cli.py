@@ -191,6 +191,8 @@ def test_design_out_of_reach_exits_1(capsys, tmp_path):
     (["s1.rc", "--target", "s1.vce=5", "--bounds", "x"], r"--bounds 'x'"),
     (["s1.rcc", "--target", "s1.vce=5", "--bounds", "1k..2k"], r"s1.rcc"),
     (["s1.coupling", "--target", "s1.vce=5"], r"design s1.coupling: holds a word"),
+    # symmetric_swing alone takes the stage of ADDRESS; supply belongs to no stage.
+    (["supply", "--target", "symmetric_swing"], r"--target symmetric_swing: .*name the stage.*s1.symmetric_swing"),
 ])
 def test_design_bad_input_exits_2(capsys, argv, message):
     import re

@@ -135,7 +135,7 @@ def test_target_out_of_reach_is_reported():
     ("s1.rc", ("s1.vce", math.nan), {}, InvalidValueError, r"design target s1.vce: the value must be a finite"),
     ("s1.rc", ("s1.vcee", 5.0), {}, UnknownNameError, r"'s1.vcee'"),
     ("s1.rc", "s1.symmetric", {}, InvalidValueError, r"a named target is '<stage id>.symmetric_swing'"),
-    ("s1.rc", "s9.symmetric_swing", {}, UnknownNameError, r"no stage 's9'"),
+    ("s1.rc", "s9.symmetric_swing", {}, UnknownNameError, r"design target 's9.symmetric_swing': .*no stage 's9'"),
     ("s1.rc", ("s1.vce", 5.0), {"bounds": (5e3, 1e3)}, InvalidValueError, r"design bounds for s1.rc: need finite low < high"),
     ("s1.rc", ("s1.vce", 5.0), {"bounds": (-1.0, 1e3)}, InvalidValueError, r"design bounds for s1.rc: .*-1"),
     ("s1.rc", ("s1.vce", 5.0), {"bounds": 3}, InvalidValueError, r"design bounds: give \(low, high\)"),

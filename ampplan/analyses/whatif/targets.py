@@ -26,7 +26,8 @@ import numpy as np
 from scipy import optimize
 
 from ... import eseries
-from ...errors import AmpplanError, InvalidValueError, TargetNotReachedError
+from ...circuit import did_you_mean
+from ...errors import AmpplanError, InvalidValueError, TargetNotReachedError, UnknownNameError
 from ..addresses import WORD_RESULTS, check_result_address
 from .sweeps import RESOLUTION, check_address, check_model, solve_table
 
@@ -124,7 +125,9 @@ def _target(plan, target) -> tuple:
         if name != SYMMETRIC_SWING:
             raise InvalidValueError(f"design target {target!r}: a named target is '<stage id>.{SYMMETRIC_SWING}'; "
                                     "otherwise give (result address, value), e.g. ('s1.vce', 5.0)")
-        check_result_address(f"{sid}.swing", plan.stage_ids)
+        if sid not in plan.stage_ids:
+            raise UnknownNameError(f"design target {target!r}: the plan has no stage {sid!r}; its stages are "
+                                   f"{', '.join(plan.stage_ids) or 'none'}" + did_you_mean(sid, plan.stage_ids))
         up, down, region = f"{sid}.swing_to_saturation", f"{sid}.swing_to_cutoff", f"{sid}.region"
 
         def centred(t):
