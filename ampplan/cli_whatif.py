@@ -34,7 +34,7 @@ import numpy as np
 
 from . import eseries
 from .analyses.addresses import RESULT_UNITS, WORD_RESULTS, check_result_address
-from .analyses.whatif.sweeps import check_address
+from .analyses.whatif.sweeps import MAX_SAMPLES, check_address
 from .cli import EXIT_BAD_INPUT, EXIT_NOT_OK, EXIT_OK, _apply_settings, _BadInput, _fail, _read, _verdict
 from .errors import AmpplanError, ConvergenceError, NoConsistentRegionError, PlanFileError, TargetNotReachedError
 from .record import save_plan
@@ -47,8 +47,8 @@ __all__ = ["add_commands", "parse_range", "EXIT_INTERRUPTED"]
 EXIT_INTERRUPTED = 130
 #: Points of a --vary range without :N.
 DEFAULT_POINTS = 11
-#: Stops a sweep from asking for more samples than memory holds.
-MAX_SWEEP_SAMPLES = 10_000_000
+#: Stops a sweep from asking for more samples than memory holds (the API's own limit).
+MAX_SWEEP_SAMPLES = MAX_SAMPLES
 
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+?)(?::(?P<n>[^:]+?))?(?P<log>log)?$", re.IGNORECASE)
 

@@ -184,3 +184,35 @@ def test_sweep_of_a_value_only_the_analyses_read_equals_single_solves(address, v
     assert sweep.caution_fired.tolist() == [bool(c) for c in cautions]
     assert sweep.passed().tolist() == [check_rule(r) for r in results]
     assert len(set(sweep.passed().tolist())) == 2  # the value decides the verdict along the sweep
+
+
+def test_a_long_sweep_is_solved_chunk_by_chunk_and_equals_one_solve(monkeypatch):
+    # The working memory of a batched solve grows with its samples (about 5 kB each for the demo),
+    # so a long sweep must go through the batched solver a chunk at a time. Source: the definition
+    # in issue 8 (each sample equals its own solve); here the whole sweep against one batch.
+    from ampplan.analyses.whatif import sweeps
+    plan = demo_plan()
+    values = np.geomspace(1e3, 60e3, 25)
+    whole = plan.sweep({"s1.rc": values})
+    sizes = []
+    solve = sweeps.analyse_plan
+
+    def counted(*args, batch, **kwargs):
+        sizes.append(len(batch["s1.rc"]))
+        return solve(*args, batch=batch, **kwargs)
+    monkeypatch.setattr(sweeps, "CHUNK", 10)
+    monkeypatch.setattr(sweeps, "analyse_plan", counted)
+    chunked = plan.sweep({"s1.rc": values})
+    assert sizes == [10, 10, 5]
+    for address in result_addresses(plan.stage_ids):
+        words = whole[address].dtype.kind == "U"
+        assert np.array_equal(chunked[address], whole[address], equal_nan=not words), address
+    assert np.array_equal(chunked.passed(), whole.passed())
+    assert chunked.to_dict() == whole.to_dict()
+
+
+def test_a_grid_too_large_is_refused_before_it_is_made():
+    # 10^4 · 10^4 · 10^3 = 10^11 samples would need terabytes; refused by count, naming the limit.
+    axis = np.linspace(1e3, 2e3, 10_000)
+    with pytest.raises(InvalidValueError, match=r"sweep: the grid has 100000000000 samples, more than 10000000"):
+        demo_plan().sweep({"s1.rc": axis, "s1.re": axis / 10, "supply": np.linspace(10, 14, 1000)}, grid=True)

@@ -22,9 +22,15 @@ from ...errors import AmpplanError, InvalidValueError, UnknownModelError
 from ...solver import MODELS
 from ..addresses import WORD_RESULTS, check_result_address, read_result, result_addresses
 from ..chain import analyse_plan
-from .tables import Words, equals
+from .tables import TableBuilder, Words, equals
 
 __all__ = ["PlanSweep", "sweep", "check_values", "solve_table", "check_model", "RESOLUTION"]
+
+#: Samples per batched solve of a sweep: the working memory grows with the chunk (about 5 kB a
+#: sample for the 3-stage demo, so about 40 MB), the kept table with the sweep (about 0.5 kB a sample).
+CHUNK = 8192
+#: The most samples a sweep takes (a grid is refused before it is made).
+MAX_SAMPLES = 10_000_000
 
 #: Relative agreement of every sample with its own single solve, per model (issue 8): differences
 #: between samples below it are not resolved (rounding, Newton's tolerance).
@@ -100,6 +106,9 @@ def check_values(plan, values, grid: bool = False, where: str = "sweep") -> dict
                 raise InvalidValueError(f"{where} {address}[{k}]: {exc}") from None
         arrays[address] = array
     if grid:
+        size = math.prod(a.size for a in arrays.values())
+        if size > MAX_SAMPLES:
+            raise InvalidValueError(f"{where}: the grid has {size} samples, more than {MAX_SAMPLES}")
         axes = np.meshgrid(*arrays.values(), indexing="ij")
         return {address: axis.ravel() for address, axis in zip(arrays, axes)}
     lengths = {address: a.size for address, a in arrays.items()}
@@ -296,4 +305,13 @@ def sweep(plan, values, model: str = "constant-drop", grid: bool = False) -> Pla
     check_model(model)
     checked = check_values(plan, values, grid)
     frozen = plan.copy()
-    return PlanSweep(values=checked, model=model, plan=frozen, _table=solve_table(frozen, model, checked))
+    size = len(next(iter(checked.values())))
+    if size <= CHUNK:
+        table = solve_table(frozen, model, checked)
+    else:
+        # Chunk by chunk, so the working memory stays that of one chunk (words kept as codes).
+        builder = TableBuilder(size)
+        for start in range(0, size, CHUNK):
+            builder.put(start, solve_table(frozen, model, {a: v[start:start + CHUNK] for a, v in checked.items()}))
+        table = builder.table()
+    return PlanSweep(values=checked, model=model, plan=frozen, _table=table)
