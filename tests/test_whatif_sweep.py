@@ -114,6 +114,10 @@ def test_plan_passed_in_is_unchanged_and_plan_of_sets_the_values():
     ({"s1.rc": []}, InvalidValueError, r"sweep s1.rc: values must be a non-empty 1-D array"),
     ({"s1.rc": [[1e3]]}, InvalidValueError, r"sweep s1.rc: values must be a non-empty 1-D array"),
     ({"s1.rc": ["big"]}, InvalidValueError, r"sweep s1.rc: values must be numbers"),
+    # numpy would read True as 1.0 (1 Ω) and refuse 10**400 with a raw OverflowError.
+    ({"s1.rc": [True, 2e3]}, InvalidValueError, r"sweep s1.rc: values must be numbers, not true/false"),
+    ({"s1.rc": np.array([True])}, InvalidValueError, r"sweep s1.rc: values must be numbers, not true/false"),
+    ({"s1.rc": [10 ** 400]}, InvalidValueError, r"sweep s1.rc: values must be numbers"),
     ({}, InvalidValueError, r"sweep: values must be a non-empty dict"),
     ([("s1.rc", [1.0])], InvalidValueError, r"sweep: values must be a non-empty dict"),
     ({"s1.rcc": [1e3]}, UnknownNameError, r"s1.rcc"),

@@ -86,9 +86,12 @@ def check_values(plan, values, grid: bool = False, where: str = "sweep") -> dict
     arrays = {}
     for address, raw in values.items():
         check_address(plan, address, where)
+        if (isinstance(raw, (list, tuple)) and any(isinstance(v, (bool, np.bool_)) for v in raw)) or (
+                isinstance(raw, (np.ndarray, bool, np.bool_)) and np.asarray(raw).dtype == bool):
+            raise InvalidValueError(f"{where} {address}: values must be numbers, not true/false, got {raw!r}")
         try:
             array = np.asarray(raw, dtype=float)
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):
             raise InvalidValueError(f"{where} {address}: values must be numbers, got {raw!r}") from None
         if array.ndim != 1 or array.size == 0:
             raise InvalidValueError(f"{where} {address}: values must be a non-empty 1-D array, got shape "
