@@ -32,6 +32,7 @@ from typing import NamedTuple
 import numpy as np
 
 from .assembly import Scatter
+from .program import Program
 
 __all__ = ["Elimination", "Schedule", "scratch", "THRESHOLD", "RUN_THRESHOLD", "RESIDUAL"]
 
@@ -233,6 +234,7 @@ class Elimination:
                        for p, q, _, right in reversed(steps)]
         self._backward = self._backward_levels(None)
         self._schedules: dict = {}
+        self._programs: dict = {}
 
     def _backward_levels(self, needed):
         """The backward substitution's levels; with ``needed`` (unknowns, or None for all), only
@@ -459,16 +461,21 @@ class Elimination:
         s_count = rhs.shape[1]
         if self.singular:
             return np.full(rhs.shape, np.nan), np.zeros(s_count, dtype=bool)
-        schedule = None if rhs_rows is None and wanted is None else self.schedule_for(rhs_rows, wanted)
-        if schedule is not None and schedule.computed is not None and check_residual:
+        if wanted is not None and check_residual:
             raise ValueError("the residual test needs every unknown: give wanted=None")
-        factors = self.factor(values, take, out=scratch("factors", (self.n_slots, s_count)), schedule=schedule)
+        program = self._program(rhs_rows, wanted, take, values.shape[0])
+        work = program.run(values, rhs, scratch("registers", (program.registers, s_count)))
+        x = np.empty(rhs.shape) if out is None else out
+        if program.unknowns.size == self.n and x.flags.c_contiguous:
+            np.take(work, program.unknown_registers, axis=0, out=x)     # every unknown, in order
+        else:
+            x[program.unknowns] = work[program.unknown_registers]
+        with np.errstate(all="ignore"):
+            ok = np.all(np.isfinite(work[program.unknown_registers]), axis=0)
+            if program.multiplier_registers.size:
+                ok &= np.all(np.abs(work[program.multiplier_registers]) <= 1.0 / RUN_THRESHOLD, axis=0)
         if take is not None and check_residual:
             values = values[take]
-        multipliers = self._multipliers if schedule is None else schedule.multipliers
-        x = self.substitute(factors, rhs, schedule, out)
-        computed = x if schedule is None or schedule.computed is None else x[schedule.computed]
-        ok = self._usable(factors, multipliers, (computed,))
         if check_residual:
             with np.errstate(all="ignore"):
                 # The residual test of linear.solve_batch, so that both call the same samples singular.
@@ -480,6 +487,23 @@ class Elimination:
                 ok &= residual <= RESIDUAL * scale + 1e-300
         x[:, ~ok] = np.nan
         return x, ok
+
+    def _program(self, rhs_rows, wanted, take, n_values: int) -> Program:
+        """The :class:`~ampplan.solver.program.Program` of a request (kept per schedule, ``take``
+        and number of value rows)."""
+        take_key = None if take is None else np.asarray(take, dtype=np.intp).tobytes()
+        rows_key = None if rhs_rows is None else np.unique(np.asarray(rhs_rows, dtype=np.intp)).tobytes()
+        wanted_key = None if wanted is None else np.unique(np.asarray(wanted, dtype=np.intp)).tobytes()
+        key = (rows_key, wanted_key, take_key, n_values)
+        program = self._programs.get(key)
+        if program is None:
+            if rhs_rows is None and wanted is None:
+                schedule = Schedule(None, None, self._factor_levels, self._multipliers, self._forward,
+                                    self._backward, None)
+            else:
+                schedule = self.schedule_for(rhs_rows, wanted)
+            program = self._programs[key] = Program(self, schedule, take, n_values)
+        return program
 
     @staticmethod
     def _usable(factors: np.ndarray, multipliers: np.ndarray, xs) -> np.ndarray:
