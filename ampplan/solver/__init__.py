@@ -124,7 +124,7 @@ def _solve_assumed(circuit, layout, params, single, active_edge, codes):
     good = np.empty(s_count, dtype=bool)
     ok = np.empty(s_count, dtype=bool)
     checks = [np.empty((s_count, n_q, 2)) for _ in range(3)] + [np.empty((s_count, n_q, 2), dtype=bool)]
-    for rows in cd.blocks(s_count, layout):
+    for rows in cd.blocks(s_count, layout, sparse=not single):
         problem = cd.RegionProblem(layout, _part(params, rows, s_count), active_edge, sparse=not single)
         local = np.arange(rows.size)
         x[rows], ok[rows] = problem.solve(local, regions[rows])
@@ -231,7 +231,7 @@ def _solve_constant_drop(circuit, layout, params, single, active_edge, warm_star
         if done is not None:
             return done
     s_count, n_q = params.size, layout.n_bjt
-    blocks = list(cd.blocks(s_count, layout))
+    blocks = list(cd.blocks(s_count, layout, sparse=not single))
     if len(blocks) > 1:
         # x, regions, found, values, limits, margins, holds of every sample, filled block by block.
         whole = [np.empty((s_count, layout.size + 1)), np.empty((s_count, n_q), dtype=np.int8),

@@ -52,7 +52,7 @@ import numpy as np
 
 from . import regions as rg
 from .linear import solve_batch
-from .assembly import Scatter
+from .assembly import Scatter, take_samples
 from .sparse import Elimination
 
 #: Up to this many transistors the local search tries every region assignment (4^5 = 1024).
@@ -76,6 +76,8 @@ WORK_BYTES = 16 * 2**20
 #: region assignment, up to this many unknowns; beyond it, and in single solves, LAPACK solves one
 #: dense system at a time.
 SPARSE_ORDER = 400
+#: Rows of size + 1 numbers a sparse batch's search holds per sample, at most (:func:`blocks`).
+SPARSE_ROWS = 8
 #: Stamped single systems kept per layout (the circuit's own parameters only).
 STAMPED_KEPT = 128
 
@@ -104,9 +106,18 @@ def check_size(layout) -> None:
             f"{MAX_MATRIX_BYTES / 2**20:.0f} MiB; split the circuit into parts")
 
 
-def blocks(count: int, layout):
-    """Index arrays that cover ``count`` samples in blocks small enough for :data:`WORK_BYTES`."""
-    size = max(1, WORK_BYTES // (8 * (layout.size + 1) ** 2))
+def blocks(count: int, layout, sparse: bool = False):
+    """Index arrays that cover ``count`` samples in blocks small enough for :data:`WORK_BYTES`.
+
+    A block's samples hold their dense systems, (size + 1)² numbers each, unless ``sparse``: a
+    batch whose direct solves go through the sparse elimination (``RegionProblem(sparse=True)``)
+    assembles dense systems only for the few samples that need one, a chunk at a time
+    (:meth:`RegionProblem.systems`), and otherwise holds :data:`SPARSE_ROWS` rows of size + 1
+    numbers per sample (its unknowns, their copies and its checks).
+    """
+    sparse = sparse and layout.size <= SPARSE_ORDER         # as RegionProblem decides
+    per_sample = 8 * (layout.size + 1) * (SPARSE_ROWS if sparse else layout.size + 1)
+    size = max(1, WORK_BYTES // per_sample)
     if count <= size:
         yield np.arange(count)
         return
@@ -156,6 +167,15 @@ class RegionProblem:
         if self._assembled is None:
             self._assembled = self.layout.assembled(self.params)
         return self._assembled[1]
+
+    def systems(self, samples):
+        """Dense matrices (K, size + 1, size + 1) and right-hand sides (K, size + 1) of ``samples``,
+        to stamp: rows of :attr:`matrix` where it is assembled or the problem has one sample (a
+        single solve keeps it), else assembled for those samples alone (the same sums, sample by
+        sample), so that a sparse batch never assembles the samples its sparse solves took."""
+        if self._assembled is not None or self.params.size == 1:
+            return self.matrix[samples], self.rhs[samples]
+        return self.layout.assemble(take_samples(self.params, samples, device=False))
 
     def solve(self, samples, regions):
         """Solve the linear equations of assignments ``regions`` for samples ``samples``, directly.
@@ -244,8 +264,7 @@ class RegionProblem:
         for start in range(0, len(samples), chunk):
             part = slice(start, start + chunk)
             smp, reg = samples[part], regions[part]
-            matrix = self.matrix[smp]
-            rhs = self.rhs[smp]
+            matrix, rhs = self.systems(smp)
             self._stamp(matrix, rhs, smp, reg)
             x, ok = solve_batch(matrix[:, :n, :n], rhs[:, :n])
             out_x[part, :n] = x
@@ -337,7 +356,7 @@ class RegionProblem:
                 if not todo.size:
                     break
                 smp = missing[todo]
-                matrix, rhs = self.matrix[smp], self.rhs[smp]
+                matrix, rhs = self.systems(smp)
                 self._stamp(matrix, rhs, smp, np.full((todo.size, n_q), code, dtype=np.int8))
                 both = np.concatenate([rhs[:, :n, None], np.broadcast_to(unit_rows, (todo.size, n, 2 * n_q))],
                                       axis=2)

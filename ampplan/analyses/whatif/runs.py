@@ -60,7 +60,7 @@ from ...devices import REFERENCE_TEMPERATURE, thermal_voltage
 from ...errors import AmpplanError, InvalidValueError, UnknownModelError
 from ...units import format_quantity
 from .sweeps import RESOLUTION, PlanSweep, check_model, passed_rule, solve_table
-from .tables import TableBuilder
+from .tables import SharedColumns, TableBuilder
 
 __all__ = ["Distribution", "DISTRIBUTIONS", "Spread", "ToleranceSpec", "ToleranceResult", "ToleranceSample",
            "tolerance", "spreads_of", "run_chunks", "values_at", "worker_count", "process_pool", "BLOCK",
@@ -266,43 +266,100 @@ def run_chunk(plan, spec: ToleranceSpec, start: int, stop: int) -> tuple:
     return values, table, passed
 
 
-def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executor=None, progress=None) -> tuple:
+def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executor=None, progress=None,
+               shared=None, here: bool = False) -> tuple:
     """Run every chunk (in order, or through ``executor``) and assemble the whole run.
 
     ``progress(done, total)`` is called after each chunk. A KeyboardInterrupt cancels the chunks
-    not yet started and is raised again.
+    not yet started and is raised again. ``shared`` (a token of :func:`share_columns`, with an
+    executor of processes forked after it was made) has the workers write the numbers into the
+    run's shared columns instead of sending them back. ``here`` has this process run chunks too,
+    while the executor's workers run theirs: it takes the last chunk none of them has started,
+    they take the first ones.
     """
     bounds = [(a, min(a + chunk_size, samples)) for a in range(0, samples, chunk_size)]
-    parameters, table, passed = TableBuilder(samples), TableBuilder(samples), np.zeros(samples, dtype=bool)
+    held = _SHARED.get(shared)
+    if held is None:
+        parameters, table, passed = TableBuilder(samples), TableBuilder(samples), np.zeros(samples, dtype=bool)
+    else:
+        parameters, table = TableBuilder(samples, held[0].columns), TableBuilder(samples, held[1].columns)
+        passed = held[2].columns["passed"]
+    done = 0
 
-    def keep(start, chunk):
+    def keep(start, stop, chunk):
+        nonlocal done
         values, rows, ok = chunk
         if values:
             parameters.put(start, values)
-        table.put(start, rows)
-        passed[start:start + len(ok)] = ok
+        if rows:
+            table.put(start, rows)
+        if ok is not None:
+            passed[start:start + len(ok)] = ok
+        done += stop - start
+        if progress is not None:
+            progress(done, samples)
 
-    done = 0
     if executor is None:
         for start, stop in bounds:
-            keep(start, run_chunk(plan, spec, start, stop))
-            done += stop - start
-            if progress is not None:
-                progress(done, samples)
-    else:
-        futures = {executor.submit(run_chunk, plan, spec, start, stop): (start, stop) for start, stop in bounds}
-        try:
-            for future in concurrent.futures.as_completed(futures):
-                start, stop = futures.pop(future)    # dropped once kept: a run holds one copy of its results
-                keep(start, future.result())
-                done += stop - start
-                if progress is not None:
-                    progress(done, samples)
-        except BaseException:
-            for future in futures:
-                future.cancel()
-            raise
+            keep(start, stop, run_chunk(plan, spec, start, stop))
+        return parameters.table(), table.table(), passed
+    task = (run_chunk,) if shared is None else (_run_chunk_shared, shared)
+    futures = {executor.submit(*task, plan, spec, start, stop): (start, stop) for start, stop in bounds}
+    waiting = list(futures) if here else []        # in chunk order; this process takes from the end
+    try:
+        while futures:
+            while waiting:
+                future = waiting.pop()
+                if future.cancel():                # not started by a worker: run it here instead
+                    start, stop = futures.pop(future)
+                    keep(start, stop, run_chunk(plan, spec, start, stop))
+                    break
+            # What the workers have finished (all that is left, once nothing is left to run here).
+            finished, _ = concurrent.futures.wait(futures, timeout=0 if waiting else None,
+                                                  return_when=concurrent.futures.FIRST_COMPLETED)
+            for future in finished:
+                start, stop = futures.pop(future)  # dropped once kept: a run holds one copy of its results
+                keep(start, stop, future.result())
+    except BaseException:
+        for future in futures:
+            future.cancel()
+        raise
     return parameters.table(), table.table(), passed
+
+
+#: The shared columns of the runs in progress, by token (:func:`share_columns`): worker processes
+#: forked after a run's columns were made find them here.
+_SHARED: dict = {}
+
+
+def share_columns(samples: int, probe: tuple) -> int:
+    """Shared columns for a run of ``samples`` laid out like ``probe`` (a :func:`run_chunk` answer):
+    every number and flag column of the parameters, the table and ``passed``. Returns the token
+    that :func:`run_chunks` takes; :func:`unshare_columns` lets go of them (the run's result keeps
+    what it holds)."""
+    values, rows, _ = probe
+    numbers_of = lambda chunk: {name: np.asarray(a).dtype for name, a in chunk.items()  # noqa: E731
+                                if np.asarray(a).dtype.kind in "fb"}
+    token = max(_SHARED, default=0) + 1
+    _SHARED[token] = (SharedColumns(samples, numbers_of(values)), SharedColumns(samples, numbers_of(rows)),
+                      SharedColumns(samples, {"passed": np.dtype(bool)}))
+    return token
+
+
+def unshare_columns(token: int) -> None:
+    """Forget the shared columns of a finished run."""
+    _SHARED.pop(token, None)
+
+
+def _run_chunk_shared(token: int, plan, spec: ToleranceSpec, start: int, stop: int) -> tuple:
+    """:func:`run_chunk` in a forked worker: the numbers written into the run's shared columns,
+    the rest (the words) returned, with None for ``passed`` (written too)."""
+    values, rows, ok = run_chunk(plan, spec, start, stop)
+    held = _SHARED[token]
+    out = (held[0].write(start, values), held[1].write(start, rows), held[2].write(start, {"passed": ok}).get("passed"))
+    for columns in held:
+        columns.release()
+    return out
 
 
 def _ignore_interrupt() -> None:
@@ -328,14 +385,19 @@ def worker_count(samples: int, chunk_size: int, workers=None) -> int:
     return max(1, min(int(workers), chunks))
 
 
-def process_pool(workers: int) -> concurrent.futures.ProcessPoolExecutor:
+def process_pool(workers: int, method: str | None = None) -> concurrent.futures.ProcessPoolExecutor:
     """``workers`` processes: forked from this one where that is safe (they inherit its imports,
     layouts and elimination plans), else started afresh (they import ampplan first)."""
-    methods = multiprocessing.get_all_start_methods()
-    method = ("fork" if "fork" in methods and threading.active_count() == 1
-              else "forkserver" if "forkserver" in methods else "spawn")
+    method = _start_method() if method is None else method
     return concurrent.futures.ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context(method),
                                                   initializer=_ignore_interrupt)
+
+
+def _start_method() -> str:
+    """How :func:`process_pool` starts its workers: "fork" where that is safe, else afresh."""
+    methods = multiprocessing.get_all_start_methods()
+    return ("fork" if "fork" in methods and threading.active_count() == 1
+            else "forkserver" if "forkserver" in methods else "spawn")
 
 
 @dataclass(frozen=True)
@@ -619,18 +681,25 @@ def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5,
                          beta_temperature_coefficient=float(beta_temperature_coefficient),
                          required_amplitude=None if required_amplitude is None else float(required_amplitude))
     frozen = plan.copy()
-    pool = None
+    pool = shared = None
     processes = 1 if executor is not None else worker_count(samples, chunk_size, workers)
     if processes > 1:
-        # Plan the solves here first (a few samples), so that every forked worker inherits them.
-        run_chunk(frozen, spec, 0, 1)
-        pool = executor = process_pool(processes)
+        # Plan the solves here first (one sample), so that every forked worker inherits them; the
+        # sample's columns lay out the columns shared with forked workers.
+        probe = run_chunk(frozen, spec, 0, 1)
+        method = _start_method()
+        if method == "fork":
+            shared = share_columns(samples, probe)
+        pool = executor = process_pool(processes - 1, method)      # this process runs chunks too
     try:
-        parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress)
+        parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress, shared,
+                                               here=pool is not None)
     except BaseException:
         if pool is not None:
             pool.shutdown(wait=False, cancel_futures=True)
         raise
+    finally:
+        unshare_columns(shared)
     if pool is not None:
         pool.shutdown()
     sweep = PlanSweep(values=parameters, model=model, plan=frozen, _table=table)
