@@ -175,7 +175,9 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
     single = op.batch_size is None
     circuit = compiled.circuit
     layout = layout_of(circuit)
-    params = layout.parameters(temperature=compiled.temperature, batch=batch)
+    # A batch's values as it was solved with them (the same as building them again from ``batch``).
+    params = op.parameters if op.parameters is not None else layout.parameters(temperature=compiled.temperature,
+                                                                               batch=batch)
     s_count = params.size
     plan_values = plan_values or {}
     headroom_asked = np.broadcast_to(plan_values.get("min_headroom", compiled.min_headroom), (s_count,))

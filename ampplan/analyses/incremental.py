@@ -345,13 +345,17 @@ class IncrementalSystem:
         flat = None
         if shared and wanted is not None:
             flat = np.unique(np.array([v * n + k for v, k in wanted], dtype=np.intp))
-        x = np.empty((s_count, n_var, n)) if flat is None else np.full((s_count, n_var, n), np.nan)
-        for at in range(0, s_count, BLOCK):
-            part = table[at:at + BLOCK]
-            if shared:
-                self._solve_sparse(part, x[at:at + BLOCK], flat)
-            else:
-                x[at:at + BLOCK] = self._solve_dense(part)
+        if shared:
+            # Samples last, as the elimination writes them (and as a caller reads one unknown of
+            # every sample); x is the (S, V, size) view.
+            store = np.empty((n_var * n, s_count)) if flat is None else np.full((n_var * n, s_count), np.nan)
+            for at in range(0, s_count, BLOCK):
+                self._solve_sparse(table[at:at + BLOCK], store[:, at:at + BLOCK], flat)
+            x = store.reshape(n_var, n, s_count).transpose(2, 0, 1)
+        else:
+            x = np.empty((s_count, n_var, n))
+            for at in range(0, s_count, BLOCK):
+                x[at:at + BLOCK] = self._solve_dense(table[at:at + BLOCK])
         for v, gone in enumerate(self.vanished):
             if gone:
                 x[:, v, gone] = np.nan
@@ -367,8 +371,8 @@ class IncrementalSystem:
 
     def _solve_sparse(self, table, out, wanted=None):
         """Every variant of every sample through the planned sparse elimination (dense where it
-        fails), into ``out`` (S, V, size); only the flat entries ``wanted`` (variant·size +
-        unknown) when given (``out`` is left as it is elsewhere)."""
+        fails), into ``out`` (V·size, S), samples last; only the flat entries ``wanted``
+        (variant·size + unknown) when given (``out`` is left as it is elsewhere)."""
         elimination, values_plan = self._sparse_plan()
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
@@ -380,12 +384,12 @@ class IncrementalSystem:
                                          rhs_rows=self._rhs_plan.targets, wanted=wanted,
                                          out=scratch("solution", rhs.shape))
         if wanted is None:
-            out[:] = solution.reshape(n_var, n, s_count).transpose(2, 0, 1)
+            out[:] = solution
         else:
-            out.reshape(s_count, n_var * n)[:, wanted] = solution[wanted].T
+            out[wanted] = solution[wanted]
         bad = np.flatnonzero(~ok)
         if bad.size:
-            out[bad] = self._solve_dense(table[bad])
+            out[:, bad] = self._solve_dense(table[bad]).reshape(bad.size, n_var * n).T
 
 
 #: Samples per block of :meth:`IncrementalSystem.solve` (bounds the working arrays).

@@ -439,7 +439,7 @@ def _build(circuit, layout, params, x, regions, checks, status, model, method, i
     return OperatingPoint(
         model=model, v=v, i=currents, transistors=transistors, status=status.astype(str),
         temperature=params.temperature, method=method, iterations=int(iterations), batch_size=params.size,
-        circuit=circuit, unknowns=x[:, :n])
+        circuit=circuit, unknowns=x[:, :n], parameters=params)
 
 
 #: Region words by code, "unsolved" last.

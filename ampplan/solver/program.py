@@ -109,29 +109,27 @@ class Program:
                           for t, c, s in zip(target.tolist(), coef.tolist(), source.tolist())})
             x.update({t: record(_DIVIDE, x[t], slot[p]) for t, p in zip(targets.tolist(), pivots.tolist())})
 
-        # Steps: every operation as soon as its operands are ready, grouped by operation.
+        # Steps: every operation as soon as its operands are ready, grouped by operation; within a
+        # group in the order of its operands' registers, so that they are often contiguous (a slice).
         inputs = zero + 1 + len(rhs_rows)
         depth = [0] * len(operations)
         for k, (_, operands) in enumerate(operations):
             depth[k] = 1 + max((depth[o] for kind, o in operands if kind == "op"), default=0)
-        order = sorted(range(len(operations)), key=lambda k: (depth[k], operations[k][0]))
+        groups: dict = {}
+        for k in range(len(operations)):
+            groups.setdefault((depth[k], operations[k][0]), []).append(k)
         register = [0] * len(operations)
-        for r, k in enumerate(order):
-            register[k] = inputs + r
         at = lambda operand: operand[1] if operand[0] == "in" else register[operand[1]]  # noqa: E731
         steps = []
-        start = 0
-        while start < len(order):
-            k0 = order[start]
-            stop = start
-            while stop < len(order) and (depth[order[stop]], operations[order[stop]][0]) == (depth[k0],
-                                                                                              operations[k0][0]):
-                stop += 1
-            group = order[start:stop]
+        next_register = inputs
+        for (_, operation), group in sorted(groups.items()):
+            group.sort(key=lambda k: [at(o) for o in operations[k][1]])
+            for r, k in enumerate(group):
+                register[k] = next_register + r
             columns = list(zip(*[[at(o) for o in operations[k][1]] for k in group]))
-            steps.append((operations[k0][0], slice(inputs + start, inputs + stop),
+            steps.append((operation, slice(next_register, next_register + len(group)),
                           *(_index(list(c)) for c in columns), *([None] if len(columns) == 2 else [])))
-            start = stop
+            next_register += len(group)
         self.registers = inputs + len(operations)
         self.n_values = n_values
         self.steps = steps

@@ -288,6 +288,9 @@ class OperatingPoint:
         The circuit solved (not compared, not shown).
     unknowns : ndarray (size,), or (S, size) in a batch
         The solver's unknown vector (node voltages, source currents, I_B and I_C per transistor).
+    parameters : ampplan.solver.assembly.Parameters or None
+        A batch's element and device values, as solved (not compared, not shown): an analysis of
+        the batch reads them instead of building them again. None for a single solve.
     """
     model: str
     v: dict[str, Figure]
@@ -301,6 +304,7 @@ class OperatingPoint:
     batch_size: int | None = None
     circuit: object = field(default=None, repr=False, compare=False)
     unknowns: np.ndarray | None = field(default=None, repr=False, compare=False)
+    parameters: object = field(default=None, repr=False, compare=False)
 
     @property
     def ok(self):

@@ -54,8 +54,7 @@ result = plan.tolerance(samples=int(sys.argv[2]), seed=1, chunk_size=int(sys.arg
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 worker = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024   # the largest reaped worker
 from ampplan.analyses.whatif.runs import worker_count
-workers = worker_count(int(sys.argv[2]), int(sys.argv[3]))
-workers = workers if workers > 1 else 0
+workers = worker_count(int(sys.argv[2]), int(sys.argv[3])) - 1    # forked; this process runs chunks too
 print(json.dumps({"small": small, "peak": peak, "worker": worker, "workers": workers,
                   "yield": result.yield_fraction}))
 """
