@@ -232,7 +232,8 @@ class Layout:
                                              n)
         base, resistors, diagonal, volts, amps, n = plan
         pick = (lambda a: a) if rows is None else (lambda a: a[rows])  # noqa: E731
-        values = resistors.new_last(pick(params.conductance).T, base)
+        # Samples last and contiguous, so that each pass gathers whole rows.
+        values = resistors.new_last(np.ascontiguousarray(pick(params.conductance).T), base)
         if np.any(ladder_conductance):
             if np.any(diagonal < 0):
                 raise ValueError("the positions leave out a node's diagonal, which the conductance ladder needs")
