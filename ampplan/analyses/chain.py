@@ -198,11 +198,16 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
     models = transistor_models(op, params)
     port_beta = np.where(np.isfinite(models.beta_ac) & (models.beta_ac > 0), models.beta_ac, params.device["beta"])
     system = incremental_system(compiled, dc_load_lines)
-    # (S, V, size); a batch computes only the entries read below (the others NaN).
-    x = system.solve(params.conductance, models, port_beta=port_beta, shared=not single,
-                     wanted=None if single else _read_unknowns(compiled, system, dc_load_lines))
+    # A single solve: (S, V, size); a batch computes and keeps only the entries read below.
+    if single:
+        x = system.solve(params.conductance, models, port_beta=port_beta, shared=False)
+        unknown, drive_x = (lambda v, k: x[:, v, k]), x[:, 0]
+    else:
+        kept = system.solve_wanted(params.conductance, models, _read_unknowns(compiled, system, dc_load_lines),
+                                   port_beta=port_beta)
+        unknown, drive_x = (lambda v, k: kept[v, k]), kept.variant(0)
     index = system.index
-    node = lambda v, name: x[:, v, index[name]] if name in index and index[name] < system.size \
+    node = lambda v, name: unknown(v, index[name]) if name in index and index[name] < system.size \
         else np.zeros(s_count)  # noqa: E731  (ground)
     drive = 0
 
@@ -260,7 +265,7 @@ def analyse_compiled(compiled, op, active_edge: str = "vce-sat", batch: dict | N
     source_at = {e.name: k for k, e in enumerate(layout.voltage_sources)}
     supply_v = params.voltage[:, [source_at[n] for n in compiled.supplies]]
     span = np.max(np.abs(supply_v), axis=1)
-    clip = clipping_batch(compiled, op, params, x[:, drive], system, regions, ib, vce, edges, stage_of, span,
+    clip = clipping_batch(compiled, op, params, drive_x, system, regions, ib, vce, edges, stage_of, span,
                           active_edge, batch, estimate)
 
     supply_current = arr(op.i[compiled.supplies[0]])

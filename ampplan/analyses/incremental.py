@@ -31,7 +31,7 @@ from ..solver.ebers_moll import device_currents
 from ..solver.linear import solve_batch
 from ..solver.sparse import Elimination, scratch
 
-__all__ = ["Variant", "IncrementalSystem", "TransistorModels", "transistor_models"]
+__all__ = ["Variant", "IncrementalSystem", "TransistorModels", "WantedUnknowns", "transistor_models"]
 
 #: Value columns per transistor in the value table (see :meth:`IncrementalSystem._values`).
 _PER_Q = 9
@@ -331,26 +331,28 @@ class IncrementalSystem:
             With ``shared``: the only (variant, unknown) pairs the caller reads. The planned
             elimination then computes only what they depend on (the same operations, so the same
             figures: :meth:`ampplan.solver.sparse.Elimination.schedule_for`), and the other
-            entries are NaN. A sample solved densely has every entry.
+            entries are NaN (:meth:`solve_wanted` keeps only the wanted ones).
 
         Returns
         -------
         ndarray, shape (S, V, size)
             Unknowns per sample and variant (NaN for a singular system and for vanished nodes).
         """
+        if shared and wanted is not None:
+            few = self.solve_wanted(conductance, models, wanted, port_beta)
+            store = np.full((len(self.variants) * self.size, few.values.shape[1]), np.nan)
+            store[few.flat] = few.values
+            return store.reshape(len(self.variants), self.size, -1).transpose(2, 0, 1)
         if port_beta is not None:
             models = TransistorModels(models.g, models.held, port_beta)
         table = self._values(conductance, models, self.layout.sign)
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
-        flat = None
-        if shared and wanted is not None:
-            flat = np.unique(np.array([v * n + k for v, k in wanted], dtype=np.intp))
         if shared:
             # Samples last, as the elimination writes them (and as a caller reads one unknown of
             # every sample); x is the (S, V, size) view.
-            store = np.empty((n_var * n, s_count)) if flat is None else np.full((n_var * n, s_count), np.nan)
+            store = np.empty((n_var * n, s_count))
             for at in range(0, s_count, BLOCK):
-                self._solve_sparse(table[at:at + BLOCK], store[:, at:at + BLOCK], flat)
+                self._solve_sparse(table[at:at + BLOCK], store[:, at:at + BLOCK])
             x = store.reshape(n_var, n, s_count).transpose(2, 0, 1)
         else:
             x = np.empty((s_count, n_var, n))
@@ -360,6 +362,34 @@ class IncrementalSystem:
             if gone:
                 x[:, v, gone] = np.nan
         return x
+
+    def solve_wanted(self, conductance, models: TransistorModels, wanted, port_beta=None) -> "WantedUnknowns":
+        """:meth:`solve` of a batch (``shared=True``) for the (variant, unknown) pairs ``wanted``
+        only, kept as rows of their own (the same figures, bit for bit); no array of every
+        unknown of every variant and sample is made.
+
+        Parameters
+        ----------
+        conductance, models, port_beta
+            As for :meth:`solve`.
+        wanted : sequence of (int, int)
+            (variant, unknown) pairs.
+
+        Returns
+        -------
+        WantedUnknowns
+        """
+        if port_beta is not None:
+            models = TransistorModels(models.g, models.held, port_beta)
+        table = self._values(conductance, models, self.layout.sign)
+        s_count, n = table.shape[0], self.size
+        flat = np.unique(np.array([v * n + k for v, k in wanted], dtype=np.intp))
+        values = np.empty((flat.size, s_count))
+        for at in range(0, s_count, BLOCK):
+            self._solve_sparse(table[at:at + BLOCK], values[:, at:at + BLOCK], flat)
+        gone = np.isin(flat, [v * n + k for v, ks in enumerate(self.vanished) for k in ks])
+        values[gone] = np.nan
+        return WantedUnknowns(self.size, flat, values)
 
     def _solve_dense(self, table):
         """Every variant's matrix on its own, in one batched dense solve."""
@@ -371,8 +401,8 @@ class IncrementalSystem:
 
     def _solve_sparse(self, table, out, wanted=None):
         """Every variant of every sample through the planned sparse elimination (dense where it
-        fails), into ``out`` (V·size, S), samples last; only the flat entries ``wanted``
-        (variant·size + unknown) when given (``out`` is left as it is elsewhere)."""
+        fails), into ``out`` (V·size, S), samples last; with ``wanted`` (sorted flat entries
+        variant·size + unknown), only those, into ``out`` (len(wanted), S)."""
         elimination, values_plan = self._sparse_plan()
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
@@ -386,10 +416,44 @@ class IncrementalSystem:
         if wanted is None:
             out[:] = solution
         else:
-            out[wanted] = solution[wanted]
+            np.take(solution, wanted, axis=0, out=out)
         bad = np.flatnonzero(~ok)
         if bad.size:
-            out[:, bad] = self._solve_dense(table[bad]).reshape(bad.size, n_var * n).T
+            dense = self._solve_dense(table[bad]).reshape(bad.size, n_var * n).T
+            out[:, bad] = dense if wanted is None else dense[wanted]
+
+
+@dataclass(frozen=True, eq=False)
+class WantedUnknowns:
+    """Some unknowns of every variant and sample (:meth:`IncrementalSystem.solve_wanted`).
+
+    Attributes
+    ----------
+    size : int
+        Unknowns per variant.
+    flat : ndarray of int, shape (W,)
+        The pairs held, as variant·size + unknown (sorted).
+    values : ndarray, shape (W, S)
+        Their values, samples last (NaN for a singular system and for vanished nodes).
+    """
+    size: int
+    flat: np.ndarray
+    values: np.ndarray
+
+    def __getitem__(self, pair) -> np.ndarray:
+        """Unknown k of variant v for every sample, ``unknowns[v, k]``, shape (S,)."""
+        v, k = pair
+        at = int(np.searchsorted(self.flat, v * self.size + k))
+        if at == self.flat.size or self.flat[at] != v * self.size + k:
+            raise KeyError(f"unknown {k} of variant {v} was not asked for")
+        return self.values[at]
+
+    def variant(self, v: int) -> np.ndarray:
+        """Every unknown of variant v, (S, size): NaN where not asked for."""
+        out = np.full((self.values.shape[1], self.size), np.nan)
+        inside = (self.flat >= v * self.size) & (self.flat < (v + 1) * self.size)
+        out[:, self.flat[inside] - v * self.size] = self.values[inside].T
+        return out
 
 
 #: Samples per block of :meth:`IncrementalSystem.solve` (bounds the working arrays).

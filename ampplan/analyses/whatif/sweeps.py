@@ -133,7 +133,12 @@ def _column(value, size: int, word: bool) -> np.ndarray:
         if array.dtype.kind == "U":
             return np.broadcast_to(array, (size,)).copy()
         array = np.broadcast_to(np.asarray(value, dtype=object), (size,))
-        return np.array(["" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v) for v in array])
+        # None and NaN (the one value unequal to itself) are blank; the rest through str, as
+        # astype(str) converts an object array (one comparison and one conversion over the
+        # samples instead of a Python loop).
+        with np.errstate(invalid="ignore"):
+            blank = np.equal(array, None) | np.not_equal(array, array)
+        return np.where(blank, "", array).astype(str)
     return np.broadcast_to(np.asarray(value, dtype=float), (size,)).copy()
 
 
