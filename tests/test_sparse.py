@@ -107,6 +107,53 @@ def test_a_sparse_right_hand_side_and_a_few_wanted_unknowns_give_the_same_answer
     assert skipped > 0
 
 
+@pytest.mark.parametrize("seed", range(4))
+def test_the_register_program_repeats_the_in_place_elimination_bit_for_bit(seed):
+    # Elimination.solve runs a value-numbered register program (ampplan.solver.program); its
+    # answers must be those of the in-place elimination (factor, then substitute: the same
+    # operations), bit for bit, signs of zeros included, and LAPACK's within the usual bound.
+    # Several blocks that share most of their entries (as the incremental variants do, through
+    # ``take``) give the value numbering repeated operations to merge.
+    rng = np.random.default_rng(300 + seed)
+    merged = 0
+    for _ in range(8):
+        b, copies = int(rng.integers(2, 12)), int(rng.integers(1, 4))
+        rows, cols, rep = _random_system(rng, b, rng.uniform(0.1, 0.5))
+        n, p = b * copies, rows.size
+        all_rows = np.concatenate([rows + k * b for k in range(copies)])
+        all_cols = np.concatenate([cols + k * b for k in range(copies)])
+        # Every block reads the first block's values but for one entry of its own.
+        take = np.concatenate([np.arange(p)] + [np.where(np.arange(p) == k % p, p + k - 1, np.arange(p))
+                                                for k in range(1, copies)])
+        plan = Elimination(n, all_rows, all_cols, np.concatenate([rep] * copies), block=b)
+        typical = np.concatenate([rep, rep[np.arange(1, copies) % p]])
+        values = typical[:, None] * rng.uniform(0.8, 1.25, (p + copies - 1, 5))
+        rhs = np.zeros((n, 5))
+        where = rng.choice(n, size=int(rng.integers(1, n + 1)), replace=False)
+        rhs[where] = rng.normal(size=(where.size, 5))
+        wanted = rng.choice(n, size=int(rng.integers(1, n + 1)), replace=False)
+        for rhs_rows, want in ((None, None), (where, None), (where, wanted)):
+            x, ok = plan.solve(values, rhs, check_residual=False, take=take, rhs_rows=rhs_rows, wanted=want)
+            schedule = None if rhs_rows is None else plan.schedule_for(rhs_rows, want)
+            factors = plan.factor(values, take, schedule=schedule)
+            expected = plan.substitute(factors, rhs, schedule)
+            multipliers = plan._multipliers if schedule is None else schedule.multipliers
+            computed = expected if schedule is None or schedule.computed is None else expected[schedule.computed]
+            expected_ok = plan._usable(factors, multipliers, (computed,))
+            assert ok.tolist() == expected_ok.tolist()
+            read = np.arange(n) if want is None else np.unique(want)
+            got, exp = x[np.ix_(read, ok)], expected[np.ix_(read, ok)]
+            assert np.array_equal(got.view(np.uint64), exp.view(np.uint64))
+            assert np.isnan(x[:, ~ok]).all()
+            for s in np.flatnonzero(ok):
+                a = _dense(n, all_rows, all_cols, values[take, s])
+                solution = np.linalg.solve(a, rhs[:, s])
+                bound = 1e-12 * np.linalg.cond(a) * np.max(np.abs(solution)) + 1e-300
+                assert np.max(np.abs(x[read, s] - solution[read])) <= bound
+        merged += plan._program(None, None, take, values.shape[0]).repeated
+    assert merged > 0
+
+
 def test_wanted_unknowns_need_no_residual_test():
     rows, cols, rep = _random_system(np.random.default_rng(5), 6, 0.3)
     with pytest.raises(ValueError, match="residual test needs every unknown"):

@@ -65,6 +65,8 @@ class Program:
         The unknowns computed, and ``unknown_registers`` where each one ends.
     multiplier_registers : ndarray of int
         Registers of the multipliers (L entries) the schedule computes, each once.
+    repeated : int
+        Operations of the schedule left out as repeats of one already recorded.
     """
 
     def __init__(self, elimination, schedule, take, n_values: int):
@@ -72,13 +74,17 @@ class Program:
         zero = n_values
         table: dict = {}                 # (operation, operands) -> operation number
         operations: list = []            # (operation, operands), operands as ("in", register) or ("op", k)
+        repeated = 0
 
         def record(operation, *operands):
+            nonlocal repeated
             key = (operation, operands)
             k = table.get(key)
             if k is None:
                 k = table[key] = len(operations)
                 operations.append(key)
+            else:
+                repeated += 1
             return ("op", k)
 
         loaded = range(count) if schedule.entries is None else schedule.entries.tolist()
@@ -137,6 +143,7 @@ class Program:
         self.unknowns = np.array(sorted(x), dtype=np.intp)
         self.unknown_registers = np.array([at(x[q]) for q in self.unknowns.tolist()], dtype=np.intp)
         self.multiplier_registers = np.unique(np.array([at(m) for m in multipliers], dtype=np.intp))
+        self.repeated = repeated
 
     def run(self, values: np.ndarray, rhs: np.ndarray, work: np.ndarray) -> np.ndarray:
         """Run the steps for S samples.

@@ -32,11 +32,14 @@ plan refuses.
 function of the seed and k alone, never of the chunking or of the executor that runs the chunks.
 
 **Worker processes.** A run of at least :data:`PARALLEL_SAMPLES` samples with no executor given
-spreads its chunks over one worker process per core (forked from this process, so they start at
-once with everything already imported and planned), where the platform can fork and this process
-runs no other thread (a script, the command line; in a Jupyter kernel, which runs several, the
-chunks run here unless an executor is passed). Each chunk's answer is its own, whichever process
-solves it, so the result is the same either way; ``workers=1`` keeps every chunk in this process.
+spreads its chunks over one process per core: this one and worker processes (forked from it, so
+they start at once with everything already imported and planned), where the platform can fork and
+this process runs no other thread (a script, the command line; in a Jupyter kernel, which runs
+several, the chunks run here unless an executor is passed). This process takes the chunks from
+the end, the workers from the start. The workers write the numbers of their chunks straight into
+columns shared with this process (:func:`share_columns`), so only the words travel back. Each
+chunk's answer is its own, whichever process solves it, so the result is the same either way;
+``workers=1`` keeps every chunk in this process.
 """
 
 from __future__ import annotations
@@ -368,7 +371,8 @@ def _ignore_interrupt() -> None:
 
 
 def worker_count(samples: int, chunk_size: int, workers=None) -> int:
-    """How many processes run the chunks of a run when no executor is given (1: this one).
+    """How many processes run the chunks of a run when no executor is given: this one and one
+    fewer worker processes (1: this one alone).
 
     ``workers`` None chooses: one per core available to this process, for runs of at least
     :data:`PARALLEL_SAMPLES` samples, where the platform can fork and this process runs no other
