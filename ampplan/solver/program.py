@@ -159,11 +159,12 @@ class Program:
         work[:zero] = values
         work[zero] = 0.0
         np.take(rhs, self.rhs_rows, axis=0, out=work[zero + 1:zero + 1 + self.rhs_rows.size])
+        # A slice is a view; ndarray.take gathers rows with less overhead than fancy indexing.
+        read = lambda at: work[at] if type(at) is slice else work.take(at, axis=0)  # noqa: E731
         with np.errstate(all="ignore"):
             for operation, out, a, b, c in self.steps:
                 if operation == _DIVIDE:
-                    np.divide(work[a], work[b], out=work[out])
+                    np.divide(read(a), read(b), out=work[out])
                 else:
-                    product = work[b] * work[c]
-                    np.subtract(work[a], product, out=work[out])
+                    np.subtract(read(a), read(b) * read(c), out=work[out])
         return work

@@ -358,9 +358,10 @@ def _run_chunk_shared(token: int, plan, spec: ToleranceSpec, start: int, stop: i
     """:func:`run_chunk` in a forked worker: the numbers written into the run's shared columns,
     the rest (the words) returned, with None for ``passed`` (written too)."""
     values, rows, ok = run_chunk(plan, spec, start, stop)
-    held = _SHARED[token]
-    out = (held[0].write(start, values), held[1].write(start, rows), held[2].write(start, {"passed": ok}).get("passed"))
-    for columns in held:
+    parameters, table, passed = _SHARED[token]
+    out = (parameters.write(start, values), table.write(start, rows),
+           passed.write(start, {"passed": ok}).get("passed"))
+    for columns in (parameters, table, passed):
         columns.release()
     return out
 
