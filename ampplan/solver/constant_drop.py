@@ -76,6 +76,13 @@ WORK_BYTES = 16 * 2**20
 #: region assignment, up to this many unknowns; beyond it, and in single solves, LAPACK solves one
 #: dense system at a time.
 SPARSE_ORDER = 400
+#: A sparse solve of a batch runs over chunks of samples whose working arrays (about two numbers
+#: per slot of the elimination) take about this many bytes, a core's second-level cache: the
+#: elimination's steps then read what the steps before them wrote from the cache (chunks of
+#: 1,000–2,000 samples of the 3-stage demo measured about 10 % faster than chunks of 4,000);
+#: never fewer than SPARSE_CHUNK_MIN samples, whose per-call overhead would dominate.
+CACHE_BYTES = 2 * 2**20
+SPARSE_CHUNK_MIN = 256
 #: Rows of size + 1 numbers a sparse batch's search holds per sample, at most (:func:`blocks`).
 SPARSE_ROWS = 8
 #: Stamped single systems kept per layout (the circuit's own parameters only).
@@ -281,7 +288,9 @@ class RegionProblem:
         positions, elimination, constant, per_sample, device_rhs = _sparse_plan(lay, assignment)
         out_x = np.empty((len(samples), n + 1))
         out_ok = np.empty(len(samples), dtype=bool)
-        chunk = max(1, WORK_BYTES // (8 * 4 * (elimination.n_slots + n)))
+        # Chunks whose working arrays stay in a core's cache (CACHE_BYTES), not merely in WORK_BYTES.
+        chunk = max(1, min(WORK_BYTES // (8 * 4 * (elimination.n_slots + n)),
+                           max(SPARSE_CHUNK_MIN, CACHE_BYTES // (8 * 2 * (elimination.n_slots + n)))))
         dev = self.dev
         for start in range(0, len(samples), chunk):
             smp = samples[start:start + chunk]
