@@ -451,7 +451,7 @@ def _words(table, codes):
     batch of 100,000 would otherwise write 100,000 words per transistor)."""
     if codes.size and np.all(codes == codes.flat[0]):
         return np.broadcast_to(table[codes.flat[0]], codes.shape)
-    return table[codes]
+    return table.take(codes)
 
 
 class _Names:

@@ -459,7 +459,8 @@ class RegionProblem:
             size = np.abs(x[:, :lay.size])
             v_scale = np.max(size[:, :n_nodes], axis=1, initial=1.0)
             i_scale = np.max(size[:, n_nodes:], axis=1, initial=0.0)
-        tol = np.where(self.table.is_current[reg], (1e-9 * i_scale + 1e-18)[:, None, None], (1e-9 * v_scale)[:, None, None])
+        tol = np.where(self.table.is_current.take(reg, axis=0), (1e-9 * i_scale + 1e-18)[:, None, None],
+                       (1e-9 * v_scale)[:, None, None])
         holds = margins >= -tol
         return values, limits, margins, holds
 

@@ -158,12 +158,15 @@ class CheckTable:
             The margin is positive where the check holds with room (volts or amperes).
         """
         reg = regions.astype(np.intp)
-        # Plain advanced indexing (what take_along_axis builds, without its per-call overhead).
+        # What quantities[k, n, slot[k, n, c]] reads, as one flat ndarray.take each, and the
+        # table's rows by region with take too (plain gathers: advanced indexing with broadcast
+        # index arrays, or of a small table by a large one, costs several times more).
         k_count, n_q = reg.shape
-        at_k, at_n = np.arange(k_count)[:, None, None], np.arange(n_q)[None, :, None]
-        values = quantities[at_k, at_n, self.quantity[reg]]
-        bounds = limits[at_k, at_n, self.limit[reg]]
-        margins = np.where(self.above[reg], values - bounds, bounds - values)
+        cell = np.arange(k_count * n_q, dtype=np.intp).reshape(k_count, n_q, 1)
+        values = np.ascontiguousarray(quantities).reshape(-1).take(
+            cell * quantities.shape[2] + self.quantity.take(reg, axis=0))
+        bounds = np.ascontiguousarray(limits).reshape(-1).take(cell * limits.shape[2] + self.limit.take(reg, axis=0))
+        margins = np.where(self.above.take(reg, axis=0), values - bounds, bounds - values)
         return values, bounds, margins
 
     def choose(self, quantities, limits, regions: np.ndarray):
@@ -195,7 +198,7 @@ class CheckTable:
                     np.choose(regions, [slots[k] for k in table[:, c]], out=out[..., c])
         # b - v is exactly -(v - b): a margin is the difference times ±1.
         margins = values - bounds
-        margins *= self._margin_sign[first] if uniform else self._margin_sign[regions]
+        margins *= self._margin_sign[first] if uniform else self._margin_sign.take(regions, axis=0)
         return values, bounds, margins
 
     def check_names(self, regions: np.ndarray, sign: np.ndarray) -> np.ndarray:
@@ -205,7 +208,9 @@ class CheckTable:
             # Every sample in the same regions: one read-only view of the N×2 names (a batch of
             # 10,000 would otherwise write 60,000 words).
             return np.broadcast_to(self.names[pnp[0], regions.flat[0]], regions.shape + (2,))
-        return self.names[pnp, regions.astype(np.intp)]
+        # names[pnp, region] as one row gather of the (polarity·region, check) table.
+        flat = self.names.reshape(-1, self.names.shape[2])
+        return flat.take(pnp * self.names.shape[1] + regions.astype(np.intp), axis=0)
 
 
 _COMPILED: dict[tuple[str, str], CheckTable] = {}
