@@ -147,10 +147,18 @@ def _exact(out, todo, drive, system, ib, vce, edges, stages, span):
     """Constant-drop: each check's margin over its slope (see the module docstring)."""
     layout = system.layout
     sign = layout.sign
-    at = lambda names: np.array([system.index[n] for n in names])  # noqa: E731
-    x = np.concatenate([drive[todo], np.zeros((todo.size, 1))], axis=1)   # ground last
-    d_ib = x[:, system.q_ib]
-    d_vce = sign * (x[:, at(q.collector for q in layout.bjts)] - x[:, at(q.emitter for q in layout.bjts)])
+    n = system.size
+
+    def pick(columns):
+        """Columns of the drive for the samples ``todo``; ground (index ``n``) reads 0."""
+        columns = np.asarray(columns, dtype=np.intp)
+        out = drive.take(np.minimum(columns, n - 1), axis=1)[todo]
+        out[:, columns == n] = 0.0
+        return out
+
+    at = lambda names: [system.index[name] for name in names]  # noqa: E731
+    d_ib = pick(system.q_ib)
+    d_vce = sign * (pick(at(q.collector for q in layout.bjts)) - pick(at(q.emitter for q in layout.bjts)))
     margins = np.stack([ib[todo], sign * vce[todo] - edges[todo]], axis=-1)           # (K, N, 2)
     slopes = np.stack([d_ib, d_vce], axis=-1)
     singular = ~np.all(np.isfinite(slopes), axis=(1, 2))

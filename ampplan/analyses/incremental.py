@@ -275,17 +275,18 @@ class IncrementalSystem:
             typical = self._values(np.full((1, self.n_r), 1e-3),
                                    TransistorModels(g, np.zeros((1, n_q), dtype=bool), np.full((1, n_q), 100.0)),
                                    self.layout.sign)
-            representative = values_plan[1].new_last(typical.T, fixed)[kind_of, 0]
+            representative = values_plan[1].new_last(typical, fixed)[kind_of, 0]
             elimination = Elimination(total, entries // total, entries % total, representative, block=n)
             self._sparse = (elimination, values_plan)
         return self._sparse
 
     def _values(self, conductance, models: TransistorModels, signs) -> np.ndarray:
-        """The value table (S, n_values) the stamps read: 1, conductances, per-transistor terms."""
+        """The value table (n_values, S) the stamps read, samples last (as the sparse solves read
+        it): 1, conductances, per-transistor terms."""
         s_count = conductance.shape[0]
-        table = np.empty((s_count, self.n_values))
-        table[:, 0] = 1.0
-        table[:, 1:1 + self.n_r] = conductance
+        table = np.empty((self.n_values, s_count))
+        table[0] = 1.0
+        table[1:1 + self.n_r] = conductance.T
         g, h = models.g, models.held.astype(float)
         s = signs[None, :]
         per = np.stack([
@@ -302,7 +303,7 @@ class IncrementalSystem:
         with np.errstate(divide="ignore", invalid="ignore"):
             beta = np.where(np.isfinite(models.beta_ac) & (models.beta_ac > 0), models.beta_ac, np.nan)
         per[..., 8] = 1.0 / beta
-        table[:, 1 + self.n_r:] = per.reshape(s_count, -1)
+        table[1 + self.n_r:].reshape(-1, _PER_Q, s_count)[:] = per.transpose(1, 2, 0)
         return table
 
     def solve(self, conductance, models: TransistorModels, port_beta=None, shared: bool = True,
@@ -346,18 +347,18 @@ class IncrementalSystem:
         if port_beta is not None:
             models = TransistorModels(models.g, models.held, port_beta)
         table = self._values(conductance, models, self.layout.sign)
-        s_count, n_var, n = table.shape[0], len(self.variants), self.size
+        s_count, n_var, n = table.shape[1], len(self.variants), self.size
         if shared:
             # Samples last, as the elimination writes them (and as a caller reads one unknown of
             # every sample); x is the (S, V, size) view.
             store = np.empty((n_var * n, s_count))
             for at in range(0, s_count, BLOCK):
-                self._solve_sparse(table[at:at + BLOCK], store[:, at:at + BLOCK])
+                self._solve_sparse(table[:, at:at + BLOCK], store[:, at:at + BLOCK])
             x = store.reshape(n_var, n, s_count).transpose(2, 0, 1)
         else:
             x = np.empty((s_count, n_var, n))
             for at in range(0, s_count, BLOCK):
-                x[at:at + BLOCK] = self._solve_dense(table[at:at + BLOCK])
+                x[at:at + BLOCK] = self._solve_dense(table[:, at:at + BLOCK].T)
         for v, gone in enumerate(self.vanished):
             if gone:
                 x[:, v, gone] = np.nan
@@ -382,17 +383,17 @@ class IncrementalSystem:
         if port_beta is not None:
             models = TransistorModels(models.g, models.held, port_beta)
         table = self._values(conductance, models, self.layout.sign)
-        s_count, n = table.shape[0], self.size
+        s_count, n = table.shape[1], self.size
         flat = np.unique(np.array([v * n + k for v, k in wanted], dtype=np.intp))
         values = np.empty((flat.size, s_count))
         for at in range(0, s_count, BLOCK):
-            self._solve_sparse(table[at:at + BLOCK], values[:, at:at + BLOCK], flat)
+            self._solve_sparse(table[:, at:at + BLOCK], values[:, at:at + BLOCK], flat)
         gone = np.isin(flat, [v * n + k for v, ks in enumerate(self.vanished) for k in ks])
         values[gone] = np.nan
         return WantedUnknowns(self.size, flat, values)
 
     def _solve_dense(self, table):
-        """Every variant's matrix on its own, in one batched dense solve."""
+        """Every variant's matrix on its own, in one batched dense solve (``table`` (S, n_values))."""
         s_count, n_var, n = table.shape[0], len(self.variants), self.size
         rhs = self._rhs_plan(table, np.zeros((s_count, n_var * n))).reshape(s_count * n_var, n)
         matrix = self._matrix_plan(table, np.zeros((s_count, n_var * n * n))).reshape(s_count * n_var, n, n)
@@ -400,15 +401,15 @@ class IncrementalSystem:
         return xs.reshape(s_count, n_var, n)
 
     def _solve_sparse(self, table, out, wanted=None):
-        """Every variant of every sample through the planned sparse elimination (dense where it
-        fails), into ``out`` (V·size, S), samples last; with ``wanted`` (sorted flat entries
-        variant·size + unknown), only those, into ``out`` (len(wanted), S)."""
+        """Every variant of every sample of ``table`` (n_values, S) through the planned sparse
+        elimination (dense where it fails), into ``out`` (V·size, S), samples last; with
+        ``wanted`` (sorted flat entries variant·size + unknown), only those, into ``out``
+        (len(wanted), S)."""
         elimination, values_plan = self._sparse_plan()
-        s_count, n_var, n = table.shape[0], len(self.variants), self.size
-        columns = np.ascontiguousarray(table.T)                 # (n_values, S): samples last
+        s_count, n_var, n = table.shape[1], len(self.variants), self.size
         fixed, varying, kind_of = values_plan
-        kinds = varying.new_last(columns, fixed)
-        rhs = self._rhs_plan.new_last(columns, np.zeros(n_var * n))
+        kinds = varying.new_last(table, fixed)
+        rhs = self._rhs_plan.new_last(table, np.zeros(n_var * n))
         # The solution is copied into ``out`` at once, so it may live in a working array.
         solution, ok = elimination.solve(kinds, rhs, check_residual=False, take=kind_of,
                                          rhs_rows=self._rhs_plan.targets, wanted=wanted,
@@ -419,7 +420,7 @@ class IncrementalSystem:
             np.take(solution, wanted, axis=0, out=out)
         bad = np.flatnonzero(~ok)
         if bad.size:
-            dense = self._solve_dense(table[bad]).reshape(bad.size, n_var * n).T
+            dense = self._solve_dense(table[:, bad].T).reshape(bad.size, n_var * n).T
             out[:, bad] = dense if wanted is None else dense[wanted]
 
 
