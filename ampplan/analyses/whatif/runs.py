@@ -270,15 +270,16 @@ def run_chunk(plan, spec: ToleranceSpec, start: int, stop: int) -> tuple:
 
 
 def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executor=None, progress=None,
-               shared=None, here: bool = False) -> tuple:
+               shared=None, workers: int | None = None) -> tuple:
     """Run every chunk (in order, or through ``executor``) and assemble the whole run.
 
     ``progress(done, total)`` is called after each chunk. A KeyboardInterrupt cancels the chunks
     not yet started and is raised again. ``shared`` (a token of :func:`share_columns`, with an
     executor of processes forked after it was made) has the workers write the numbers into the
-    run's shared columns instead of sending them back. ``here`` has this process run chunks too,
-    while the executor's workers run theirs: it takes the last chunk none of them has started,
-    they take the first ones.
+    run's shared columns instead of sending them back. With ``workers`` (the executor's number
+    of processes), this process runs chunks too: the workers take the chunks from the start, one
+    at a time each (the next handed over as one finishes, so none waits queued behind a busy
+    worker while this process could run it), and this process takes them from the end.
     """
     bounds = [(a, min(a + chunk_size, samples)) for a in range(0, samples, chunk_size)]
     held = _SHARED.get(shared)
@@ -307,25 +308,49 @@ def run_chunks(plan, spec: ToleranceSpec, samples: int, chunk_size: int, executo
             keep(start, stop, run_chunk(plan, spec, start, stop))
         return parameters.table(), table.table(), passed
     task = (run_chunk,) if shared is None else (_run_chunk_shared, shared)
-    futures = {executor.submit(*task, plan, spec, start, stop): (start, stop) for start, stop in bounds}
-    waiting = list(futures) if here else []        # in chunk order; this process takes from the end
+    futures: dict = {}
+    # The chunks left and the futures, shared with the pool's thread (reentrant: cancelling a
+    # future runs its callback in the thread that cancels).
+    lock = threading.RLock()
+    left = list(reversed(bounds))    # the next chunk for a worker last, the next one for here first
+    stopped = False
+
+    def hand_over(_=None):
+        """Give the executor the first chunk left; with ``workers``, called again (from the
+        pool's thread) as each chunk finishes."""
+        with lock:
+            if stopped or not left:
+                return
+            start, stop = left.pop()
+            future = executor.submit(*task, plan, spec, start, stop)
+            futures[future] = (start, stop)
+        if workers is not None:
+            future.add_done_callback(hand_over)
+
     try:
-        while futures:
-            while waiting:
-                future = waiting.pop()
-                if future.cancel():                # not started by a worker: run it here instead
-                    start, stop = futures.pop(future)
-                    keep(start, stop, run_chunk(plan, spec, start, stop))
+        for _ in range(len(bounds) if workers is None else workers):
+            hand_over()
+        while True:
+            with lock:
+                mine = left.pop(0) if workers is not None and left else None
+                finished = [f for f in futures if f.done()] if mine is not None else None
+            if mine is None:                   # nothing left to run here: wait for the workers
+                with lock:
+                    running = list(futures)
+                if not running:
                     break
-            # What the workers have finished (all that is left, once nothing is left to run here).
-            finished, _ = concurrent.futures.wait(futures, timeout=0 if waiting else None,
-                                                  return_when=concurrent.futures.FIRST_COMPLETED)
+                finished, _ = concurrent.futures.wait(running, return_when=concurrent.futures.FIRST_COMPLETED)
             for future in finished:
-                start, stop = futures.pop(future)  # dropped once kept: a run holds one copy of its results
+                with lock:
+                    start, stop = futures.pop(future)   # dropped once kept: a run holds one copy of its results
                 keep(start, stop, future.result())
+            if mine is not None:
+                keep(*mine, run_chunk(plan, spec, *mine))
     except BaseException:
-        for future in futures:
-            future.cancel()
+        with lock:
+            stopped = True
+            for future in futures:
+                future.cancel()
         raise
     return parameters.table(), table.table(), passed
 
@@ -698,7 +723,7 @@ def tolerance(plan, samples: int = 10_000, seed=None, resistors=0.05, beta=(0.5,
         pool = executor = process_pool(processes - 1, method)      # this process runs chunks too
     try:
         parameters, table, passed = run_chunks(frozen, spec, samples, chunk_size, executor, progress, shared,
-                                               here=pool is not None)
+                                               workers=None if pool is None else processes - 1)
     except BaseException:
         if pool is not None:
             pool.shutdown(wait=False, cancel_futures=True)
