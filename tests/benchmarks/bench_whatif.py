@@ -6,15 +6,16 @@ For the 3-stage demo plan (ampplan/data/demo_plan.json):
     (100,000 by default), beside the same samples through a loop of ``plan.solve()`` extrapolated
     from ``--loop`` of them (200 by default; CPU time, ``time.process_time``), after checking that
     the two agree on those samples; targets (issue 8): under 2 s on 2 cores, at least 1,000× the
-    loop. A run that large spreads its chunks over one worker process per core, so it is timed on
-    the wall clock (``time.perf_counter``) and its CPU time, workers included
-    (``os.times``: this process and its reaped children), is printed beside it, with the same run
-    in this process alone (``workers=1``, CPU time) and its ratio;
+    loop. A run that large spreads its chunks over one process per core (this one and forked
+    workers), so it is timed on the wall clock (``time.perf_counter``) and its CPU time, workers
+    included (``os.times``: this process and its reaped children), is printed beside it, with the
+    same run in this process alone (``workers=1``, CPU time) and its ratio;
 (b) the same run with Ebers–Moll; target under 10 s;
 (c) the peak memory (maximum resident set, in a fresh interpreter) of a run of
     ``--memory-samples`` samples (1,000,000 by default) in chunks; target under 1 GiB, for the
-    parent and its workers together (an upper bound: each worker is counted at the largest one's
-    peak, and pages shared since the fork count in each). The
+    parent and its forked workers together (an upper bound: each worker is counted at the largest
+    one's peak, and pages shared since the fork count in each; the run's numbers live in memory
+    shared with the workers, which let go of their pages after each chunk). The
     same interpreter's resident set after a 1,000-sample run is printed beside it, so the growth
     is visible.
 
@@ -109,8 +110,8 @@ def main(argv=None):
     print("tolerance run of the 3-stage demo, default spreads:")
     from ampplan.analyses.whatif.runs import worker_count
     workers = worker_count(args.samples, args.chunk_size or CHUNK)
-    print(f"  ({workers} worker process(es) for {args.samples} samples; load average "
-          f"{', '.join(f'{v:.2f}' for v in os.getloadavg())})")
+    print(f"  ({workers} process(es) for {args.samples} samples: this one and {workers - 1} forked worker(s); "
+          f"load average {', '.join(f'{v:.2f}' for v in os.getloadavg())})")
     for model in args.models:
         plan.tolerance(samples=200, seed=1, model=model)  # warm caches
         alone, _ = cpu(lambda: plan.tolerance(samples=args.samples, seed=1, model=model, workers=1, **chunk))
