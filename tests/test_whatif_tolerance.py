@@ -306,6 +306,40 @@ def test_corner_subset_finds_the_monotonic_worst_case():
         assert subset.worst_case[address].value == pytest.approx(full.worst_case[address].value, rel=1e-12)
 
 
+def test_every_corner_of_the_demo_by_default_and_its_worst_cases_re_solved():
+    plan = demo_plan()
+    full = plan.corners()                       # 16 varied values: 65,536 corners
+    assert full.exhaustive and len(full.passed) == 2 ** 16
+    subset = plan.corners(max_corners=4096)
+    assert not subset.exhaustive and len(subset.passed) < 100
+    for address, worst in full.worst_case.items():
+        # The subset's corners are corners too: its worst can only be as low, never lower.
+        assert subset.worst_case[address].value >= worst.value
+        # Source: a single solve of the plan with that corner's values set one by one.
+        single = plan.copy()
+        for name, value in worst.parameters.items():
+            single.set(name, value)
+        assert single.solve()[address] == pytest.approx(worst.value, rel=1e-9, abs=1e-15)
+
+
+def test_a_margin_no_corner_solves_is_reported_as_such(monkeypatch):
+    from ampplan.analyses.whatif import extremes
+    solved = extremes.solve_chunked
+
+    def nothing_solves(plan, model, values):
+        table = solved(plan, model, values)
+        table["s1.swing"] = np.full(len(table["s1.swing"]), np.nan)
+        return table
+
+    monkeypatch.setattr(extremes, "solve_chunked", nothing_solves)
+    result = fixed_bias_plan().corners(**{**ONLY, "beta": (0.5, 2.0)})
+    worst = result.worst_case["s1.swing"]
+    assert math.isnan(worst.value) and worst.index is None and worst.parameters == {}
+    assert "worst s1.swing: nan no corner solved" in repr(result)
+    assert "none solved" in result._repr_html_()
+    assert json.loads(json.dumps(result.to_dict(), allow_nan=False))["worst_case"]["s1.swing"]["index"] is None
+
+
 @pytest.mark.parametrize("options, message", [({"max_corners": 0}, r"corners max_corners"),
                                               ({"required_amplitude": 0.0}, r"corners required_amplitude")])
 def test_bad_corner_options(options, message):

@@ -313,13 +313,16 @@ def sweep(plan, values, model: str = "constant-drop", grid: bool = False) -> Pla
     check_model(model)
     checked = check_values(plan, values, grid)
     frozen = plan.copy()
-    size = len(next(iter(checked.values())))
+    return PlanSweep(values=checked, model=model, plan=frozen, _table=solve_chunked(frozen, model, checked))
+
+
+def solve_chunked(plan, model: str, values: dict) -> dict:
+    """:func:`solve_table` of any number of samples, :data:`CHUNK` at a time, so that the working
+    memory stays that of one chunk (the words kept as codes); the same table as one call."""
+    size = len(next(iter(values.values())))
     if size <= CHUNK:
-        table = solve_table(frozen, model, checked)
-    else:
-        # Chunk by chunk, so the working memory stays that of one chunk (words kept as codes).
-        builder = TableBuilder(size)
-        for start in range(0, size, CHUNK):
-            builder.put(start, solve_table(frozen, model, {a: v[start:start + CHUNK] for a, v in checked.items()}))
-        table = builder.table()
-    return PlanSweep(values=checked, model=model, plan=frozen, _table=table)
+        return solve_table(plan, model, values)
+    builder = TableBuilder(size)
+    for start in range(0, size, CHUNK):
+        builder.put(start, solve_table(plan, model, {a: v[start:start + CHUNK] for a, v in values.items()}))
+    return builder.table()
