@@ -113,6 +113,11 @@ def check_size(layout) -> None:
             f"{MAX_MATRIX_BYTES / 2**20:.0f} MiB; split the circuit into parts")
 
 
+def _sparse_for(layout, sparse: bool) -> bool:
+    """Whether a batch asked to solve sparsely (``sparse``) does so: up to SPARSE_ORDER unknowns."""
+    return sparse and layout.size <= SPARSE_ORDER
+
+
 def blocks(count: int, layout, sparse: bool = False):
     """Index arrays that cover ``count`` samples in blocks small enough for :data:`WORK_BYTES`.
 
@@ -122,7 +127,7 @@ def blocks(count: int, layout, sparse: bool = False):
     (:meth:`RegionProblem.systems`), and otherwise holds :data:`SPARSE_ROWS` rows of size + 1
     numbers per sample (its unknowns, their copies and its checks).
     """
-    sparse = sparse and layout.size <= SPARSE_ORDER         # as RegionProblem decides
+    sparse = _sparse_for(layout, sparse)
     per_sample = 8 * (layout.size + 1) * (SPARSE_ROWS if sparse else layout.size + 1)
     size = max(1, WORK_BYTES // per_sample)
     if count <= size:
@@ -142,7 +147,7 @@ class RegionProblem:
 
     def __init__(self, layout, params, active_edge: str = "vce-sat", sparse: bool = False):
         self.layout = layout
-        self.sparse = sparse and layout.size <= SPARSE_ORDER
+        self.sparse = _sparse_for(layout, sparse)
         self.params = params
         dev = params.at_temperature
         self.dev = dev
